@@ -1,0 +1,1 @@
+"""halfwatch service: ingestion API, storage, analysis worker, alarms, email and dashboard."""
