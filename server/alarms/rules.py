@@ -1,0 +1,213 @@
+"""Alarm rules as plain data: metrics read from an analysis result, and the default rule set.
+
+Pure logic: no database, no HTTP. A rule watches one *metric* (a number taken from the stored
+analysis JSON or from the point's history) and has two levels, ``alert`` and ``danger``. For
+``direction="above"`` a reading is beyond a level when ``value >= level``; for ``"below"`` (time to
+limit, threshold margin) when ``value <= level``.
+
+Default levels
+--------------
+The overall-velocity rule uses the ISO 20816 evaluation-zone boundaries of the point's machine group
+and support: alert on entering zone C (the B/C boundary), danger on entering zone D (the C/D
+boundary). That stays within the usual operational-limit guidance (alarm not above 1.25 x B/C, trip
+not above 1.25 x C/D; values from memory, to be checked against the standard). The half-order line
+gets the A/B boundary as alert and the B/C boundary as danger: a single sub-synchronous line that on
+its own would take a healthy machine out of zone A deserves a look, and one that alone fills zone C
+is serious (house choice). The other defaults are house choices documented beside each rule.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field, replace
+
+LEVELS = ("normal", "alert", "danger")
+LEVEL_RANK = {name: i for i, name in enumerate(LEVELS)}
+ZONE_RANK = {"A": 0, "B": 1, "C": 2, "D": 3}
+
+# ISO 20816-3 / 10816-3 Annex A, broad-band velocity r.m.s. in mm/s (A/B, B/C, C/D). Values from
+# memory (see the module docstring); used only when a result carries no zone limits of its own.
+ISO_ZONE_LIMITS_MM_S = {
+    (1, "rigid"): (2.3, 4.5, 7.1),
+    (1, "flexible"): (3.5, 7.1, 11.0),
+    (2, "rigid"): (1.4, 2.8, 4.5),
+    (2, "flexible"): (2.3, 4.5, 7.1),
+}
+
+
+@dataclass(frozen=True, slots=True)
+class MetricInfo:
+    """What a metric is, in words a planner reads, and its unit."""
+
+    label: str
+    unit: str
+    direction: str = "above"
+
+
+METRICS: dict[str, MetricInfo] = {
+    "half_order_velocity": MetricInfo("half-order velocity", "mm/s"),
+    "half_order_amplitude": MetricInfo("half-order amplitude (record units)", ""),
+    "half_order_ratio": MetricInfo("half-order / 1X ratio", ""),
+    "growth_rate": MetricInfo("within-record growth rate", "1/s"),
+    "trend_db_per_day": MetricInfo("half-order trend", "dB/day"),
+    "time_to_limit_days": MetricInfo("forecast time to the danger level", "days", "below"),
+    "overall_velocity": MetricInfo("overall velocity r.m.s. (ISO 20816 zone)", "mm/s"),
+    "threshold_margin": MetricInfo("margin to the instability threshold", "", "below"),
+    "order_1x_velocity": MetricInfo("1X velocity", "mm/s"),
+    "order_2x_velocity": MetricInfo("2X velocity", "mm/s"),
+    "crest_factor": MetricInfo("crest factor", ""),
+}
+
+
+@dataclass(frozen=True, slots=True)
+class RuleSpec:
+    """One alarm rule.
+
+    ``alert``/``danger`` of ``None`` on a ``zone_based`` rule mean "take the ISO zone boundaries of
+    the result". Persistence: a level is raised when at least ``k`` of the last ``n`` readings are
+    beyond it. Hysteresis: the level clears when at least ``k`` of the last ``n`` readings are back
+    inside the level moved by ``hysteresis`` (a fraction: 0.1 clears an "above" rule at 90 % of the
+    level, a "below" rule at 110 %).
+    """
+
+    metric: str
+    alert: float | None
+    danger: float | None
+    k: int = 2
+    n: int = 3
+    hysteresis: float = 0.10
+    direction: str = "above"
+    zone_based: bool = False
+    enabled: bool = True
+    id: int | None = None
+    extra: dict = field(default_factory=dict)
+
+    def validate(self) -> None:
+        """Raise ``ValueError`` naming the field when the rule cannot work."""
+        if self.metric not in METRICS:
+            raise ValueError(f"metric: unknown metric {self.metric!r}; use one of {', '.join(METRICS)}")
+        if self.direction not in ("above", "below"):
+            raise ValueError("direction: use 'above' or 'below'")
+        if not (1 <= self.k <= self.n <= 50):
+            raise ValueError("k: persistence needs 1 <= k <= n <= 50")
+        if not (0.0 <= self.hysteresis < 1.0):
+            raise ValueError("hysteresis: a fraction from 0 to below 1, e.g. 0.1")
+        if self.zone_based:
+            return
+        for name in ("alert", "danger"):
+            value = getattr(self, name)
+            if value is None or not math.isfinite(value):
+                raise ValueError(f"{name}: a finite level is required")
+        if self.direction == "above" and self.danger < self.alert:
+            raise ValueError("danger: must be at or above the alert level for an 'above' rule")
+        if self.direction == "below" and self.danger > self.alert:
+            raise ValueError("danger: must be at or below the alert level for a 'below' rule")
+
+    def levels(self, result: dict | None = None) -> tuple[float, float] | None:
+        """``(alert, danger)`` for this reading; zone-based rules read the result's zone limits."""
+        if not self.zone_based:
+            return float(self.alert), float(self.danger)
+        limits = zone_limits(result or {})
+        if limits is None:
+            return None
+        return limits[1], limits[2]
+
+
+def zone_limits(result: dict, *, group: int = 2, support: str = "rigid") -> tuple[float, float, float] | None:
+    """ISO zone boundaries (A/B, B/C, C/D) in mm/s from the result, else the table for group/support."""
+    limits = (result.get("overall") or {}).get("zone_limits_mm_s")
+    if isinstance(limits, dict):
+        limits = [limits.get(key) for key in ("A/B", "B/C", "C/D")]
+    if isinstance(limits, (list, tuple)) and len(limits) == 3 and all(_finite(v) for v in limits):
+        return float(limits[0]), float(limits[1]), float(limits[2])
+    return ISO_ZONE_LIMITS_MM_S.get((group, support))
+
+
+def default_rules(*, group: int = 2, support: str = "rigid") -> list[RuleSpec]:
+    """The rule set every new measurement point gets."""
+    ab, bc, _cd = ISO_ZONE_LIMITS_MM_S.get((group, support), ISO_ZONE_LIMITS_MM_S[(2, "rigid")])
+    return [
+        # Half-order line alone: A/B boundary alerts, B/C boundary is danger (see module docstring).
+        RuleSpec("half_order_velocity", ab, bc),
+        # Half-order against 1X: a quarter of 1X alerts, half of 1X is danger (house choice).
+        RuleSpec("half_order_ratio", 0.25, 0.5),
+        # Growth inside one record, counted only when its 95 % CI excludes zero (house choice).
+        RuleSpec("growth_rate", 0.05, 0.5),
+        # Trend across records: +1 dB/day alerts, +3 dB/day is danger (house choice).
+        RuleSpec("trend_db_per_day", 1.0, 3.0),
+        # Forecast to the half-order danger level: within 30 days alerts, within 7 days is danger.
+        RuleSpec("time_to_limit_days", 30.0, 7.0, direction="below"),
+        # Overall level against the ISO 20816 zones: C alerts, D is danger.
+        RuleSpec("overall_velocity", None, None, zone_based=True),
+        # Margin 1 - h/h_c from the operating-window fit: 20 % alerts, 5 % is danger (house choice).
+        RuleSpec("threshold_margin", 0.20, 0.05, direction="below"),
+    ]
+
+
+def with_levels(rule: RuleSpec, **changes) -> RuleSpec:
+    """A copy of ``rule`` with some fields changed (validated)."""
+    new = replace(rule, **changes)
+    new.validate()
+    return new
+
+
+def _finite(value) -> bool:
+    return isinstance(value, (int, float)) and not isinstance(value, bool) and math.isfinite(value)
+
+
+def _num(value) -> float | None:
+    return float(value) if _finite(value) else None
+
+
+def result_metrics(result: dict) -> dict[str, float | None]:
+    """Metrics that come straight from one analysis result (``RecordAnalysis.to_dict()``).
+
+    ``None`` means "this reading says nothing about the metric" (it neither raises nor clears).
+    """
+    sub = result.get("subharmonic") or {}
+    orders = result.get("orders") or {}
+    one_x = orders.get("1X") or {}
+    two_x = orders.get("2X") or {}
+    growth = result.get("growth") or {}
+    overall = result.get("overall") or {}
+    waveform = result.get("waveform") or {}
+    detected = bool(sub.get("detected"))
+
+    half_v = _num(sub.get("velocity_mm_s")) if detected else 0.0
+    half_a = _num(sub.get("amplitude")) if detected else 0.0
+    ratio = None
+    one_x_amp = _num(one_x.get("amplitude"))
+    if not detected:
+        ratio = 0.0
+    elif half_a is not None and one_x_amp and one_x_amp > 0:
+        ratio = half_a / one_x_amp
+
+    return {
+        "half_order_velocity": half_v,
+        "half_order_amplitude": half_a,
+        "half_order_ratio": ratio,
+        "growth_rate": significant_growth(growth),
+        "overall_velocity": _num(overall.get("velocity_rms_mm_s")),
+        "order_1x_velocity": _num(one_x.get("velocity_mm_s")),
+        "order_2x_velocity": _num(two_x.get("velocity_mm_s")),
+        "crest_factor": _num(waveform.get("crest_factor")),
+    }
+
+
+def significant_growth(growth: dict) -> float | None:
+    """The within-record growth rate when its 95 % CI excludes zero, 0.0 when it does not.
+
+    A rate whose interval straddles zero is no evidence of growth, so it counts as a calm reading.
+    """
+    rate = _num(growth.get("rate_per_s"))
+    if rate is None:
+        return None
+    ci = growth.get("ci95_per_s")
+    if isinstance(ci, (list, tuple)) and len(ci) == 2 and _finite(ci[0]) and _finite(ci[1]):
+        lo, hi = float(ci[0]), float(ci[1])
+        if lo <= 0.0 <= hi:
+            return 0.0
+        return rate
+    if _finite(ci):  # a half-width
+        return rate if abs(rate) > float(ci) else 0.0
+    return 0.0
