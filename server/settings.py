@@ -1,0 +1,64 @@
+"""The one settings class. Built in ``main()`` / ``create_app()``, never at import time.
+
+Every field can be set from the environment with the prefix ``HALFWATCH_`` (for example
+``HALFWATCH_DATABASE_URL`` or ``HALFWATCH_PORT``). Other parts add their own fields here.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+from pydantic import Field, model_validator
+from pydantic_settings import BaseSettings, SettingsConfigDict
+
+
+class Settings(BaseSettings):
+    model_config = SettingsConfigDict(env_prefix="HALFWATCH_", extra="ignore")
+
+    # storage
+    data_dir: Path = Path("./data")
+    database_url: str = Field(
+        default="", description="SQLAlchemy URL; empty means a SQLite file halfwatch.db under data_dir"
+    )
+
+    # HTTP service
+    host: str = "127.0.0.1"
+    port: int = Field(default=8000, ge=0, le=65535)
+    secret_key: str = Field(default="", description="random string for tokens (set it in production)")
+    public_base_url: str = Field(default="http://127.0.0.1:8000", description="base of links in emails")
+    session_cookie_secure: bool = False
+    session_ttl_h: float = Field(default=12.0, gt=0)
+    embedded_worker: bool = Field(default=False, description="run the analysis worker inside the API process")
+
+    # ingestion limits
+    max_body_bytes: int = Field(default=64 * 1024 * 1024, gt=0)
+    max_samples: int = Field(default=4_194_304, gt=0)
+    min_samples: int = Field(default=256, gt=0)
+    min_sample_rate_hz: float = Field(default=100.0, gt=0)
+    max_sample_rate_hz: float = Field(default=200_000.0, gt=0)
+    max_future_s: float = Field(default=300.0, ge=0, description="allowed lead of measured_at")
+    max_upload_bytes: int = Field(default=256 * 1024 * 1024, gt=0, description="route ZIP, unpacked")
+    max_upload_ratio: float = Field(default=200.0, gt=1, description="route ZIP: largest compression ratio")
+    max_manifest_rows: int = Field(default=5000, gt=0)
+
+    # worker
+    worker_poll_s: float = Field(default=0.5, gt=0)
+    lease_s: float = Field(default=60.0, gt=0)
+    max_attempts: int = Field(default=3, ge=1)
+
+    # Argon2id password hashing (tests set these low)
+    argon2_time_cost: int = Field(default=3, ge=1)
+    argon2_memory_cost_kib: int = Field(default=65536, ge=8)
+    argon2_parallelism: int = Field(default=4, ge=1)
+
+    @model_validator(mode="after")
+    def _fill_database_url(self) -> Settings:
+        if not self.database_url:
+            self.database_url = f"sqlite:///{(self.data_dir / 'halfwatch.db').as_posix()}"
+        if self.min_sample_rate_hz >= self.max_sample_rate_hz:
+            raise ValueError("min_sample_rate_hz must be below max_sample_rate_hz")
+        return self
+
+    @property
+    def is_sqlite(self) -> bool:
+        return self.database_url.startswith("sqlite")
