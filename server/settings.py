@@ -7,8 +7,9 @@ Every field can be set from the environment with the prefix ``HALFWATCH_`` (for 
 from __future__ import annotations
 
 from pathlib import Path
+from typing import Literal
 
-from pydantic import Field, model_validator
+from pydantic import Field, SecretStr, model_validator
 from pydantic_settings import BaseSettings, SettingsConfigDict
 
 
@@ -45,6 +46,22 @@ class Settings(BaseSettings):
     worker_poll_s: float = Field(default=0.5, gt=0)
     lease_s: float = Field(default=60.0, gt=0)
     max_attempts: int = Field(default=3, ge=1)
+
+    # alarms and alert emails (server/alarms)
+    smtp_host: str = Field(default="", description="SMTP server for alert emails; empty disables sending")
+    smtp_port: int = Field(default=25, ge=1, le=65535)
+    smtp_security: Literal["none", "starttls", "ssl"] = "none"
+    smtp_user: str = ""
+    smtp_password: SecretStr = SecretStr("")
+    smtp_from: str = "halfwatch@localhost"
+    smtp_timeout_s: float = Field(default=20.0, gt=0)
+    mail_poll_s: float = Field(default=5.0, gt=0, description="how often the sender looks at the outbox")
+    mail_lease_s: float = Field(default=120.0, gt=0, description="a claimed email is retried after this")
+    mail_max_attempts: int = Field(default=12, ge=1)
+    mail_backoff_s: float = Field(default=30.0, gt=0, description="first retry delay; doubles per attempt")
+    mail_backoff_max_s: float = Field(default=3600.0, gt=0)
+    alarm_speed_tolerance: float = Field(default=0.10, gt=0, lt=1, description="vs the point's usual speed")
+    alarm_nominal_speed_tolerance: float = Field(default=0.25, gt=0, lt=1, description="vs asset nominal")
 
     # Argon2id password hashing (tests set these low)
     argon2_time_cost: int = Field(default=3, ge=1)
