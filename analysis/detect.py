@@ -1,0 +1,168 @@
+"""Subharmonic search 0.30X-0.70X: CFAR test against the local floor, class, family, other tones."""
+
+from __future__ import annotations
+
+import numpy as np
+
+from .conditioning import velocity_mm_s
+from .forcing import line_near
+from .results import Spectrum, Subharmonic, Tone
+from .spectrum import cfar_threshold, grandke, local_peaks, power
+
+SEARCH_BAND = (0.30, 0.70)  # orders searched for a subharmonic
+HALF_ORDER_TOL = 0.01  # ±2 % of 0.5X, in orders
+WHIRL_BAND = (0.38, 0.48)  # fluid-film whirl, orders (common practice)
+MIN_VELOCITY_MM_S = 0.02  # absolute floor (peak): below this a line is sensor noise (common practice)
+MAX_TONES = 12
+#: Scatter of the floor estimate as degrees of freedom per test-bin d.o.f.: medians of 32-bin blocks
+#: (median efficiency 2/π for Gaussian-like data) of Hann bins that are correlated over ~ENBW = 1.5 bins.
+FLOOR_DOF_FACTOR = 32 * (2.0 / np.pi) / 1.5
+
+
+def _floor_power(spec: Spectrum) -> np.ndarray:
+    return spec.floor_psd * (spec.enbw_bins * spec.df_hz)
+
+
+def threshold(spec: Spectrum, pfa: float, n_tested: int) -> float:
+    return cfar_threshold(pfa, n_tested, spec.nu_eff, spec.nu_eff * FLOOR_DOF_FACTOR)
+
+
+def _hann_leakage(d: np.ndarray) -> np.ndarray:
+    """Power envelope of the Hann window's sidelobes d bins from a line (d ≥ 2), relative to the line."""
+    d = np.maximum(np.abs(d), 2.0)
+    return (1.0 / (np.pi * d * (d * d - 1.0))) ** 2
+
+
+def _not_leakage(pw: np.ndarray, peaks: np.ndarray) -> np.ndarray:
+    """Drop local maxima that are sidelobes of a stronger line (within 10× the Hann leakage envelope)."""
+    order = peaks[np.argsort(pw[peaks])[::-1]]
+    kept: list[int] = []
+    for k in order:
+        if kept:
+            strong = np.asarray(kept)
+            d = np.abs(strong - k).astype(float)
+            near = d <= 64
+            if np.any(near) and np.any(pw[k] < 10.0 * pw[strong[near]] * _hann_leakage(d[near])):
+                continue
+            if np.any(d < 2):
+                continue
+        kept.append(int(k))
+    return np.asarray(kept, dtype=np.intp)
+
+
+def detect_subharmonic(
+    spec: Spectrum, f1x: float, units: str, pfa: float, min_velocity_mm_s: float = MIN_VELOCITY_MM_S
+) -> Subharmonic:
+    """Half-order / sub-synchronous detection.
+
+    Significant lines in 0.30X-0.70X pass the CFAR threshold (family-wise false-alarm probability ``pfa``
+    over the bins searched) and the absolute velocity floor. The strongest significant line within ±2 % of
+    0.5X makes the record "half-order"; failing that, the strongest in the whirl band 0.38-0.48X makes it
+    "sub-synchronous"; other lines (0.31X, 0.62X, ...) are no subharmonic and are listed as tones. With no
+    detection the line nearest 0.5X is still measured (for trends), with class "none".
+    """
+    pw = power(spec)
+    floor = _floor_power(spec)
+    df = spec.df_hz
+    lo, hi = int(np.ceil(SEARCH_BAND[0] * f1x / df)), int(np.floor(SEARCH_BAND[1] * f1x / df)) + 1
+    n_tested = max(1, hi - lo)
+    tau = threshold(spec, pfa, n_tested)
+    peaks = local_peaks(pw, lo, hi)
+    best: dict[str, tuple[float, float, float, float]] = {}
+    for k in peaks:
+        ratio = pw[k] / max(floor[k], 1e-300)
+        f, a = grandke(pw, int(k), df)
+        order = f / f1x
+        if abs(order - 0.5) <= HALF_ORDER_TOL:
+            klass = "half-order"
+        elif WHIRL_BAND[0] <= order <= WHIRL_BAND[1]:
+            klass = "sub-synchronous"
+        else:
+            continue
+        v = velocity_mm_s(a, f, units)
+        if ratio > tau and v >= min_velocity_mm_s and (klass not in best or a > best[klass][1]):
+            best[klass] = (f, a, ratio, v)
+    family_tau = threshold(spec, pfa, 5)
+    for klass in ("half-order", "sub-synchronous"):
+        if klass in best:
+            f, a, ratio, v = best[klass]
+            family = {}
+            for name, mult in (("1.5X", 1.5), ("2.5X", 2.5)):
+                hit = line_near(spec, pw, mult * f1x)
+                ok = hit is not None and pw[hit[0]] > family_tau * floor[hit[0]]
+                family[name] = hit[2] if ok else None
+            return Subharmonic(
+                detected=True,
+                klass=klass,
+                frequency_hz=f,
+                order=f / f1x,
+                amplitude=a,
+                velocity_mm_s=v,
+                snr_db=10 * np.log10(ratio),
+                threshold_db=10 * np.log10(tau),
+                pfa=pfa,
+                family=family,
+            )
+    hit = line_near(spec, pw, 0.5 * f1x, half_bins=max(1, int(round(HALF_ORDER_TOL * f1x / df))))
+    if hit is None:
+        return Subharmonic(
+            detected=False,
+            klass="none",
+            frequency_hz=None,
+            order=None,
+            amplitude=None,
+            velocity_mm_s=None,
+            snr_db=None,
+            threshold_db=10 * np.log10(tau),
+            pfa=pfa,
+            family={"1.5X": None, "2.5X": None},
+        )
+    k, f, a = hit
+    return Subharmonic(
+        detected=False,
+        klass="none",
+        frequency_hz=f,
+        order=f / f1x,
+        amplitude=a,
+        velocity_mm_s=velocity_mm_s(a, f, units),
+        snr_db=10 * np.log10(pw[k] / max(floor[k], 1e-300)),
+        threshold_db=10 * np.log10(tau),
+        pfa=pfa,
+        family={"1.5X": None, "2.5X": None},
+    )
+
+
+def other_tones(spec: Spectrum, f1x: float, pfa: float, exclude_hz: list[float]) -> tuple[Tone, ...]:
+    """Significant lines other than 1X, 2X and the subharmonic, strongest first (at most 12).
+
+    Searched from 10 bins above DC to 0.9 of Nyquist; the CFAR threshold is corrected for all bins
+    searched; Hann sidelobes of stronger lines are not reported as tones.
+    """
+    pw = power(spec)
+    floor = _floor_power(spec)
+    lo, hi = 10, int(0.9 * (len(pw) - 1))
+    tau = threshold(spec, pfa, max(1, hi - lo))
+    peaks = local_peaks(pw, lo, hi)
+    if len(peaks) == 0:
+        return ()
+    peaks = peaks[pw[peaks] > tau * np.maximum(floor[peaks], 1e-300)]
+    if len(peaks) == 0:
+        return ()
+    peaks = _not_leakage(pw, peaks)
+    excl = np.asarray([f / spec.df_hz for f in exclude_hz if f is not None])
+    tones = []
+    for k in peaks:
+        if len(excl) and np.min(np.abs(excl - k)) <= 2.5:
+            continue
+        f, a = grandke(pw, int(k), spec.df_hz)
+        tones.append(
+            Tone(
+                frequency_hz=f,
+                order=f / f1x,
+                amplitude=a,
+                snr_db=10 * np.log10(pw[k] / max(floor[k], 1e-300)),
+            )
+        )
+        if len(tones) >= MAX_TONES:
+            break
+    return tuple(tones)

@@ -1,0 +1,147 @@
+"""analyze_record: one record in, a RecordAnalysis out."""
+
+from __future__ import annotations
+
+import numpy as np
+
+from .conditioning import band_velocity_rms, detrend, velocity_mm_s
+from .detect import detect_subharmonic, other_tones
+from .errors import SignalError
+from .forcing import line_near, refine_forcing
+from .growth import band_signal, chart_envelope, estimate_growth, growth_band, not_estimated
+from .quality import quality_flags
+from .results import Forcing, OrderLine, Overall, Quality, RecordAnalysis
+from .severity import ZONE_STANDARD, iso_band, waveform_stats, zone, zone_limits
+from .spectrum import calibrated_spectrum, choose_nperseg, power
+from .validate import normalize_units, validate_samples
+
+
+def _check_speed(value, name: str, fs: float) -> float:
+    try:
+        f = float(value)
+    except (TypeError, ValueError):
+        raise SignalError(
+            f"{name} {value!r} is not a number; give the 1X frequency in Hz (r/min / 60)", field=name
+        ) from None
+    if not np.isfinite(f) or f <= 0:
+        raise SignalError(
+            f"{name} must be a positive frequency in Hz (r/min / 60), got {value!r}", field=name
+        )
+    if 2.5 * f >= fs / 2:
+        raise SignalError(
+            f"{name} {f:g} Hz is too high for a {fs:g} Hz sample rate: 2.5X must lie below "
+            f"Nyquist ({fs / 2:g} Hz); record at least {5.2 * f:.0f} Hz",
+            field=name,
+        )
+    return f
+
+
+def analyze_record(
+    samples: np.ndarray,
+    fs_hz: float,
+    *,
+    units: str = "g",
+    forcing_hz: float | None = None,
+    nominal_hz: float | None = None,
+    machine_group: int = 2,
+    foundation: str = "rigid",
+    pfa: float = 1e-3,
+) -> RecordAnalysis:
+    """Analyse one acceleration record for subharmonic onset.
+
+    Exactly one of ``forcing_hz`` (exact 1X from a tachometer or drive) or ``nominal_hz`` (nominal speed,
+    refined from the spectrum within ±5 %) is required. ``pfa`` is the false-alarm probability of the
+    subharmonic detector per record. Raises SignalError for bad input.
+    """
+    x_raw, fs = validate_samples(samples, fs_hz)
+    units = normalize_units(units)
+    if (forcing_hz is None) == (nominal_hz is None):
+        raise SignalError(
+            "give exactly one of forcing_hz (exact 1X, e.g. from a tachometer) or nominal_hz "
+            "(nominal speed, refined from the spectrum)",
+            field="forcing_hz",
+        )
+    if not (0.0 < float(pfa) < 0.5):
+        raise SignalError(f"pfa {pfa!r} must lie between 0 and 0.5 (e.g. 0.001)", field="pfa")
+    limits = zone_limits(machine_group, foundation)
+    foundation = foundation.strip().lower()
+    speed = _check_speed(
+        forcing_hz if forcing_hz is not None else nominal_hz,
+        "forcing_hz" if forcing_hz is not None else "nominal_hz",
+        fs,
+    )
+
+    n = len(x_raw)
+    nperseg, resolution_ok = choose_nperseg(n, fs, speed)
+    if nperseg == 0:
+        need = 50.0 / speed
+        raise SignalError(
+            f"the record is too short for the requested resolution: {n / fs:.2f} s at 1X = {speed:g} Hz; "
+            f"record at least {need:.1f} s (better {900.0 / speed:.0f} s to separate whirl from 0.5X)"
+        )
+    x = detrend(x_raw)
+    spec = calibrated_spectrum(x, fs, nperseg)
+
+    if forcing_hz is not None:
+        forcing = Forcing(frequency_hz=speed, source="given", nominal_hz=None)
+    else:
+        forcing = refine_forcing(spec, speed)
+    f1 = forcing.frequency_hz
+
+    sub = detect_subharmonic(spec, f1, units, pfa)
+    pw = power(spec)
+    orders = {}
+    for name, mult in (("1X", 1.0), ("2X", 2.0)):
+        hit = line_near(spec, pw, mult * f1)
+        if hit is None:
+            orders[name] = OrderLine(frequency_hz=None, amplitude=None, velocity_mm_s=None)
+        else:
+            orders[name] = OrderLine(
+                frequency_hz=hit[1], amplitude=hit[2], velocity_mm_s=velocity_mm_s(hit[2], hit[1], units)
+            )
+    exclude = [orders["1X"].frequency_hz or f1, orders["2X"].frequency_hz or 2 * f1]
+    if sub.detected:
+        exclude.append(sub.frequency_hz)
+    tones = other_tones(spec, f1, pfa, exclude)
+
+    line_hz = [t.frequency_hz for t in tones] + exclude[:2]
+    if sub.detected:
+        growth, env_t, env = estimate_growth(x, fs, sub.frequency_hz, f1, spec, line_hz)
+    else:
+        f_half = 0.5 * f1
+        y, lo, hi, _ = band_signal(x, fs, f_half, growth_band(f_half, f1, spec.df_hz, line_hz))
+        env_t, env = chart_envelope(y, fs, f_half)
+        growth = not_estimated("no subharmonic detected", (lo, hi))
+
+    band = iso_band(f1, fs)
+    v_rms = band_velocity_rms(spec.freqs_hz, spec.psd, units, band)
+    overall = Overall(
+        velocity_rms_mm_s=v_rms,
+        zone=zone(v_rms, limits),
+        band_hz=band,
+        machine_group=int(machine_group),
+        foundation=foundation,
+        zone_limits_mm_s=limits,
+        standard=ZONE_STANDARD,
+    )
+    wave = waveform_stats(x)
+    flags = quality_flags(x_raw, resolution_ok)
+    quality = Quality(ok=not flags, flags=flags)
+    for a in (env_t, env):
+        a.setflags(write=False)
+    return RecordAnalysis(
+        sample_rate_hz=fs,
+        n_samples=n,
+        units=units,
+        forcing=forcing,
+        subharmonic=sub,
+        growth=growth,
+        overall=overall,
+        orders=orders,
+        waveform=wave,
+        tones=tones,
+        quality=quality,
+        spectrum=spec,
+        envelope_t_s=env_t,
+        envelope=env,
+    )

@@ -1,0 +1,253 @@
+"""Frozen result dataclasses of the record analysis, and their JSON-safe form."""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+ANALYSIS_VERSION = "1.0"
+
+
+def max_hold(x: np.ndarray, y: np.ndarray, max_points: int) -> tuple[np.ndarray, np.ndarray]:
+    """Decimate (x, y) to at most max_points keeping the maximum of each bucket at its own x."""
+    n = len(y)
+    if n <= max_points:
+        return np.asarray(x).copy(), np.asarray(y).copy()
+    edges = np.linspace(0, n, max_points + 1).astype(np.intp)
+    idx = edges[:-1] + np.array(
+        [int(np.argmax(y[lo:hi])) for lo, hi in zip(edges[:-1], edges[1:], strict=True)]
+    )
+    return x[idx], y[idx]
+
+
+def _num(x: float | None) -> float | None:
+    """A JSON-safe float: None for missing, NaN or infinite values."""
+    if x is None:
+        return None
+    x = float(x)
+    return x if math.isfinite(x) else None
+
+
+@dataclass(frozen=True)
+class Spectrum:
+    """Calibrated one-sided amplitude spectrum of the acceleration (Hann-windowed Welch average).
+
+    ``amplitude`` reads the peak amplitude of a sine in the input units; ``psd`` is the density in
+    units²/Hz; ``floor_psd`` the robust local noise floor (mean-equivalent) in the same units.
+    """
+
+    freqs_hz: np.ndarray
+    amplitude: np.ndarray
+    psd: np.ndarray
+    floor_psd: np.ndarray
+    df_hz: float
+    nperseg: int
+    n_segments: int
+    nu_eff: float
+    enbw_bins: float
+
+    def chart(self, max_points: int = 2048) -> tuple[np.ndarray, np.ndarray]:
+        """Decimate for a chart keeping peaks: the maximum of each bucket, at its own frequency."""
+        return max_hold(self.freqs_hz, self.amplitude, max_points)
+
+
+@dataclass(frozen=True)
+class Forcing:
+    frequency_hz: float
+    source: str  # "given" | "refined" | "nominal" (refinement found no line near the nominal speed)
+    nominal_hz: float | None
+
+    def to_dict(self) -> dict:
+        return {
+            "frequency_hz": _num(self.frequency_hz),
+            "source": self.source,
+            "nominal_hz": _num(self.nominal_hz),
+        }
+
+
+@dataclass(frozen=True)
+class Tone:
+    frequency_hz: float
+    order: float
+    amplitude: float
+    snr_db: float
+
+    def to_dict(self) -> dict:
+        return {
+            "frequency_hz": _num(self.frequency_hz),
+            "order": _num(self.order),
+            "amplitude": _num(self.amplitude),
+            "snr_db": _num(self.snr_db),
+        }
+
+
+@dataclass(frozen=True)
+class Subharmonic:
+    detected: bool
+    klass: str  # "half-order" | "sub-synchronous" | "none"
+    frequency_hz: float | None
+    order: float | None
+    amplitude: float | None
+    velocity_mm_s: float | None
+    snr_db: float | None
+    threshold_db: float
+    pfa: float
+    family: dict[str, float | None] = field(default_factory=dict)
+
+    def to_dict(self) -> dict:
+        return {
+            "detected": bool(self.detected),
+            "class": self.klass,
+            "frequency_hz": _num(self.frequency_hz),
+            "order": _num(self.order),
+            "amplitude": _num(self.amplitude),
+            "velocity_mm_s": _num(self.velocity_mm_s),
+            "snr_db": _num(self.snr_db),
+            "threshold_db": _num(self.threshold_db),
+            "pfa": _num(self.pfa),
+            "family": {k: _num(v) for k, v in self.family.items()},
+        }
+
+
+@dataclass(frozen=True)
+class Growth:
+    rate_per_s: float | None
+    ci95_per_s: tuple[float | None, float | None]
+    onset_s: float | None
+    state: str  # "growing" | "steady" | "decaying" | "not-estimated"
+    intercept: float | None
+    fit_window_s: tuple[float | None, float | None]
+    band_hz: tuple[float | None, float | None] = (None, None)
+    n_points: int = 0
+    note: str = ""
+
+    def to_dict(self) -> dict:
+        return {
+            "rate_per_s": _num(self.rate_per_s),
+            "ci95_per_s": [_num(v) for v in self.ci95_per_s],
+            "onset_s": _num(self.onset_s),
+            "state": self.state,
+            "intercept": _num(self.intercept),
+            "fit_window_s": [_num(v) for v in self.fit_window_s],
+            "band_hz": [_num(v) for v in self.band_hz],
+            "n_points": int(self.n_points),
+            "note": self.note,
+        }
+
+
+@dataclass(frozen=True)
+class Overall:
+    velocity_rms_mm_s: float
+    zone: str
+    band_hz: tuple[float, float]
+    machine_group: int
+    foundation: str
+    zone_limits_mm_s: tuple[float, float, float]
+    standard: str
+
+    def to_dict(self) -> dict:
+        return {
+            "velocity_rms_mm_s": _num(self.velocity_rms_mm_s),
+            "zone": self.zone,
+            "band_hz": [_num(v) for v in self.band_hz],
+            "machine_group": int(self.machine_group),
+            "foundation": self.foundation,
+            "zone_limits_mm_s": [_num(v) for v in self.zone_limits_mm_s],
+            "standard": self.standard,
+        }
+
+
+@dataclass(frozen=True)
+class OrderLine:
+    frequency_hz: float | None
+    amplitude: float | None
+    velocity_mm_s: float | None
+
+    def to_dict(self) -> dict:
+        return {
+            "frequency_hz": _num(self.frequency_hz),
+            "amplitude": _num(self.amplitude),
+            "velocity_mm_s": _num(self.velocity_mm_s),
+        }
+
+
+@dataclass(frozen=True)
+class Waveform:
+    rms: float
+    peak: float
+    crest_factor: float | None
+    kurtosis: float | None  # Pearson kurtosis: 3 for Gaussian noise, 1.5 for a sine
+
+    def to_dict(self) -> dict:
+        return {
+            "rms": _num(self.rms),
+            "peak": _num(self.peak),
+            "crest_factor": _num(self.crest_factor),
+            "kurtosis": _num(self.kurtosis),
+        }
+
+
+@dataclass(frozen=True)
+class Quality:
+    ok: bool
+    flags: tuple[str, ...]
+
+    def to_dict(self) -> dict:
+        return {"ok": bool(self.ok), "flags": list(self.flags)}
+
+
+@dataclass(frozen=True)
+class RecordAnalysis:
+    """Everything ``analyze_record`` finds in one record."""
+
+    sample_rate_hz: float
+    n_samples: int
+    units: str
+    forcing: Forcing
+    subharmonic: Subharmonic
+    growth: Growth
+    overall: Overall
+    orders: dict[str, OrderLine]
+    waveform: Waveform
+    tones: tuple[Tone, ...]
+    quality: Quality
+    spectrum: Spectrum
+    envelope_t_s: np.ndarray
+    envelope: np.ndarray
+    version: str = ANALYSIS_VERSION
+
+    @property
+    def duration_s(self) -> float:
+        return self.n_samples / self.sample_rate_hz
+
+    def chart_spectrum(self, max_points: int = 2048) -> tuple[np.ndarray, np.ndarray]:
+        """(freqs_hz, amplitude) decimated for charts with max-hold per bucket, so peaks survive."""
+        return self.spectrum.chart(max_points)
+
+    def envelope_chart(self, max_points: int = 2000) -> tuple[np.ndarray, np.ndarray]:
+        """(t_s, envelope) of the subharmonic band (input units, peak), max-hold decimated."""
+        return max_hold(self.envelope_t_s, self.envelope, max_points)
+
+    def to_dict(self) -> dict:
+        return {
+            "version": self.version,
+            "sample_rate_hz": _num(self.sample_rate_hz),
+            "n_samples": int(self.n_samples),
+            "duration_s": _num(self.duration_s),
+            "units": self.units,
+            "forcing": self.forcing.to_dict(),
+            "subharmonic": self.subharmonic.to_dict(),
+            "growth": self.growth.to_dict(),
+            "overall": self.overall.to_dict(),
+            "orders": {k: v.to_dict() for k, v in self.orders.items()},
+            "waveform": self.waveform.to_dict(),
+            "tones": [t.to_dict() for t in self.tones],
+            "quality": self.quality.to_dict(),
+            "spectrum_summary": {
+                "df_hz": _num(self.spectrum.df_hz),
+                "n_segments": int(self.spectrum.n_segments),
+                "nu_eff": _num(self.spectrum.nu_eff),
+            },
+        }

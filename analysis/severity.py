@@ -1,0 +1,64 @@
+"""Severity: overall velocity RMS, ISO 20816 evaluation zone, waveform statistics of the acceleration."""
+
+from __future__ import annotations
+
+import numpy as np
+
+from .errors import SignalError
+from .results import Waveform
+
+ZONE_STANDARD = "ISO 10816-3:2009 / ISO 20816-3:2022 Annex A (values from memory; check against the standard)"
+
+#: Zone boundaries A/B, B/C, C/D of broad-band velocity RMS in mm/s, by machine group and support.
+#: Values from memory (ISO 10816-3:2009, carried over in ISO 20816-3:2022 Annex A); verify against the
+#: purchased standard before relying on them.
+ZONE_LIMITS_MM_S: dict[tuple[int, str], tuple[float, float, float]] = {
+    (1, "rigid"): (2.3, 4.5, 7.1),
+    (1, "flexible"): (3.5, 7.1, 11.0),
+    (2, "rigid"): (1.4, 2.8, 4.5),
+    (2, "flexible"): (2.3, 4.5, 7.1),
+}
+
+
+def zone_limits(machine_group: int, foundation: str) -> tuple[float, float, float]:
+    key = (int(machine_group), str(foundation).strip().lower())
+    if key[1] not in ("rigid", "flexible"):
+        raise SignalError(f"foundation {foundation!r} is unknown; use rigid or flexible", field="foundation")
+    if key not in ZONE_LIMITS_MM_S:
+        raise SignalError(
+            f"machine group {machine_group!r} is unknown; use 1 (large machines, 300 kW-50 MW) "
+            "or 2 (medium machines, 15-300 kW)",
+            field="machine_group",
+        )
+    return ZONE_LIMITS_MM_S[key]
+
+
+def zone(velocity_rms_mm_s: float, limits: tuple[float, float, float]) -> str:
+    """Evaluation zone: A below A/B, B up to B/C, C up to C/D, D above (a value on a boundary is the
+    higher zone)."""
+    ab, bc, cd = limits
+    if velocity_rms_mm_s < ab:
+        return "A"
+    if velocity_rms_mm_s < bc:
+        return "B"
+    if velocity_rms_mm_s < cd:
+        return "C"
+    return "D"
+
+
+def iso_band(f1x_hz: float, fs_hz: float) -> tuple[float, float]:
+    """Measurement band: 10-1000 Hz, or 2-1000 Hz for machines below 600 r/min (from memory, ISO 10816-3);
+    the top is cut to 0.45·fs when the record cannot reach 1000 Hz."""
+    lo = 2.0 if f1x_hz * 60.0 < 600.0 else 10.0
+    return lo, min(1000.0, 0.45 * fs_hz)
+
+
+def waveform_stats(x: np.ndarray) -> Waveform:
+    """RMS, peak, crest factor and Pearson kurtosis of a detrended acceleration record."""
+    ms = float(np.dot(x, x)) / len(x)
+    rms = float(np.sqrt(ms))
+    peak = float(np.max(np.abs(x)))
+    if rms <= 0.0:
+        return Waveform(rms=0.0, peak=peak, crest_factor=None, kurtosis=None)
+    kurt = float(np.mean((x * x) ** 2)) / (ms * ms)
+    return Waveform(rms=rms, peak=peak, crest_factor=peak / rms, kurtosis=kurt)
