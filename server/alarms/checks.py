@@ -1,0 +1,110 @@
+"""Pure checks run before and beside the rules: data quality, speed, trend across records.
+
+* :func:`data_quality_problem` says why a record must not be judged as machine behaviour (sensor or
+  cable fault flags from the analysis, or a speed unlike the point's usual or the asset's nominal).
+* :func:`trend_and_forecast` fits ln(amplitude) against time in days with Theil-Sen (robust to a
+  stray reading) and forecasts the time to a limit: dB/day = 20 / ln(10) x slope.
+"""
+
+from __future__ import annotations
+
+import math
+import statistics
+
+# Flags of the measurement chain that make a record unfit for machine alarms. Other flags (for
+# example "too-short-for-resolution") are shown but do not block the rules.
+BLOCKING_FLAGS = ("flat-line", "clipping", "dc-jump", "impulsive")
+FLAG_WORDS = {
+    "flat-line": "flat line (sensor or cable fault)",
+    "clipping": "clipping (input range exceeded)",
+    "dc-jump": "DC offset jump (sensor bias fault)",
+    "impulsive": "excessive kurtosis from impacts (cable or connector)",
+}
+DB_PER_NEPER = 20.0 / math.log(10.0)  # 8.6859 dB per unit of ln(amplitude)
+NO_FORECAST_DAYS = 9999.0  # "not growing": reads as far beyond any time-to-limit level
+SPEED_HISTORY = 20
+MIN_USUAL_SPEEDS = 3
+
+
+def data_quality_problem(
+    result: dict,
+    *,
+    usual_speeds_hz: list[float],
+    nominal_forcing_hz: float | None,
+    speed_tolerance: float = 0.10,
+    nominal_tolerance: float = 0.25,
+) -> str | None:
+    """A sentence saying why the record is a data-quality problem, or ``None`` when it is fit."""
+    quality = result.get("quality") or {}
+    flags = [str(f) for f in quality.get("flags") or []]
+    bad = [f for f in flags if f in BLOCKING_FLAGS]
+    if bad:
+        return "bad data: " + ", ".join(FLAG_WORDS.get(f, f) for f in bad)
+    if quality.get("ok") is False:
+        return "bad data: " + (", ".join(flags) or "the analysis marked the record unfit")
+    speed = (result.get("forcing") or {}).get("frequency_hz")
+    if not isinstance(speed, (int, float)) or not math.isfinite(speed) or speed <= 0:
+        return None
+    if len(usual_speeds_hz) >= MIN_USUAL_SPEEDS:
+        usual = statistics.median(usual_speeds_hz)
+        if usual > 0 and abs(speed - usual) > speed_tolerance * usual:
+            return (
+                f"different speed: forcing {speed:.2f} Hz against the point's usual {usual:.2f} Hz "
+                f"(tolerance {speed_tolerance:.0%})"
+            )
+    if nominal_forcing_hz and nominal_forcing_hz > 0:
+        if abs(speed - nominal_forcing_hz) > nominal_tolerance * nominal_forcing_hz:
+            return (
+                f"different speed: forcing {speed:.2f} Hz against the asset's nominal "
+                f"{nominal_forcing_hz:.2f} Hz (tolerance {nominal_tolerance:.0%})"
+            )
+    return None
+
+
+def remember_speed(speeds: list[float], speed_hz) -> list[float]:
+    if isinstance(speed_hz, (int, float)) and math.isfinite(speed_hz) and speed_hz > 0:
+        speeds = [*speeds, float(speed_hz)]
+    return speeds[-SPEED_HISTORY:]
+
+
+def trend_and_forecast(
+    history: list[list[float]],
+    *,
+    limit: float | None,
+    min_points: int = 4,
+    min_span_days: float = 1.0 / 24.0,
+) -> tuple[float | None, float | None]:
+    """``(dB/day, days to limit)`` from ``[[epoch_s, amplitude], ...]`` (oldest first).
+
+    The fit uses the run of detected (positive) amplitudes that ends at the newest reading. When the
+    newest reading has no half-order line the trend is 0 dB/day and there is no forecast. ``None``
+    means too few readings to say anything.
+    """
+    if not history:
+        return None, None
+    run: list[list[float]] = []
+    for ts, amp in reversed(history):
+        if not (amp and amp > 0):
+            break
+        run.append([ts, amp])
+    if not run:
+        return 0.0, NO_FORECAST_DAYS
+    run.reverse()
+    if len(run) < min_points:
+        return None, None
+    days = [(ts - run[0][0]) / 86400.0 for ts, _ in run]
+    if days[-1] - days[0] < min_span_days:
+        return None, None
+    from scipy.stats import theilslopes
+
+    logs = [math.log(a) for _, a in run]
+    slope, intercept, _lo, _hi = theilslopes(logs, days)
+    db_per_day = DB_PER_NEPER * float(slope)
+    if limit is None or limit <= 0:
+        return db_per_day, None
+    now_log = intercept + slope * days[-1]
+    if now_log >= math.log(limit):
+        return db_per_day, 0.0
+    if slope <= 0:
+        return db_per_day, NO_FORECAST_DAYS
+    return db_per_day, min(NO_FORECAST_DAYS, (math.log(limit) - now_log) / slope)

@@ -1,0 +1,220 @@
+"""Evaluate a stored analysis result against the point's rules, inside the worker's transaction.
+
+Order of work for one record: data-quality check (a bad or off-speed record becomes a
+``data-quality`` event and touches no machine state) -> metrics from the result and the point's
+history (trend, forecast, threshold margin) -> one state step per rule -> an immutable event per
+transition -> outbox rows for the subscribers, all in the caller's session (no commit here).
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import json
+import math
+
+from sqlalchemy import select
+from sqlalchemy.orm import Session
+
+from server.storage.tables import Area, Asset, Point, utcnow
+
+from . import checks, margin
+from .engine import Reading, step
+from .notify import queue_for_events
+from .rules import LEVEL_RANK, RuleSpec, default_rules, result_metrics
+from .tables import AlarmEvent, AlarmPointStatus, AlarmRule, AlarmState
+
+HISTORY_LEN = 30
+
+
+def rule_spec(row: AlarmRule) -> RuleSpec:
+    return RuleSpec(
+        metric=row.metric, alert=row.alert_level, danger=row.danger_level, k=row.persist_k, n=row.persist_n,
+        hysteresis=row.hysteresis, direction=row.direction, zone_based=row.zone_based, enabled=row.enabled,
+        id=row.id,
+    )
+
+
+def ensure_default_rules(session: Session, point: Point) -> list[AlarmRule]:
+    """Create the default rules of a point that has none (the server may call this on point creation)."""
+    rows = list(session.scalars(select(AlarmRule).where(AlarmRule.point_id == point.id)))
+    if rows:
+        return rows
+    asset = point.asset
+    for spec in default_rules(group=asset.machine_group or 2, support=asset.foundation or "rigid"):
+        rows.append(
+            AlarmRule(
+                point_id=point.id, metric=spec.metric, alert_level=spec.alert, danger_level=spec.danger,
+                direction=spec.direction, zone_based=spec.zone_based, persist_k=spec.k, persist_n=spec.n,
+                hysteresis=spec.hysteresis, enabled=True, is_default=True, updated_by="defaults",
+            )
+        )
+    session.add_all(rows)
+    session.flush()
+    return rows
+
+
+def effective_rules(session: Session, point: Point) -> list[AlarmRule]:
+    """Point rules, with asset rules for any metric the point does not set itself."""
+    point_rules = ensure_default_rules(session, point)
+    asset_rules = session.scalars(
+        select(AlarmRule).where(AlarmRule.asset_id == point.asset_id, AlarmRule.point_id.is_(None))
+    )
+    by_metric = {r.metric: r for r in asset_rules}
+    # A point's own rule that an engineer edited wins; a default point rule yields to an asset rule.
+    for r in point_rules:
+        if not r.is_default or r.metric not in by_metric:
+            by_metric[r.metric] = r
+    return list(by_metric.values())
+
+
+def _result_data(result) -> dict:
+    data = getattr(result, "data", result)
+    return json.loads(data) if isinstance(data, str) else dict(data)
+
+
+def _status(session: Session, point_id: int) -> AlarmPointStatus:
+    status = session.get(AlarmPointStatus, point_id)
+    if status is None:
+        status = AlarmPointStatus(point_id=point_id, speeds_hz=[], history=[], last_metrics={})
+        session.add(status)
+    return status
+
+
+def _state(session: Session, point: Point, metric: str) -> AlarmState:
+    state = session.scalars(
+        select(AlarmState).where(AlarmState.point_id == point.id, AlarmState.metric == metric)
+    ).first()
+    if state is None:
+        state = AlarmState(point_id=point.id, asset_id=point.asset_id, metric=metric, level="normal",
+                           window=[])
+        session.add(state)
+    return state
+
+
+def _where(point: Point) -> dict:
+    asset: Asset = point.asset
+    area: Area = asset.area
+    return {
+        "point_id": point.id, "point": point.name, "asset_id": asset.id, "asset": asset.name,
+        "area_id": area.id, "area": area.name, "site_id": area.site_id, "site": area.site.name,
+    }
+
+
+def _measured_ts(record, result) -> float:
+    ts = getattr(result, "measured_ts", None)
+    if ts is not None:
+        return float(ts)
+    measured = getattr(record, "measured_at", None) or utcnow()
+    return measured.timestamp()
+
+
+def evaluate_result(
+    session: Session, record, result, *, settings=None, now: dt.datetime | None = None
+) -> list:
+    """Run the rules for ``record``'s point on ``result``; returns the new :class:`AlarmEvent` rows."""
+    now = now or utcnow()
+    point = session.get(Point, record.point_id)
+    data = _result_data(result)
+    where = _where(point)
+    status = _status(session, point.id)
+    asset = point.asset
+    nominal = (asset.nominal_speed_hz or 0) * (asset.forcing_multiplier or 1.0) or None
+    common = {
+        "point_id": point.id, "asset_id": asset.id, "area_id": where["area_id"], "site_id": where["site_id"],
+        "record_id": record.id, "result_id": getattr(result, "id", None), "created_at": now,
+    }
+    problem = checks.data_quality_problem(
+        data, usual_speeds_hz=list(status.speeds_hz or []), nominal_forcing_hz=nominal,
+        speed_tolerance=getattr(settings, "alarm_speed_tolerance", 0.10),
+        nominal_tolerance=getattr(settings, "alarm_nominal_speed_tolerance", 0.25),
+    )
+    if problem:
+        status.data_quality_open, status.data_quality_reason, status.updated_at = True, problem, now
+        event = AlarmEvent(kind="data-quality", summary=problem,
+                           details={"where": where, "flags": (data.get("quality") or {}).get("flags", [])},
+                           **common)
+        session.add(event)
+        session.flush()
+        queue_for_events(session, [event], now=now)
+        return [event]
+
+    rules = [r for r in effective_rules(session, point) if r.enabled]
+    metrics = result_metrics(data)
+    previous = dict(status.last_metrics or {})
+    ts = _measured_ts(record, result)
+    history = [*(status.history or []), [ts, metrics["half_order_velocity"] or 0.0]][-HISTORY_LEN:]
+    danger_of = {r.metric: r.danger_level for r in rules}
+    metrics["trend_db_per_day"], metrics["time_to_limit_days"] = checks.trend_and_forecast(
+        history, limit=danger_of.get("half_order_velocity")
+    )
+    metrics["threshold_margin"], margin_reason = margin.threshold_margin(session, point, data)
+    status.history = history
+    status.speeds_hz = checks.remember_speed(list(status.speeds_hz or []), (data.get("forcing") or {})
+                                             .get("frequency_hz"))
+    status.last_metrics = {k: v for k, v in metrics.items() if v is None or math.isfinite(v)}
+    status.last_record_id, status.data_quality_open, status.updated_at = record.id, False, now
+
+    events = []
+    for row in rules:
+        spec = rule_spec(row)
+        state = _state(session, point, row.metric)
+        state.rule_id = row.id
+        value = metrics.get(row.metric)
+        levels = spec.levels(data)
+        if value is None or levels is None:
+            state.inactive_reason = margin_reason if row.metric == "threshold_margin" else "no reading"
+            continue
+        state.inactive_reason = None
+        window = [Reading.from_list(item) for item in state.window or []]
+        new_level, window, tr = step(spec, state.level, window, Reading(value, *levels))
+        state.window = [r.to_list() for r in window]
+        state.last_value, state.last_record_id, state.updated_at = value, record.id, now
+        if tr is None:
+            continue
+        summary = f"{row.metric}: {tr.from_level} -> {tr.to_level} at {value:.4g}"
+        event = AlarmEvent(
+            kind="transition", metric=row.metric, rule_id=row.id, from_level=tr.from_level,
+            to_level=tr.to_level, value=value, threshold=tr.level_value, summary=summary,
+            details={"where": where, "metrics": status.last_metrics, "previous": previous,
+                     "levels": list(levels), "finding": _finding(data), "direction": spec.direction,
+                     "half_order_danger": danger_of.get("half_order_velocity")},
+            **common,
+        )
+        session.add(event)
+        _apply_transition(state, new_level, now)
+        events.append((event, state))
+    session.flush()
+    for event, state in events:
+        state.last_event_id = event.id
+    queue_for_events(session, [e for e, s in events if not _shelved(s, now)], now=now)
+    return [e for e, _ in events]
+
+
+def _apply_transition(state: AlarmState, new_level: str, now: dt.datetime) -> None:
+    """Move the state; a level above the acknowledged one re-alerts (the acknowledgement lapses)."""
+    state.level, state.since = new_level, now
+    if new_level == "normal" or (state.acked_level and LEVEL_RANK[new_level] > LEVEL_RANK[state.acked_level]):
+        state.acked_level = state.acked_by = state.acked_at = state.ack_comment = None
+    if new_level == "normal" or (
+        state.shelved_level and LEVEL_RANK[new_level] > LEVEL_RANK[state.shelved_level]
+    ):
+        state.shelved_until = state.shelve_reason = state.shelved_by = state.shelved_level = None
+
+
+def _shelved(state: AlarmState, now: dt.datetime) -> bool:
+    return state.shelved_until is not None and state.shelved_until > now
+
+
+def _finding(data: dict) -> dict:
+    """The parts of the result an email needs to describe the finding in the trade's words."""
+    sub = data.get("subharmonic") or {}
+    return {
+        "subharmonic": {k: sub.get(k) for k in ("detected", "class", "frequency_hz", "order", "amplitude",
+                                                 "velocity_mm_s", "snr_db", "family")},
+        "growth": data.get("growth") or {},
+        "overall": {k: (data.get("overall") or {}).get(k) for k in ("velocity_rms_mm_s", "zone",
+                                                                     "zone_limits_mm_s")},
+        "forcing_hz": (data.get("forcing") or {}).get("frequency_hz"),
+        "orders": data.get("orders") or {},
+        "units": data.get("units"),
+    }

@@ -1,0 +1,199 @@
+"""The outbox sender: claim with a lease, render, deliver over SMTP, record sent/failed.
+
+Several senders may run at once (the worker's loop and ``halfwatch mailer``): a row is claimed in a
+short write transaction (``status='sending'`` with ``lease_until``), delivered outside any
+transaction, then marked. A sender that dies mid-send leaves the row claimed; once the lease runs
+out another sender takes it again. The SMTP exchange itself cannot be made exactly-once, so the row
+is marked sent straight after the server's 250 and every copy carries the same ``Message-ID``.
+Retries back off exponentially (``mail_backoff_s`` x 2^(attempt-1), capped); after
+``mail_max_attempts`` or a permanent 5xx refusal the row is ``failed`` with the error kept.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import logging
+import os
+import smtplib
+import socket
+import ssl
+import threading
+import uuid
+from email.message import EmailMessage
+from email.utils import formatdate
+
+from sqlalchemy import or_, select, update
+
+from server.storage.tables import utcnow
+
+from . import render
+from .tables import AlarmEvent, OutboxMessage
+
+log = logging.getLogger(__name__)
+
+
+def sender_id() -> str:
+    return f"{socket.gethostname()}:{os.getpid()}:{uuid.uuid4().hex[:8]}"
+
+
+def claim(db, *, me: str, lease_s: float, batch: int = 50, now: dt.datetime | None = None) -> list[int]:
+    """Claim up to ``batch`` due rows for ``me``; returns their ids."""
+    now = now or utcnow()
+    due = or_(
+        (OutboxMessage.status == "pending") & (OutboxMessage.next_attempt_at <= now),
+        (OutboxMessage.status == "sending") & (OutboxMessage.lease_until < now),
+    )
+    pick = select(OutboxMessage.id).where(due).order_by(OutboxMessage.id).limit(batch)
+    if db.dialect == "postgresql":
+        pick = pick.with_for_update(skip_locked=True)
+    stmt = (
+        update(OutboxMessage)
+        .where(OutboxMessage.id.in_(pick.scalar_subquery()), due)
+        .values(status="sending", claimed_by=me, lease_until=now + dt.timedelta(seconds=lease_s),
+                attempts=OutboxMessage.attempts + 1)
+        .returning(OutboxMessage.id)
+    )
+    with db.unit_of_work() as s:
+        return sorted(s.scalars(stmt).all())
+
+
+def _event_snapshot(e: AlarmEvent) -> dict:
+    return {"kind": e.kind, "metric": e.metric, "from_level": e.from_level, "to_level": e.to_level,
+            "value": e.value, "threshold": e.threshold, "record_id": e.record_id, "summary": e.summary,
+            "details": e.details or {}, "created_at": e.created_at.strftime("%Y-%m-%d %H:%M UTC")}
+
+
+def compose(session, row: OutboxMessage, settings) -> tuple[str, str, str]:
+    base = settings.public_base_url
+    if row.kind == "alarm":
+        ids = row.payload.get("event_ids") or [row.event_id]
+        events = {e.id: e for e in session.scalars(select(AlarmEvent).where(AlarmEvent.id.in_(ids)))}
+        return render.alarm_email([_event_snapshot(events[i]) for i in ids if i in events], base_url=base)
+    if row.kind == "digest":
+        p = row.payload
+        return render.digest_email(p["rows"], scope_name=p["scope_name"], local_date=p["local_date"],
+                                   base_url=base, changes_24h=p.get("changes_24h", 0))
+    return render.smtp_test_email(base_url=base)
+
+
+def build_message(row_id: int, recipient: str, message_id: str, subject: str, text: str, html: str,
+                  settings) -> EmailMessage:
+    msg = EmailMessage()
+    msg["From"] = settings.smtp_from
+    msg["To"] = recipient
+    msg["Subject"] = subject
+    msg["Date"] = formatdate(localtime=False, usegmt=True)
+    msg["Message-ID"] = message_id
+    msg["X-Halfwatch-Outbox"] = str(row_id)
+    msg.set_content(text)
+    msg.add_alternative(html, subtype="html")
+    return msg
+
+
+def connect(settings) -> smtplib.SMTP:
+    """An authenticated SMTP connection as the settings describe."""
+    timeout = settings.smtp_timeout_s
+    if settings.smtp_security == "ssl":
+        smtp: smtplib.SMTP = smtplib.SMTP_SSL(settings.smtp_host, settings.smtp_port, timeout=timeout,
+                                              context=ssl.create_default_context())
+    else:
+        smtp = smtplib.SMTP(settings.smtp_host, settings.smtp_port, timeout=timeout)
+        if settings.smtp_security == "starttls":
+            smtp.starttls(context=ssl.create_default_context())
+    if settings.smtp_user:
+        smtp.login(settings.smtp_user, settings.smtp_password.get_secret_value())
+    return smtp
+
+
+def _backoff_s(settings, attempts: int) -> float:
+    return min(settings.mail_backoff_max_s, settings.mail_backoff_s * 2 ** max(0, attempts - 1))
+
+
+def _mark(db, row_id: int, me: str, **values) -> None:
+    with db.unit_of_work() as s:
+        s.execute(update(OutboxMessage).where(OutboxMessage.id == row_id, OutboxMessage.claimed_by == me)
+                  .values(lease_until=None, **values))
+
+
+def _retry(db, row_id: int, me: str, attempts: int, error: str, settings, *, permanent: bool) -> None:
+    now = utcnow()
+    if permanent or attempts >= settings.mail_max_attempts:
+        _mark(db, row_id, me, status="failed", last_error=error[:2000])
+    else:
+        _mark(db, row_id, me, status="pending", last_error=error[:2000],
+              next_attempt_at=now + dt.timedelta(seconds=_backoff_s(settings, attempts)))
+
+
+def send_claimed(db, settings, ids: list[int], *, me: str) -> int:
+    """Deliver claimed rows over one SMTP connection; returns how many were sent."""
+    prepared = []
+    with db.unit_of_work() as s:
+        for row in s.scalars(select(OutboxMessage).where(OutboxMessage.id.in_(ids))):
+            subject, text, html = compose(s, row, settings)
+            row.subject, row.body_text, row.body_html = subject, text, html
+            prepared.append((row.id, row.recipient, row.message_id, row.attempts, subject, text, html))
+    if not prepared:
+        return 0
+    try:
+        smtp = connect(settings)
+    except (OSError, smtplib.SMTPException) as exc:
+        for row_id, _r, _m, attempts, *_ in prepared:
+            _retry(db, row_id, me, attempts, f"SMTP connect: {exc}", settings, permanent=False)
+        log.warning("SMTP server %s:%s unreachable: %s", settings.smtp_host, settings.smtp_port, exc)
+        return 0
+    sent = 0
+    try:
+        for row_id, recipient, message_id, attempts, subject, text, html in prepared:
+            msg = build_message(row_id, recipient, message_id, subject, text, html, settings)
+            try:
+                smtp.send_message(msg, to_addrs=[recipient])
+            except smtplib.SMTPRecipientsRefused as exc:
+                _retry(db, row_id, me, attempts, f"refused: {exc.recipients}", settings, permanent=True)
+                continue
+            except smtplib.SMTPResponseException as exc:
+                permanent = 500 <= exc.smtp_code < 600
+                _retry(db, row_id, me, attempts, f"SMTP {exc.smtp_code}: {exc.smtp_error!r}", settings,
+                       permanent=permanent)
+                continue
+            except (OSError, smtplib.SMTPException) as exc:
+                _retry(db, row_id, me, attempts, f"SMTP: {exc}", settings, permanent=False)
+                break  # the connection is gone; the rest stay claimed until their lease ends
+            _mark(db, row_id, me, status="sent", sent_at=utcnow(), last_error=None)
+            sent += 1
+    finally:
+        try:
+            smtp.quit()
+        except (OSError, smtplib.SMTPException):
+            pass
+    return sent
+
+
+def run_mailer_once(db, settings, *, me: str | None = None, now: dt.datetime | None = None) -> int:
+    """Queue due digests, then claim and send what is due. Returns the number of emails sent."""
+    if not settings.smtp_host:
+        return 0
+    from .digest import queue_due_digests
+
+    queue_due_digests(db, now=now)
+    me = me or sender_id()
+    total = 0
+    while True:
+        ids = claim(db, me=me, lease_s=settings.mail_lease_s, now=now)
+        if not ids:
+            return total
+        sent = send_claimed(db, settings, ids, me=me)
+        total += sent
+        if sent < len(ids):
+            return total  # something failed: back off until the next poll
+
+
+def run_mailer_forever(db, settings, stop: threading.Event | None = None) -> None:
+    stop = stop or threading.Event()
+    me = sender_id()
+    log.info("mailer %s started (SMTP %s:%s)", me, settings.smtp_host, settings.smtp_port)
+    while not stop.is_set():
+        try:
+            run_mailer_once(db, settings, me=me)
+        except Exception:  # keep the loop alive; the next poll retries
+            log.exception("mailer pass failed")
+        stop.wait(settings.mail_poll_s)
