@@ -1,0 +1,275 @@
+"""Readers: WAV, CSV and UFF dataset 58 -> Recording. The only module of ``analysis`` that touches files."""
+
+from __future__ import annotations
+
+import csv
+import io
+import os
+import tempfile
+import wave
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from .errors import SignalError
+from .validate import normalize_units, validate_sample_rate, validate_samples
+
+#: Relative spread of time steps accepted in a CSV time column (common practice: logger clocks jitter).
+TIME_STEP_TOLERANCE = 1e-3
+
+
+@dataclass(frozen=True)
+class Recording:
+    samples: np.ndarray
+    fs_hz: float
+    units: str
+    meta: dict = field(default_factory=dict)
+
+
+def _as_bytes(data: bytes | str | os.PathLike) -> bytes:
+    if isinstance(data, bytes | bytearray | memoryview):
+        return bytes(data)
+    try:
+        return Path(data).read_bytes()
+    except OSError as exc:
+        raise SignalError(f"cannot read {data}: {exc.strerror}; check the path", field="file") from None
+
+
+def _finish(samples, fs, units, meta) -> Recording:
+    x, fs = validate_samples(samples, fs)
+    return Recording(samples=x, fs_hz=fs, units=normalize_units(units), meta=meta)
+
+
+def read_wav(
+    data: bytes | str | os.PathLike, *, units: str | None = None, full_scale: float = 1.0
+) -> Recording:
+    """WAV, PCM 8/16/24/32-bit or IEEE float; sample rate from the header, first channel.
+
+    PCM values are scaled to ±1 at full scale and multiplied by ``full_scale`` (the sensor's acceleration at
+    digital full scale, in ``units``); float files are taken as acceleration values.
+    """
+    raw = _as_bytes(data)
+    if not raw:
+        raise SignalError("the WAV file is empty; upload a recorded file", field="file")
+    from scipy.io import wavfile
+
+    try:
+        fs, y = wavfile.read(io.BytesIO(raw))
+    except (ValueError, EOFError, wave.Error) as exc:
+        raise SignalError(
+            f"not a readable WAV file ({exc}); export PCM or float WAV, or use CSV", field="file"
+        ) from None
+    y = np.asarray(y)
+    if y.ndim == 2:
+        y = y[:, 0]
+    if y.dtype.kind in "iu":
+        if y.dtype == np.uint8:
+            y = (y.astype(np.float64) - 128.0) / 128.0
+        else:
+            y = y.astype(np.float64) / float(-np.iinfo(y.dtype).min)
+        y = y * float(full_scale)
+    return _finish(y, fs, units or "g", {"format": "wav", "sample_rate_source": "header"})
+
+
+def _parse_float(cell: str, line: int) -> float:
+    try:
+        return float(cell)
+    except ValueError:
+        raise SignalError(
+            f"CSV line {line}: {cell!r} is not a number; keep one header line at most and numbers below it",
+            field="file",
+        ) from None
+
+
+def read_csv(
+    data: bytes | str | os.PathLike, *, units: str | None = None, sample_rate_hz: float | None = None
+) -> Recording:
+    """CSV with one acceleration column, or time [s] + acceleration; an optional header line.
+
+    With a time column the sample rate comes from the (even) time steps; otherwise give ``sample_rate_hz``.
+    A header naming units in brackets or after an underscore ("accel [m/s^2]", "acc_g") sets the units when
+    ``units`` is not given.
+    """
+    raw = _as_bytes(data)
+    text = raw.decode("utf-8-sig", errors="replace").strip()
+    if not text:
+        raise SignalError("the CSV file is empty; upload at least a few seconds of samples", field="file")
+    sample = text[:4096]
+    try:
+        dialect = csv.Sniffer().sniff(sample, delimiters=",;\t ")
+    except csv.Error:
+        dialect = csv.excel
+    rows = [r for r in csv.reader(io.StringIO(text), dialect) if any(c.strip() for c in r)]
+    header: list[str] | None = None
+    try:
+        float(rows[0][0])
+    except ValueError:
+        header, rows = rows[0], rows[1:]
+    if not rows:
+        raise SignalError("the CSV file has a header but no samples", field="file")
+    ncol = len([c for c in rows[0] if c.strip()])
+    if ncol not in (1, 2):
+        raise SignalError(
+            f"the CSV has {ncol} columns; give one (acceleration) or two (time, acceleration)", field="file"
+        )
+    values = np.empty((len(rows), ncol))
+    for i, r in enumerate(rows):
+        cells = [c for c in r if c.strip()]
+        if len(cells) != ncol:
+            raise SignalError(
+                f"CSV line {i + 1 + (header is not None)} has {len(cells)} values, expected {ncol}",
+                field="file",
+            )
+        for j, c in enumerate(cells):
+            values[i, j] = _parse_float(c, i + 1 + (header is not None))
+    if units is None and header:
+        units = _units_from_header(header[-1])
+    meta = {"format": "csv"}
+    if ncol == 2:
+        t = values[:, 0]
+        if not np.all(np.isfinite(t)):
+            raise SignalError("the CSV time column has non-finite values; fix the time stamps", field="file")
+        steps = np.diff(t)
+        if len(steps) == 0 or np.any(steps <= 0):
+            raise SignalError(
+                "CSV time stamps do not increase; sort the rows or fix the time column", field="file"
+            )
+        dt = float(np.median(steps))
+        if np.max(np.abs(steps - dt)) > TIME_STEP_TOLERANCE * dt:
+            raise SignalError(
+                f"uneven time steps in the CSV (from {steps.min():.6g} s to {steps.max():.6g} s); "
+                "resample to a constant rate before upload",
+                field="file",
+            )
+        fs = 1.0 / dt
+        if sample_rate_hz is not None and abs(validate_sample_rate(sample_rate_hz) - fs) > 1e-3 * fs:
+            raise SignalError(
+                f"the given sample rate {sample_rate_hz} Hz disagrees with the CSV time column "
+                f"({fs:.6g} Hz); drop one of them",
+                field="sample_rate_hz",
+            )
+        meta["sample_rate_source"] = "time column"
+        y = values[:, 1]
+    else:
+        if sample_rate_hz is None:
+            raise SignalError(
+                "a one-column CSV has no time axis; give the sample rate (--sample-rate HZ) "
+                "or add a time column",
+                field="sample_rate_hz",
+            )
+        fs = sample_rate_hz
+        meta["sample_rate_source"] = "given"
+        y = values[:, 0]
+    return _finish(y, fs, units or "g", meta)
+
+
+def _units_from_header(name: str) -> str | None:
+    name = name.strip().lower()
+    for open_, close in (("[", "]"), ("(", ")")):
+        if open_ in name and close in name:
+            inner = name[name.index(open_) + 1 : name.index(close)]
+            try:
+                return normalize_units(inner)
+            except SignalError:
+                return None
+    if "_" in name:
+        try:
+            return normalize_units(name.rsplit("_", 1)[1])
+        except SignalError:
+            return None
+    return None
+
+
+def read_uff58(data: bytes | str | os.PathLike, *, units: str | None = None) -> Recording:
+    """The first time-response record (function type 1) of a Universal File Format dataset 58, via pyuff.
+
+    Units come from the ordinate axis label when not given; the sample rate from the abscissa increment.
+    """
+    import pyuff
+
+    raw = _as_bytes(data)
+    if not raw:
+        raise SignalError("the UFF file is empty; upload a file with a dataset 58", field="file")
+    fd, name = tempfile.mkstemp(suffix=".uff")
+    try:
+        with os.fdopen(fd, "wb") as fh:
+            fh.write(raw)
+        try:
+            uff = pyuff.UFF(name)
+            types = list(uff.get_set_types())
+        except Exception as exc:  # pyuff raises many kinds of errors on malformed files
+            raise SignalError(
+                f"not a readable UFF file ({exc}); export dataset 58 (time data)", field="file"
+            ) from None
+        if 58 not in types:
+            raise SignalError(
+                "the file holds no UFF dataset 58 (time data); export the record as dataset 58", field="file"
+            )
+        idx = types.index(58)
+        try:
+            s = uff.read_sets(idx)
+        except Exception as exc:
+            raise SignalError(
+                f"the UFF dataset 58 cannot be read ({exc}); re-export it", field="file"
+            ) from None
+    finally:
+        os.unlink(name)
+    y = np.asarray(s["data"])
+    if np.iscomplexobj(y):
+        raise SignalError(
+            "the UFF dataset 58 holds complex data (a spectrum or FRF), not a time record", field="file"
+        )
+    inc = float(s.get("abscissa_inc") or 0.0)
+    if inc <= 0:
+        x = np.asarray(s.get("x", []), dtype=float)
+        inc = float(np.median(np.diff(x))) if len(x) > 1 else 0.0
+    if inc <= 0:
+        raise SignalError(
+            "the UFF record has no time increment; re-export with even abscissa spacing", field="file"
+        )
+    if units is None:
+        try:
+            units = normalize_units(str(s.get("ordinate_axis_units_lab", "")).strip() or None)
+        except SignalError:
+            units = None
+    meta = {
+        "format": "uff58",
+        "sample_rate_source": "abscissa increment",
+        "id1": str(s.get("id1", "")).strip(),
+    }
+    return _finish(y.astype(np.float64), 1.0 / inc, units or "g", meta)
+
+
+def read_any(
+    data: bytes | str | os.PathLike,
+    filename: str | None = None,
+    *,
+    units: str | None = None,
+    sample_rate_hz: float | None = None,
+) -> Recording:
+    """Read bytes (an upload) or a path; the format comes from the file name's extension."""
+    name = str(filename if filename is not None else data if not isinstance(data, bytes | bytearray) else "")
+    ext = Path(name).suffix.lower()
+    if units is not None:
+        units = normalize_units(units)
+    if ext == ".wav":
+        rec = read_wav(data, units=units)
+    elif ext in (".csv", ".txt", ".tsv"):
+        return read_csv(data, units=units, sample_rate_hz=sample_rate_hz)
+    elif ext in (".uff", ".unv", ".uf"):
+        rec = read_uff58(data, units=units)
+    else:
+        raise SignalError(
+            f"unknown file type {ext or '(no extension)'!r}; use .wav, .csv or .uff (dataset 58)",
+            field="file",
+        )
+    if (
+        sample_rate_hz is not None
+        and abs(validate_sample_rate(sample_rate_hz) - rec.fs_hz) > 1e-6 * rec.fs_hz
+    ):
+        raise SignalError(
+            f"the given sample rate {sample_rate_hz} Hz disagrees with the file ({rec.fs_hz:g} Hz); drop it",
+            field="sample_rate_hz",
+        )
+    return rec
