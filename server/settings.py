@@ -46,6 +46,7 @@ class Settings(BaseSettings):
     worker_poll_s: float = Field(default=0.5, gt=0)
     lease_s: float = Field(default=60.0, gt=0)
     max_attempts: int = Field(default=3, ge=1)
+    retry_backoff_s: float = Field(default=5.0, ge=0, description="wait before retry n is n times this")
 
     # alarms and alert emails (server/alarms)
     smtp_host: str = Field(default="", description="SMTP server for alert emails; empty disables sending")

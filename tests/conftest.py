@@ -20,3 +20,5 @@ def _clean_environ(monkeypatch):
 def rng() -> np.random.Generator:
     """A seeded generator: every test that needs noise gets the same noise on every run."""
     return np.random.default_rng(20261201)
+
+pytest_plugins = ["support.fixtures"]

@@ -81,11 +81,8 @@ class Database:
     @contextmanager
     def read(self) -> Iterator[Session]:
         """A read session (never commits anything)."""
-        with self._reader() as session:
-            try:
-                yield session
-            finally:
-                session.rollback()
+        with self._reader() as session:  # close() ends the transaction; loaded objects stay usable
+            yield session
 
     def check_schema(self) -> None:
         """Refuse to run on a database that is not at the newest migration."""

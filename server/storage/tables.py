@@ -65,7 +65,7 @@ class Base(DeclarativeBase):
 MACHINE_KINDS = ("pump", "fan", "compressor", "gearbox", "reciprocating_compressor", "engine", "other")
 FORCING_KINDS = ("shaft", "stroke", "mesh", "other")
 FOUNDATIONS = ("rigid", "flexible")
-UNITS = ("m/s2", "g", "mm/s", "in/s", "um", "mil")
+UNITS = ("g", "m/s2", "mm/s2")  # acceleration, as the analysis core accepts them
 ORIGINS = ("api", "upload", "route", "other")
 ROLES = ("viewer", "technician", "engineer", "admin")
 JOB_STATES = ("queued", "running", "done", "failed")

@@ -1,0 +1,111 @@
+"""The app factory: ``create_app(settings)``; ``uvicorn server.app:create_app --factory`` works.
+
+The database handle is built here (``app.state.db``) and checked against the newest migration, so an
+unmigrated database is refused at start with a message that says to run ``halfwatch db upgrade``.
+Routers are every module in ``server/routes/`` that defines ``router``.
+"""
+
+from __future__ import annotations
+
+import logging
+import threading
+from contextlib import asynccontextmanager
+
+from fastapi import FastAPI
+
+from server.errors import PayloadTooLarge, error_body, install_error_handlers
+from server.settings import Settings
+from server.storage import Database
+
+log = logging.getLogger("halfwatch.app")
+
+UPLOAD_PATH_SUFFIX = "/uploads"
+
+
+class BodyLimit:
+    """Refuse request bodies above the limit, by Content-Length or while streaming (413)."""
+
+    def __init__(self, app, settings: Settings):
+        self.app = app
+        self.settings = settings
+
+    def _limit(self, path: str) -> int:
+        if path.endswith(UPLOAD_PATH_SUFFIX):
+            return max(self.settings.max_upload_bytes, self.settings.max_body_bytes)
+        return self.settings.max_body_bytes
+
+    async def __call__(self, scope, receive, send):
+        if scope["type"] != "http":
+            return await self.app(scope, receive, send)
+        limit = self._limit(scope.get("path", ""))
+        for name, value in scope.get("headers", ()):
+            if name == b"content-length" and value.isdigit() and int(value) > limit:
+                return await self._refuse(send, limit)
+        seen = 0
+
+        async def limited_receive():
+            nonlocal seen
+            message = await receive()
+            if message["type"] == "http.request":
+                seen += len(message.get("body", b""))
+                if seen > limit:
+                    raise PayloadTooLarge(_too_large(limit), field="body")
+            return message
+
+        return await self.app(scope, limited_receive, send)
+
+    async def _refuse(self, send, limit: int):
+        import json
+
+        body = json.dumps(error_body(413, "payload_too_large", _too_large(limit), "body")).encode()
+        await send({"type": "http.response.start", "status": 413,
+                    "headers": [(b"content-type", b"application/json"),
+                                (b"content-length", str(len(body)).encode()), (b"connection", b"close")]})
+        await send({"type": "http.response.body", "body": body})
+
+
+def _too_large(limit: int) -> str:
+    return f"request body is larger than {limit} bytes; send shorter records or split the upload"
+
+
+def create_app(settings: Settings | None = None) -> FastAPI:
+    settings = settings or Settings()
+    db = Database(settings.database_url)
+    db.check_schema()
+
+    @asynccontextmanager
+    async def lifespan(app: FastAPI):
+        stop = threading.Event()
+        thread = None
+        if settings.embedded_worker:
+            from server.worker import run_forever
+
+            thread = threading.Thread(target=run_forever, args=(db, settings),
+                                      kwargs={"stop": stop}, name="halfwatch-worker", daemon=True)
+            thread.start()
+        try:
+            yield
+        finally:
+            stop.set()
+            if thread is not None:
+                thread.join(timeout=settings.lease_s)
+            db.dispose()
+
+    app = FastAPI(
+        title="halfwatch",
+        version="0.1.0",
+        summary="Condition monitoring for subharmonic (0.5X) onset. Not a protection or trip system.",
+        lifespan=lifespan,
+    )
+    app.state.settings = settings
+    app.state.db = db
+    from server.security import PasswordHashing
+
+    app.state.passwords = PasswordHashing(settings)
+    install_error_handlers(app)
+    from server.routes import discover
+
+    for router in discover():
+        app.include_router(router)
+    app.add_middleware(BodyLimit, settings=settings)
+    return app

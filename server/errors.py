@@ -1,0 +1,169 @@
+"""The AppError tree and the one JSON error shape of the whole API.
+
+Every error response is ``{"ok": false, "error": {"code", "message", "field"}, "status"}``:
+AppError and its subclasses, HTTPException, request validation errors (the message names the field
+and the fix), bad signals (SignalError), a busy or full database (503 + Retry-After) and unexpected
+errors (logged; the client gets a reference, never a traceback).
+
+A browser-facing part may set ``app.state.html_error_renderer(request, status, body) -> Response | None``
+to render errors of non-API pages as HTML; returning None keeps the JSON.
+"""
+
+from __future__ import annotations
+
+import logging
+import uuid
+
+from fastapi import FastAPI, Request
+from fastapi.exceptions import RequestValidationError
+from fastapi.responses import JSONResponse, Response
+from starlette.exceptions import HTTPException as StarletteHTTPException
+
+log = logging.getLogger("halfwatch.errors")
+
+
+class AppError(Exception):
+    status = 400
+    code = "bad_request"
+
+    def __init__(self, message: str, *, field: str | None = None, status: int | None = None,
+                 code: str | None = None, headers: dict[str, str] | None = None):
+        super().__init__(message)
+        self.message = message
+        self.field = field
+        if status is not None:
+            self.status = status
+        if code is not None:
+            self.code = code
+        self.headers = headers or {}
+
+
+class NotFound(AppError):
+    status = 404
+    code = "not_found"
+
+
+class Conflict(AppError):
+    status = 409
+    code = "conflict"
+
+
+class Unauthorized(AppError):
+    status = 401
+    code = "unauthorized"
+
+
+class Forbidden(AppError):
+    status = 403
+    code = "forbidden"
+
+
+class PayloadTooLarge(AppError):
+    status = 413
+    code = "payload_too_large"
+
+
+class Unavailable(AppError):
+    status = 503
+    code = "unavailable"
+
+
+def error_body(status: int, code: str, message: str, field: str | None = None) -> dict:
+    """The canonical JSON error body used by every error response."""
+    return {"ok": False, "error": {"code": code, "message": message, "field": field}, "status": status}
+
+
+_HTTP_CODES = {400: "bad_request", 401: "unauthorized", 403: "forbidden", 404: "not_found",
+               405: "method_not_allowed", 406: "not_acceptable", 409: "conflict", 413: "payload_too_large",
+               415: "unsupported_media_type", 422: "invalid", 429: "too_many_requests", 503: "unavailable"}
+
+_FIXES = {
+    "missing": "add it",
+    "int_parsing": "give a whole number",
+    "float_parsing": "give a number",
+    "bool_parsing": "give true or false",
+    "datetime_parsing": "give an ISO 8601 time with a zone, e.g. 2026-03-01T08:00:00Z",
+    "datetime_from_date_parsing": "give an ISO 8601 time with a zone, e.g. 2026-03-01T08:00:00Z",
+    "timezone_aware": "add a zone, e.g. Z or +01:00",
+    "json_invalid": "send valid JSON",
+    "extra_forbidden": "remove it",
+    "string_type": "give a text value",
+    "enum": "use one of the listed values",
+    "literal_error": "use one of the listed values",
+}
+
+
+def _respond(request: Request, status: int, body: dict, headers: dict | None = None) -> Response:
+    renderer = getattr(request.app.state, "html_error_renderer", None)
+    if renderer is not None:
+        html = renderer(request, status, body)
+        if html is not None:
+            return html
+    return JSONResponse(body, status_code=status, headers=headers)
+
+
+def _field_of(loc) -> str | None:
+    parts = [str(p) for p in loc if p not in ("body", "query", "path", "header", "cookie", "form")]
+    return ".".join(parts) or (str(loc[0]) if loc else None)
+
+
+def install_error_handlers(app: FastAPI) -> None:
+    @app.exception_handler(AppError)
+    async def _app_error(request: Request, exc: AppError):
+        return _respond(request, exc.status, error_body(exc.status, exc.code, exc.message, exc.field),
+                        exc.headers)
+
+    @app.exception_handler(StarletteHTTPException)
+    async def _http_error(request: Request, exc: StarletteHTTPException):
+        code = _HTTP_CODES.get(exc.status_code, "error")
+        message = exc.detail if isinstance(exc.detail, str) else str(exc.detail)
+        if exc.status_code == 404 and message == "Not Found":
+            message = f"no such path {request.url.path}; see /docs for the API"
+        return _respond(request, exc.status_code, error_body(exc.status_code, code, message),
+                        getattr(exc, "headers", None))
+
+    @app.exception_handler(RequestValidationError)
+    async def _validation_error(request: Request, exc: RequestValidationError):
+        errors = exc.errors()
+        first = errors[0] if errors else {"loc": (), "msg": "invalid request", "type": ""}
+        field = _field_of(first.get("loc", ()))
+        fix = _FIXES.get(first.get("type", ""), "correct it")
+        msg = str(first.get("msg", "invalid")).removeprefix("Value error, ")
+        message = f"{field}: {msg}; {fix}" if field else f"{msg}; {fix}"
+        if len(errors) > 1:
+            message += f" (and {len(errors) - 1} more problem(s))"
+        return _respond(request, 422, error_body(422, "invalid", message, field))
+
+    try:
+        from analysis.errors import SignalError
+    except ImportError:  # pragma: no cover - the analysis core is part of the package
+        SignalError = None
+    if SignalError is not None:
+        @app.exception_handler(SignalError)
+        async def _signal_error(request: Request, exc):
+            field = getattr(exc, "field", None)
+            return _respond(request, 422, error_body(422, "bad_signal", str(exc), field))
+
+    from sqlalchemy.exc import OperationalError
+
+    @app.exception_handler(OperationalError)
+    async def _db_error(request: Request, exc: OperationalError):
+        text = str(exc.orig if exc.orig is not None else exc).lower()
+        if "locked" in text or "busy" in text or "full" in text or "could not connect" in text:
+            log.warning("database unavailable: %s", text)
+            return _respond(request, 503, error_body(503, "unavailable",
+                            "the database is busy or full; nothing was stored, retry shortly"),
+                            {"Retry-After": "5"})
+        return _unexpected(request, exc)
+
+    @app.exception_handler(Exception)
+    async def _any_error(request: Request, exc: Exception):
+        return _unexpected(request, exc)
+
+
+def _unexpected(request: Request, exc: Exception) -> Response:
+    ref = uuid.uuid4().hex[:12]
+    log.error("unexpected error %s on %s %s", ref, request.method, request.url.path, exc_info=exc)
+    return _respond(request, 500, error_body(500, "internal",
+                    f"internal error (reference {ref}); nothing is wrong with your request format, "
+                    "the server log has the details"))

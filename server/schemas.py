@@ -1,0 +1,96 @@
+"""Request bodies of the API (pydantic). Responses are plain dicts documented by the routes."""
+
+from __future__ import annotations
+
+import datetime as dt
+from typing import Literal
+
+from pydantic import AwareDatetime, BaseModel, ConfigDict, Field
+
+MachineKind = Literal["pump", "fan", "compressor", "gearbox", "reciprocating_compressor", "engine", "other"]
+
+
+class Strict(BaseModel):
+    model_config = ConfigDict(extra="forbid")
+
+
+class RecordJson(Strict):
+    """One record as JSON: samples as base64 of little-endian floats, or as a list of numbers."""
+
+    fs_hz: float = Field(gt=0, description="sample rate, Hz")
+    units: str = Field(description="acceleration units: g, m/s2 or mm/s2")
+    measured_at: AwareDatetime = Field(description="start of the record, ISO 8601 with a zone")
+    samples_b64: str | None = Field(default=None, description="base64 of little-endian float32 (or float64)")
+    dtype: Literal["float32", "float64"] = "float32"
+    samples: list[float] | None = Field(default=None, description="the samples as numbers (small records)")
+    speed_hz: float | None = Field(default=None, description="shaft speed during the record, rev/s")
+    speed_source: str | None = Field(default=None, max_length=32, description="tachometer, drive, ...")
+    client_ref: str | None = Field(default=None, max_length=200, description="your id for safe retries")
+
+
+class LoginBody(Strict):
+    username: str = Field(min_length=1, max_length=80)
+    password: str = Field(min_length=1, max_length=200)
+
+
+class SiteIn(Strict):
+    name: str = Field(min_length=1, max_length=120)
+    description: str = ""
+
+
+class AreaIn(Strict):
+    site_id: int
+    name: str = Field(min_length=1, max_length=120)
+    description: str = ""
+
+
+class AssetIn(Strict):
+    area_id: int
+    name: str = Field(min_length=1, max_length=120)
+    kind: MachineKind = "other"
+    rated_power_kw: float | None = Field(default=None, gt=0)
+    machine_group: Literal[1, 2] = 2
+    foundation: Literal["rigid", "flexible"] = "rigid"
+    nominal_speed_hz: float = Field(gt=0, le=2000, description="nominal shaft speed, rev/s")
+    forcing_kind: Literal["shaft", "stroke", "mesh", "other"] = "shaft"
+    forcing_multiplier: float = Field(default=1.0, gt=0, description="forcing = shaft speed x this")
+    description: str = ""
+
+
+class PointIn(Strict):
+    asset_id: int
+    name: str = Field(min_length=1, max_length=120)
+    location: str = ""
+    direction: Literal["horizontal", "vertical", "axial", "radial", "other"] = "radial"
+    sensitivity_mv_per_unit: float | None = Field(default=None, gt=0)
+    units: Literal["g", "m/s2", "mm/s2"] = "m/s2"
+    expected_fs_hz: float | None = Field(default=None, gt=0)
+
+
+class RouteStopIn(Strict):
+    point_id: int
+    due_interval_h: float = Field(default=720.0, gt=0, description="hours between readings")
+
+
+class RouteIn(Strict):
+    site_id: int
+    name: str = Field(min_length=1, max_length=120)
+    description: str = ""
+    stops: list[RouteStopIn] = Field(default_factory=list, max_length=2000)
+
+
+class UserIn(Strict):
+    username: str = Field(min_length=1, max_length=80, pattern=r"^[A-Za-z0-9_.@-]+$")
+    password: str = Field(min_length=8, max_length=200)
+    role: Literal["viewer", "technician", "engineer", "admin"] = "viewer"
+    email: str = ""
+
+
+class ApiKeyIn(Strict):
+    name: str = Field(min_length=1, max_length=120)
+    role: Literal["viewer", "technician", "engineer", "admin"] = "technician"
+    site_id: int | None = None
+
+
+def utc(value: dt.datetime) -> str:
+    return value.astimezone(dt.UTC).isoformat().replace("+00:00", "Z")

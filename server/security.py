@@ -1,0 +1,183 @@
+"""Who is calling, and may they: passwords, sessions, API keys, roles and CSRF.
+
+Principals come from an API key (``Authorization: Bearer <key>`` or ``X-API-Key: <key>``) or from the
+session cookie set by ``POST /api/v1/session``. Roles are ordered viewer < technician < engineer < admin.
+``require_role("engineer")`` is the dependency routers use; it returns the :class:`Principal`.
+
+CSRF: a cookie-authenticated request with a state-changing method (POST, PUT, PATCH, DELETE) must carry
+the session's CSRF token in the ``X-CSRF-Token`` header, or as the ``csrf_token`` field of a URL-encoded
+form post. The token is returned by ``POST /api/v1/session`` and ``GET /api/v1/me`` and is also set as the
+readable (not HttpOnly) cookie ``halfwatch_csrf``, so the dashboard's scripts can copy it into the header.
+API-key requests need no CSRF token (browsers never send them on their own).
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import hashlib
+import hmac
+import secrets
+from dataclasses import dataclass
+
+from fastapi import Depends, Request
+from sqlalchemy import select, update
+
+from server.errors import Forbidden, Unauthorized
+from server.storage.tables import ROLES, ApiKey, User, UserSession, utcnow
+
+SESSION_COOKIE = "halfwatch_session"
+CSRF_COOKIE = "halfwatch_csrf"
+CSRF_HEADER = "X-CSRF-Token"
+KEY_PREFIX = "hwk"
+SAFE_METHODS = frozenset({"GET", "HEAD", "OPTIONS"})
+LAST_USED_RESOLUTION = dt.timedelta(seconds=60)
+
+
+class PasswordHashing:
+    """Argon2id with the cost parameters from the settings."""
+
+    def __init__(self, settings):
+        from argon2 import PasswordHasher
+
+        self._hasher = PasswordHasher(time_cost=settings.argon2_time_cost,
+                                      memory_cost=settings.argon2_memory_cost_kib,
+                                      parallelism=settings.argon2_parallelism)
+        self._dummy = self._hasher.hash(secrets.token_hex(8))
+
+    def hash(self, password: str) -> str:
+        return self._hasher.hash(password)
+
+    def verify(self, stored: str | None, password: str) -> bool:
+        from argon2.exceptions import InvalidHashError, VerificationError
+
+        try:
+            return self._hasher.verify(stored or self._dummy, password) and stored is not None
+        except (VerificationError, InvalidHashError):
+            return False
+
+
+def role_rank(role: str) -> int:
+    return ROLES.index(role)
+
+
+def token_hash(token: str) -> str:
+    return hashlib.sha256(token.encode()).hexdigest()
+
+
+@dataclass(frozen=True)
+class Principal:
+    kind: str  # "user" or "apikey"
+    id: int
+    name: str
+    role: str
+    site_id: int | None = None  # an API key limited to one site; None = every site
+    via_cookie: bool = False
+    csrf_token: str | None = None
+
+    def has_role(self, role: str) -> bool:
+        return role_rank(self.role) >= role_rank(role)
+
+    def may_access_site(self, site_id: int) -> bool:
+        return self.site_id is None or self.site_id == site_id
+
+    @property
+    def label(self) -> str:
+        return f"{self.kind}:{self.name}"
+
+
+def new_api_key() -> tuple[str, str, str]:
+    """(full key shown once, public prefix, hash stored)."""
+    prefix = secrets.token_hex(4)
+    key = f"{KEY_PREFIX}_{prefix}_{secrets.token_urlsafe(24)}"
+    return key, prefix, token_hash(key)
+
+
+def _api_key_from(request: Request) -> str | None:
+    value = request.headers.get("x-api-key")
+    if value:
+        return value.strip()
+    auth = request.headers.get("authorization", "")
+    scheme, _, credentials = auth.partition(" ")
+    if scheme.lower() == "bearer" and credentials.strip():
+        return credentials.strip()
+    return None
+
+
+def _principal_from_key(db, key: str) -> Principal:
+    parts = key.split("_", 2)
+    if len(parts) != 3 or parts[0] != KEY_PREFIX:
+        raise Unauthorized("the API key is malformed; send the whole key as shown when it was created")
+    now = utcnow()
+    with db.read() as s:
+        row = s.scalar(select(ApiKey).where(ApiKey.prefix == parts[1]))
+    if row is None or not hmac.compare_digest(row.key_hash, token_hash(key)):
+        raise Unauthorized("unknown API key; ask an admin for a key (halfwatch apikey create)")
+    if row.revoked_at is not None:
+        raise Unauthorized("this API key was revoked; ask an admin for a new one")
+    if row.last_used_at is None or now - row.last_used_at > LAST_USED_RESOLUTION:
+        with db.unit_of_work() as s:
+            s.execute(update(ApiKey).where(ApiKey.id == row.id).values(last_used_at=now))
+    return Principal("apikey", row.id, row.name, row.role, site_id=row.site_id)
+
+
+def _principal_from_cookie(db, token: str) -> Principal | None:
+    with db.read() as s:
+        row = s.execute(
+            select(UserSession, User).join(User, User.id == UserSession.user_id)
+            .where(UserSession.token_hash == token_hash(token))
+        ).first()
+    if row is None:
+        return None
+    sess, user = row
+    if sess.expires_at < utcnow() or not user.active:
+        return None
+    return Principal("user", user.id, user.username, user.role, via_cookie=True, csrf_token=sess.csrf_token)
+
+
+def optional_principal(request: Request) -> Principal | None:
+    db = request.app.state.db
+    key = _api_key_from(request)
+    if key:
+        return _principal_from_key(db, key)
+    token = request.cookies.get(SESSION_COOKIE)
+    if token:
+        return _principal_from_cookie(db, token)
+    return None
+
+
+async def _csrf_ok(request: Request, principal: Principal) -> bool:
+    sent = request.headers.get(CSRF_HEADER.lower())
+    if not sent and request.headers.get("content-type", "").startswith("application/x-www-form-urlencoded"):
+        form = await request.form()
+        sent = form.get("csrf_token")
+    return bool(sent) and principal.csrf_token is not None and hmac.compare_digest(str(sent),
+                                                                                   principal.csrf_token)
+
+
+def require_role(role: str):
+    """A dependency: the caller must be authenticated with at least ``role``; returns the Principal."""
+    if role not in ROLES:
+        raise ValueError(f"unknown role {role!r}")
+
+    async def dependency(request: Request) -> Principal:
+        from starlette.concurrency import run_in_threadpool
+
+        principal = await run_in_threadpool(optional_principal, request)
+        if principal is None:
+            raise Unauthorized("log in (POST /api/v1/session) or send an API key "
+                               "(Authorization: Bearer <key> or X-API-Key)")
+        if principal.via_cookie and request.method not in SAFE_METHODS and not await _csrf_ok(request,
+                                                                                               principal):
+            raise Forbidden(f"missing or wrong CSRF token; send the {CSRF_HEADER} header with the token from "
+                            f"GET /api/v1/me (or the {CSRF_COOKIE} cookie)", field=CSRF_HEADER)
+        if not principal.has_role(role):
+            raise Forbidden(f"this needs the {role} role; you are {principal.role}")
+        request.state.principal = principal
+        return principal
+
+    dependency.__name__ = f"require_{role}"
+    return dependency
+
+
+def current_principal(principal: Principal = Depends(require_role("viewer"))) -> Principal:
+    return principal

@@ -1,0 +1,182 @@
+"""Store one record and queue its analysis, in one transaction.
+
+``ingest_record`` is the one way records enter the store: the HTTP API, route uploads and the MQTT
+bridge all call it. It validates the record against the analysis core's checks and the service's
+limits, then commits the record, its waveform and an analysis job together. A repeat with the same
+``client_ref`` for the same point returns the first record (``created=False``), never a duplicate.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from sqlalchemy import select
+from sqlalchemy.exc import IntegrityError
+
+from server.errors import AppError, Conflict, Forbidden, NotFound, PayloadTooLarge
+from server.storage import blobs
+from server.storage.tables import ORIGINS, Area, Asset, Job, Point, Record, Waveform, utcnow
+
+
+@dataclass(frozen=True)
+class IngestOutcome:
+    record_id: int
+    created: bool
+    job_id: int | None
+
+
+@dataclass(frozen=True)
+class Limits:
+    max_samples: int = 4_194_304
+    min_samples: int = 256
+    min_sample_rate_hz: float = 100.0
+    max_sample_rate_hz: float = 200_000.0
+    max_future_s: float = 300.0
+
+    @classmethod
+    def from_settings(cls, settings) -> Limits:
+        return cls(settings.max_samples, settings.min_samples, settings.min_sample_rate_hz,
+                   settings.max_sample_rate_hz, settings.max_future_s)
+
+
+def check_signal(samples, fs_hz, units: str | None, limits: Limits) -> tuple[np.ndarray, float, str]:
+    """Return (float32 samples, fs, canonical units) or raise an AppError/SignalError naming the field."""
+    from analysis.validate import normalize_units, validate_samples
+
+    try:
+        fs = float(fs_hz)
+    except (TypeError, ValueError):
+        raise AppError(f"fs_hz (sample rate) {fs_hz!r} is not a number; give it in Hz, e.g. 25600",
+                       field="fs_hz") from None
+    if not math.isfinite(fs) or not limits.min_sample_rate_hz <= fs <= limits.max_sample_rate_hz:
+        raise AppError(f"fs_hz (sample rate) {fs_hz!r} Hz is outside this service's range "
+                       f"{limits.min_sample_rate_hz:g}-{limits.max_sample_rate_hz:g} Hz", field="fs_hz")
+    n = int(np.size(samples))
+    if n > limits.max_samples:
+        raise PayloadTooLarge(f"the record has {n} samples; this service takes at most {limits.max_samples} "
+                              "per record, split it", field="samples")
+    canonical = normalize_units(units)
+    x, fs = validate_samples(samples, fs)
+    if x.size < limits.min_samples:
+        raise AppError(f"the record has only {x.size} samples; send at least {limits.min_samples}",
+                       field="samples")
+    x32 = blobs.as_f4(x)
+    if not np.all(np.isfinite(x32)):
+        raise AppError("samples overflow 32-bit floats; check the units and the scaling", field="samples")
+    return x32, fs, canonical
+
+
+def check_time(measured_at: dt.datetime, limits: Limits, now: dt.datetime | None = None) -> dt.datetime:
+    if not isinstance(measured_at, dt.datetime):
+        raise AppError("measured_at must be a time, e.g. 2026-03-01T08:00:00Z", field="measured_at")
+    if measured_at.tzinfo is None or measured_at.utcoffset() is None:
+        raise AppError("measured_at has no time zone; add Z or an offset such as +01:00", field="measured_at")
+    measured_at = measured_at.astimezone(dt.UTC)
+    now = now or utcnow()
+    if measured_at > now + dt.timedelta(seconds=limits.max_future_s):
+        raise AppError(f"measured_at {measured_at.isoformat()} is in the future (server time "
+                       f"{now.isoformat(timespec='seconds')}); check the sensor clock", field="measured_at")
+    if measured_at.year < 1990:
+        raise AppError(f"measured_at {measured_at.isoformat()} is before 1990; check the sensor clock",
+                       field="measured_at")
+    return measured_at
+
+
+def check_speed(speed_hz) -> float | None:
+    if speed_hz is None:
+        return None
+    try:
+        v = float(speed_hz)
+    except (TypeError, ValueError):
+        raise AppError(f"speed_hz {speed_hz!r} is not a number; give the shaft speed in Hz (rev/s)",
+                       field="speed_hz") from None
+    if not math.isfinite(v) or v <= 0 or v > 2000:
+        raise AppError(f"speed_hz {speed_hz!r} is not a shaft speed; give rev/s between 0 and 2000 "
+                       "(divide r/min by 60)", field="speed_hz")
+    return v
+
+
+def point_site(session, point_id: int) -> tuple[Point, int]:
+    row = session.execute(
+        select(Point, Area.site_id).join(Asset, Asset.id == Point.asset_id)
+        .join(Area, Area.id == Asset.area_id).where(Point.id == point_id)
+    ).first()
+    if row is None:
+        raise NotFound(f"no measurement point {point_id}; see GET /api/v1/tree", field="point_id")
+    return row[0], row[1]
+
+
+def ingest_record(db, *, point_id: int, samples, fs_hz: float, units: str | None, measured_at: dt.datetime,
+                  speed_hz: float | None = None, speed_source: str | None = None, origin: str = "api",
+                  uploader: str = "", client_ref: str | None = None, limits: Limits | None = None,
+                  site_scope: int | None = None, source_name: str | None = None,
+                  source_bytes: bytes | None = None, session=None) -> IngestOutcome:
+    """Validate and store one record with its analysis job; see the module docstring.
+
+    ``site_scope`` limits the call to points of one site (API keys scoped to a site). With ``session``
+    the caller owns the transaction (route uploads store several records in one).
+    """
+    limits = limits or Limits()
+    if origin not in ORIGINS:
+        raise AppError(f"origin {origin!r} is not one of {', '.join(ORIGINS)}", field="origin")
+    if client_ref is not None:
+        client_ref = str(client_ref).strip() or None
+        if client_ref is not None and len(client_ref) > 200:
+            raise AppError("client_ref is longer than 200 characters", field="client_ref")
+    x32, fs, canonical = check_signal(samples, fs_hz, units, limits)
+    measured_at = check_time(measured_at, limits)
+    speed = check_speed(speed_hz)
+    digest = blobs.checksum(x32)
+    codec, data = blobs.encode_waveform(x32)
+    packed_source = blobs.compress(source_bytes) if source_bytes is not None else None
+
+    def _store(s) -> IngestOutcome:
+        point, site_id = point_site(s, point_id)
+        if site_scope is not None and site_scope != site_id:
+            raise Forbidden(f"this API key is limited to site {site_scope}; point {point_id} is elsewhere",
+                            field="point_id")
+        if client_ref is not None:
+            first = _existing(s, point_id, client_ref, digest)
+            if first is not None:
+                return first
+        record = Record(point_id=point.id, measured_at=measured_at, received_at=utcnow(), fs_hz=fs,
+                        n_samples=int(x32.size), units=canonical, speed_hz=speed,
+                        speed_source=(speed_source or "given") if speed is not None else None,
+                        origin=origin, uploader=uploader[:120], client_ref=client_ref, checksum=digest)
+        s.add(record)
+        s.flush()
+        s.add(Waveform(record_id=record.id, codec=codec, data=data, source_name=source_name,
+                       source_bytes=packed_source))
+        job = Job(record_id=record.id, state="queued", reason="ingest")
+        s.add(job)
+        s.flush()
+        return IngestOutcome(record.id, True, job.id)
+
+    if session is not None:
+        return _store(session)
+    try:
+        with db.unit_of_work() as s:
+            return _store(s)
+    except IntegrityError:
+        if client_ref is None:
+            raise
+        with db.read() as s:  # another request with the same reference won the race
+            first = _existing(s, point_id, client_ref, digest)
+        if first is None:
+            raise
+        return first
+
+
+def _existing(s, point_id: int, client_ref: str, digest: str) -> IngestOutcome | None:
+    row = s.execute(select(Record.id, Record.checksum).where(Record.point_id == point_id,
+                                                             Record.client_ref == client_ref)).first()
+    if row is None:
+        return None
+    if row.checksum != digest:
+        raise Conflict(f"client_ref {client_ref!r} was already used for record {row.id} with different "
+                       "samples; use a new reference for a new record", field="client_ref")
+    job_id = s.scalar(select(Job.id).where(Job.record_id == row.id).order_by(Job.id).limit(1))
+    return IngestOutcome(row.id, False, job_id)

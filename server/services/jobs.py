@@ -1,0 +1,21 @@
+"""Queue maintenance: re-analysis after a method upgrade."""
+
+from __future__ import annotations
+
+import datetime as dt
+
+from sqlalchemy import select
+
+from server.storage.tables import Job, Record
+
+
+def requeue_since(db, since: dt.datetime, *, point_id: int | None = None) -> int:
+    """Queue a fresh analysis for every record measured at or after ``since`` that has none pending."""
+    with db.unit_of_work() as s:
+        pending = select(Job.record_id).where(Job.state.in_(("queued", "running")))
+        q = select(Record.id).where(Record.measured_at >= since, Record.id.not_in(pending))
+        if point_id is not None:
+            q = q.where(Record.point_id == point_id)
+        ids = list(s.scalars(q.order_by(Record.id)))
+        s.add_all([Job(record_id=i, state="queued", reason="reanalyze") for i in ids])
+        return len(ids)

@@ -1,0 +1,124 @@
+"""Users, sessions and API keys (write side)."""
+
+from __future__ import annotations
+
+import datetime as dt
+import secrets
+
+from sqlalchemy import delete, select
+
+from server.errors import AppError, Conflict, NotFound, Unauthorized
+from server.security import PasswordHashing, new_api_key, token_hash
+from server.storage.tables import ROLES, ApiKey, Site, User, UserSession, utcnow
+
+
+class UserError(AppError):
+    pass
+
+
+def _user_dict(u: User) -> dict:
+    return {"id": u.id, "username": u.username, "email": u.email, "role": u.role, "active": u.active}
+
+
+def add_user(db, settings, *, username: str, password: str, role: str, email: str = "",
+             hashing: PasswordHashing | None = None) -> dict:
+    if role not in ROLES:
+        raise UserError(f"role {role!r} is not one of {', '.join(ROLES)}", field="role")
+    if len(password) < 8:
+        raise UserError("the password is shorter than 8 characters", field="password")
+    hashing = hashing or PasswordHashing(settings)
+    with db.unit_of_work() as s:
+        if s.scalar(select(User.id).where(User.username == username)) is not None:
+            raise Conflict(f"user {username!r} already exists", field="username")
+        user = User(username=username, email=email, password_hash=hashing.hash(password), role=role)
+        s.add(user)
+        s.flush()
+        return _user_dict(user)
+
+
+def list_users(db) -> list[dict]:
+    with db.read() as s:
+        return [_user_dict(u) for u in s.scalars(select(User).order_by(User.username))]
+
+
+def set_user(db, user_id: int, *, role: str | None = None, active: bool | None = None) -> dict:
+    with db.unit_of_work() as s:
+        user = s.get(User, user_id)
+        if user is None:
+            raise NotFound(f"no user {user_id}", field="user_id")
+        if role is not None:
+            if role not in ROLES:
+                raise UserError(f"role {role!r} is not one of {', '.join(ROLES)}", field="role")
+            user.role = role
+        if active is not None:
+            user.active = active
+            if not active:
+                s.execute(delete(UserSession).where(UserSession.user_id == user.id))
+        return _user_dict(user)
+
+
+def login(db, hashing: PasswordHashing, settings, username: str, password: str) -> tuple[str, str, dict]:
+    """Check the password; return (session token, csrf token, user). Same answer for unknown users."""
+    with db.read() as s:
+        user = s.scalar(select(User).where(User.username == username))
+    ok = hashing.verify(user.password_hash if user else None, password)
+    if not ok or user is None or not user.active:
+        raise Unauthorized("wrong user name or password", field="password")
+    token, csrf = secrets.token_urlsafe(32), secrets.token_urlsafe(24)
+    now = utcnow()
+    with db.unit_of_work() as s:
+        s.execute(delete(UserSession).where(UserSession.expires_at < now))
+        s.add(UserSession(token_hash=token_hash(token), csrf_token=csrf, user_id=user.id, created_at=now,
+                          expires_at=now + dt.timedelta(hours=settings.session_ttl_h)))
+    return token, csrf, _user_dict(user)
+
+
+def logout(db, token: str | None) -> None:
+    if token:
+        with db.unit_of_work() as s:
+            s.execute(delete(UserSession).where(UserSession.token_hash == token_hash(token)))
+
+
+def _key_dict(k: ApiKey) -> dict:
+    def iso(t):
+        return t.isoformat() if t else None
+
+    return {"id": k.id, "prefix": k.prefix, "name": k.name, "role": k.role, "site_id": k.site_id,
+            "created_by": k.created_by, "created_at": iso(k.created_at), "last_used_at": iso(k.last_used_at),
+            "revoked_at": iso(k.revoked_at)}
+
+
+def create_api_key(db, *, name: str, role: str = "technician", site: str | int | None = None,
+                   created_by: str = "") -> tuple[str, dict]:
+    """Create a key; returns (the full key — shown once, never stored —, its public description)."""
+    if role not in ROLES:
+        raise UserError(f"role {role!r} is not one of {', '.join(ROLES)}", field="role")
+    key, prefix, digest = new_api_key()
+    with db.unit_of_work() as s:
+        site_id = None
+        if site is not None and site != "":
+            found = s.get(Site, int(site)) if str(site).isdigit() else None
+            found = found or s.scalar(select(Site).where(Site.name == str(site)))
+            if found is None:
+                raise UserError(f"no site {site!r}; give a site name or id", field="site")
+            site_id = found.id
+        row = ApiKey(prefix=prefix, key_hash=digest, name=name, role=role, site_id=site_id,
+                     created_by=created_by)
+        s.add(row)
+        s.flush()
+        return key, _key_dict(row)
+
+
+def list_api_keys(db) -> list[dict]:
+    with db.read() as s:
+        return [_key_dict(k) for k in s.scalars(select(ApiKey).order_by(ApiKey.id))]
+
+
+def revoke_api_key(db, key_id: int) -> dict:
+    with db.unit_of_work() as s:
+        row = s.get(ApiKey, key_id)
+        if row is None:
+            raise NotFound(f"no API key {key_id}", field="key_id")
+        if row.revoked_at is None:
+            row.revoked_at = utcnow()
+        return _key_dict(row)

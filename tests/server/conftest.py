@@ -1,0 +1,1 @@
+"""Server tests: fixtures come from support.fixtures (registered in tests/conftest.py)."""

@@ -1,0 +1,1 @@
+"""Shared test helpers for every area (importable as ``support.*``); fixtures in support.fixtures."""
