@@ -1,0 +1,59 @@
+"""Helpers for the alarm tests: analysis JSON with chosen values, and a worker-like feeder."""
+
+from __future__ import annotations
+
+import datetime as dt
+import json
+
+
+def make_result(*, half_v: float = 0.0, f1x: float = 24.75, one_x_v: float = 20.0, overall: float = 1.0,
+                growth: float | None = None, ci: tuple | None = None, flags: tuple = (), ok: bool = True,
+                klass: str = "half-order", family: dict | None = None, zone_limits=(1.4, 2.8, 4.5)) -> dict:
+    """An analysis JSON in the shape of ``RecordAnalysis.to_dict()`` (invented values for tests)."""
+    detected = half_v > 0
+    zone = "A" if overall < zone_limits[0] else "B" if overall < zone_limits[1] else \
+        "C" if overall < zone_limits[2] else "D"
+    return {
+        "units": "m/s2",
+        "forcing": {"frequency_hz": f1x, "source": "refined", "nominal_hz": f1x},
+        "subharmonic": {"detected": detected, "class": klass if detected else "none",
+                        "frequency_hz": f1x / 2 if detected else None, "order": 0.5 if detected else None,
+                        "amplitude": half_v * 0.1 if detected else None,
+                        "velocity_mm_s": half_v if detected else None, "snr_db": 20.0 if detected else None,
+                        "family": family or {"1.5X": None, "2.5X": None}},
+        "growth": {"rate_per_s": growth, "ci95_per_s": list(ci) if ci else [None, None], "onset_s": None,
+                   "state": "growing" if growth and ci and ci[0] > 0 else "steady"},
+        "overall": {"velocity_rms_mm_s": overall, "zone": zone, "zone_limits_mm_s": list(zone_limits)},
+        "orders": {"1X": {"frequency_hz": f1x, "amplitude": one_x_v * 0.1, "velocity_mm_s": one_x_v},
+                   "2X": {"frequency_hz": 2 * f1x, "amplitude": 0.01, "velocity_mm_s": 0.2}},
+        "waveform": {"rms": 1.0, "peak": 3.0, "crest_factor": 3.0, "kurtosis": 3.0},
+        "quality": {"ok": ok, "flags": list(flags)},
+    }
+
+
+T0 = dt.datetime(2026, 11, 2, 6, 0, tzinfo=dt.UTC)
+
+
+class Feeder:
+    """Stores record + result rows and evaluates the alarms in the same transaction, as the worker does."""
+
+    def __init__(self, db, settings):
+        self.db, self.settings, self.n = db, settings, 0
+
+    def feed(self, point_id: int, data: dict, *, at: dt.datetime | None = None) -> list:
+        from server.alarms import evaluate_result
+        from server.storage.tables import Record, Result
+
+        self.n += 1
+        at = at or T0 + dt.timedelta(hours=6 * self.n)
+        with self.db.unit_of_work() as s:
+            rec = Record(point_id=point_id, measured_at=at, fs_hz=2560.0, n_samples=25600, units="m/s2",
+                         origin="api", uploader="test", checksum=f"{self.n:064x}")
+            s.add(rec)
+            s.flush()
+            res = Result(record_id=rec.id, point_id=point_id, measured_ts=at.timestamp(),
+                         analysis_version="test", data=json.dumps(data), spectrum=b"")
+            s.add(res)
+            s.flush()
+            events = evaluate_result(s, rec, res, settings=self.settings, now=at)
+            return [(e.id, e.kind, e.metric, e.from_level, e.to_level) for e in events]

@@ -1,0 +1,173 @@
+"""The engine in the worker's transaction: escalation, data quality, acknowledgement, shelving, audit."""
+
+from __future__ import annotations
+
+import datetime as dt
+
+import pytest
+from alarms.helpers import T0, make_result
+from sqlalchemy import select, text
+from sqlalchemy.exc import DatabaseError
+
+from server.alarms import service
+from server.alarms.tables import AlarmEvent, AlarmState, OutboxMessage
+
+ONSET = [0.2, 0.3, 1.5, 1.6, 1.9, 3.0, 3.2, 3.5]  # half-order mm/s, an invented onset
+
+
+def transitions(events, metric="half_order_velocity"):
+    return [(e[3], e[4]) for e in events if e[1] == "transition" and e[2] == metric]
+
+
+def test_onset_raises_alert_then_danger_at_the_expected_readings(feeder, plant):
+    # Default half-order levels for group 2 rigid: alert 1.4 mm/s (A/B), danger 2.8 mm/s (B/C),
+    # persistence 2 of 3 -> alert on the 4th reading, danger on the 7th.
+    seen = {}
+    for i, v in enumerate(ONSET, start=1):
+        for tr in transitions(feeder.feed(plant.point_id, make_result(half_v=v))):
+            seen[i] = tr
+    assert seen == {4: ("normal", "alert"), 7: ("alert", "danger")}
+
+
+def test_data_quality_records_raise_no_machine_alarm(feeder, plant, migrated_db):
+    for v in ONSET[:3]:
+        feeder.feed(plant.point_id, make_result(half_v=v))
+    # A clipped record and an impact-ridden one with a large half-order line: no machine transition.
+    for flag in ("clipping", "impulsive", "flat-line", "dc-jump"):
+        events = feeder.feed(plant.point_id, make_result(half_v=5.0, overall=9.0, flags=(flag,), ok=False))
+        assert [e[1] for e in events] == ["data-quality"]
+    # A record at 30 % above the usual speed is also a data-quality problem.
+    events = feeder.feed(plant.point_id, make_result(half_v=5.0, f1x=24.75 * 1.3))
+    assert [e[1] for e in events] == ["data-quality"]
+    with migrated_db.read() as s:
+        levels = set(s.scalars(select(AlarmState.level).where(AlarmState.point_id == plant.point_id)))
+        assert levels == {"normal"}
+    # The next good reading continues the window where the good readings left it (1.5 -> 1.6 alerts).
+    assert transitions(feeder.feed(plant.point_id, make_result(half_v=1.6))) == [("normal", "alert")]
+
+
+def test_nominal_speed_check_on_first_records(feeder, plant):
+    events = feeder.feed(plant.point_id, make_result(half_v=3.0, f1x=40.0))  # nominal 24.75 Hz
+    assert [e[1] for e in events] == ["data-quality"]
+
+
+def _open_state(db, point_id, metric="half_order_velocity"):
+    with db.read() as s:
+        return s.scalars(select(AlarmState).where(AlarmState.point_id == point_id,
+                                                  AlarmState.metric == metric)).one().id
+
+
+def test_acknowledge_then_higher_level_re_alerts(feeder, plant, migrated_db):
+    for v in ONSET[:4]:
+        feeder.feed(plant.point_id, make_result(half_v=v))
+    sid = _open_state(migrated_db, plant.point_id)
+    assert [a["id"] for a in service.list_alarms(migrated_db, view="active")] == [sid]
+    service.acknowledge(migrated_db, sid, actor="engineer1", comment="bearing check booked for Friday")
+    assert service.list_alarms(migrated_db, view="active") == []
+    [acked] = service.list_alarms(migrated_db, view="acknowledged")
+    assert acked["ack_comment"] == "bearing check booked for Friday" and acked["level"] == "alert"
+    for v in ONSET[4:7]:
+        feeder.feed(plant.point_id, make_result(half_v=v))
+    # (the steep rise also trips the trend and forecast rules: they are other alarms)
+    [active] = [a for a in service.list_alarms(migrated_db, view="active") if a["id"] == sid]
+    assert active["level"] == "danger" and not active["acknowledged"]
+    trail = [(e["kind"], e["to_level"]) for e in service.history(migrated_db, point_id=plant.point_id)
+             if e["metric"] == "half_order_velocity"]
+    assert trail == [("transition", "danger"), ("acknowledged", "alert"), ("transition", "alert")]
+
+
+def test_acknowledge_needs_a_comment(feeder, plant, migrated_db):
+    for v in ONSET[:4]:
+        feeder.feed(plant.point_id, make_result(half_v=v))
+    sid = _open_state(migrated_db, plant.point_id)
+    with pytest.raises(service.AlarmInputError, match="^comment"):
+        service.acknowledge(migrated_db, sid, actor="engineer1", comment="  ")
+
+
+def _outbox_count(db) -> int:
+    with db.read() as s:
+        return s.scalar(select(text("count(*)")).select_from(OutboxMessage))
+
+
+def test_shelving_holds_emails_and_lapses_on_higher_level(feeder, plant, migrated_db):
+    service.create_subscription(migrated_db, {"email": "planner@example.test", "scope": "site",
+                                              "scope_id": plant.site_id}, actor="admin1")
+    for metric, alert, danger in (("trend_db_per_day", 1.0, 3.0), ("time_to_limit_days", 30.0, 7.0)):
+        service.set_rule(migrated_db, {"point_id": plant.point_id, "metric": metric, "alert": alert,
+                                       "danger": danger, "enabled": False}, actor="engineer1")
+    for v in ONSET[:4]:
+        feeder.feed(plant.point_id, make_result(half_v=v))
+    sid = _open_state(migrated_db, plant.point_id)
+    now = T0 + dt.timedelta(days=1, hours=1)
+    with pytest.raises(service.AlarmInputError, match="^until"):
+        service.shelve(migrated_db, sid, actor="engineer1", until=now - dt.timedelta(hours=1),
+                       reason="sensor swap", now=now)
+    service.shelve(migrated_db, sid, actor="engineer1", until=now + dt.timedelta(days=30),
+                   reason="sensor swap on Tuesday", now=now)
+    assert [a["id"] for a in service.list_alarms(migrated_db, view="shelved", now=now)] == [sid]
+    before = _outbox_count(migrated_db)
+    for v in ONSET[4:7]:  # escalates to danger: the shelving was for alert, so it lapses and emails
+        feeder.feed(plant.point_id, make_result(half_v=v))
+    assert _outbox_count(migrated_db) == before + 1
+    assert service.list_alarms(migrated_db, view="shelved") == []
+    # Shelved at danger: down to alert and back up to danger sends nothing.
+    service.shelve(migrated_db, sid, actor="engineer1", until=now + dt.timedelta(days=30),
+                   reason="repair planned for the next outage", now=now)
+    before = _outbox_count(migrated_db)
+    levels = []
+    for v in (2.0, 2.0, 3.5, 3.5):
+        levels += transitions(feeder.feed(plant.point_id, make_result(half_v=v)))
+    assert levels == [("danger", "alert"), ("alert", "danger")]
+    assert _outbox_count(migrated_db) == before
+    assert [a["id"] for a in service.list_alarms(migrated_db, view="shelved", now=now)] == [sid]
+
+
+def test_audit_trail_cannot_be_edited(feeder, plant, migrated_db):
+    for v in ONSET[:4]:
+        feeder.feed(plant.point_id, make_result(half_v=v))
+    with pytest.raises(DatabaseError, match="audit trail"):
+        with migrated_db.unit_of_work() as s:
+            s.execute(text("UPDATE alarm_events SET value = 0"))
+    with pytest.raises(DatabaseError, match="audit trail"):
+        with migrated_db.unit_of_work() as s:
+            s.execute(text("DELETE FROM alarm_events"))
+    with migrated_db.read() as s:
+        assert s.scalar(select(text("count(*)")).select_from(AlarmEvent)) >= 1
+
+
+def test_growth_rule_counts_only_significant_growth(feeder, plant):
+    # Rates with a CI straddling zero never raise; significant ones do (2 of 3).
+    for _ in range(3):
+        assert transitions(feeder.feed(plant.point_id, make_result(half_v=0.5, growth=0.9, ci=(-0.2, 2.0))),
+                           "growth_rate") == []
+    feeder.feed(plant.point_id, make_result(half_v=0.5, growth=0.9, ci=(0.6, 1.2)))
+    events = feeder.feed(plant.point_id, make_result(half_v=0.5, growth=0.9, ci=(0.6, 1.2)))
+    assert transitions(events, "growth_rate") == [("normal", "danger")]
+
+
+def test_zone_rule_uses_the_result_zone_limits(feeder, plant):
+    # Group 2 rigid limits in the result: zone C from 2.8 mm/s, zone D from 4.5 mm/s.
+    got = []
+    for v in (1.0, 3.0, 3.0, 5.0, 5.0):
+        got += transitions(feeder.feed(plant.point_id, make_result(overall=v)), "overall_velocity")
+    assert got == [("normal", "alert"), ("alert", "danger")]
+
+
+def test_margin_rule_is_inactive_without_a_fit(feeder, plant, migrated_db):
+    feeder.feed(plant.point_id, make_result(half_v=0.2))
+    with migrated_db.read() as s:
+        st = s.scalars(select(AlarmState).where(AlarmState.metric == "threshold_margin")).one()
+        assert st.inactive_reason == "no operating-window fit for this point"
+
+
+def test_trend_rule_on_a_steady_rise(feeder, plant, migrated_db):
+    # +2 dB per day (x 1.2589 per day), one reading a day: trend alert (1 dB/day), not danger (3 dB/day).
+    got = []
+    for day in range(8):
+        at = T0 + dt.timedelta(days=day)
+        got += transitions(feeder.feed(plant.point_id, make_result(half_v=0.3 * 10 ** (2 * day / 20)), at=at),
+                           "trend_db_per_day")
+    assert got == [("normal", "alert")]
+    with migrated_db.read() as s:
+        st = s.scalars(select(AlarmState).where(AlarmState.metric == "trend_db_per_day")).one()
+        assert st.last_value == pytest.approx(2.0, rel=1e-6)  # Theil-Sen on exact data (scipy)
