@@ -23,6 +23,12 @@ def _floor_power(spec: Spectrum) -> np.ndarray:
     return spec.floor_psd * (spec.enbw_bins * spec.df_hz)
 
 
+def independent_cells(spec: Spectrum, n_bins: int) -> int:
+    """Number of independent tests in a band of n_bins: adjacent Hann bins are correlated, and a band holds
+    about (width / ENBW) statistically independent resolution cells."""
+    return max(1, int(round(n_bins / spec.enbw_bins)))
+
+
 def threshold(spec: Spectrum, pfa: float, n_tested: int) -> float:
     return cfar_threshold(pfa, n_tested, spec.nu_eff, spec.nu_eff * FLOOR_DOF_FACTOR)
 
@@ -50,6 +56,28 @@ def _not_leakage(pw: np.ndarray, peaks: np.ndarray) -> np.ndarray:
     return np.asarray(kept, dtype=np.intp)
 
 
+def significant_lines(
+    spec: Spectrum, f1x: float, pfa: float
+) -> tuple[float, list[tuple[int, float, float, float]]]:
+    """CFAR test of every local maximum in 0.30X-0.70X.
+
+    Returns (τ, [(bin, frequency, amplitude, power ratio), ...]) for the lines whose power over the local
+    floor exceeds τ, the threshold for a family-wise false-alarm probability ``pfa`` over the bins searched.
+    """
+    pw = power(spec)
+    floor = _floor_power(spec)
+    df = spec.df_hz
+    lo, hi = int(np.ceil(SEARCH_BAND[0] * f1x / df)), int(np.floor(SEARCH_BAND[1] * f1x / df)) + 1
+    tau = threshold(spec, pfa, independent_cells(spec, hi - lo))
+    out = []
+    for k in local_peaks(pw, lo, hi):
+        ratio = pw[k] / max(floor[k], 1e-300)
+        if ratio > tau:
+            f, a = grandke(pw, int(k), df)
+            out.append((int(k), f, a, float(ratio)))
+    return tau, out
+
+
 def detect_subharmonic(
     spec: Spectrum, f1x: float, units: str, pfa: float, min_velocity_mm_s: float = MIN_VELOCITY_MM_S
 ) -> Subharmonic:
@@ -61,17 +89,9 @@ def detect_subharmonic(
     "sub-synchronous"; other lines (0.31X, 0.62X, ...) are no subharmonic and are listed as tones. With no
     detection the line nearest 0.5X is still measured (for trends), with class "none".
     """
-    pw = power(spec)
-    floor = _floor_power(spec)
-    df = spec.df_hz
-    lo, hi = int(np.ceil(SEARCH_BAND[0] * f1x / df)), int(np.floor(SEARCH_BAND[1] * f1x / df)) + 1
-    n_tested = max(1, hi - lo)
-    tau = threshold(spec, pfa, n_tested)
-    peaks = local_peaks(pw, lo, hi)
+    tau, cands = significant_lines(spec, f1x, pfa)
     best: dict[str, tuple[float, float, float, float]] = {}
-    for k in peaks:
-        ratio = pw[k] / max(floor[k], 1e-300)
-        f, a = grandke(pw, int(k), df)
+    for _k, f, a, ratio in cands:
         order = f / f1x
         if abs(order - 0.5) <= HALF_ORDER_TOL:
             klass = "half-order"
@@ -80,8 +100,11 @@ def detect_subharmonic(
         else:
             continue
         v = velocity_mm_s(a, f, units)
-        if ratio > tau and v >= min_velocity_mm_s and (klass not in best or a > best[klass][1]):
+        if v >= min_velocity_mm_s and (klass not in best or a > best[klass][1]):
             best[klass] = (f, a, ratio, v)
+    pw = power(spec)
+    floor = _floor_power(spec)
+    df = spec.df_hz
     family_tau = threshold(spec, pfa, 5)
     for klass in ("half-order", "sub-synchronous"):
         if klass in best:
@@ -141,7 +164,7 @@ def other_tones(spec: Spectrum, f1x: float, pfa: float, exclude_hz: list[float])
     pw = power(spec)
     floor = _floor_power(spec)
     lo, hi = 10, int(0.9 * (len(pw) - 1))
-    tau = threshold(spec, pfa, max(1, hi - lo))
+    tau = threshold(spec, pfa, independent_cells(spec, hi - lo))
     peaks = local_peaks(pw, lo, hi)
     if len(peaks) == 0:
         return ()

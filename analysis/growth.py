@@ -70,30 +70,56 @@ def _longest_run(mask: np.ndarray) -> tuple[int, int]:
     return best
 
 
+def ols(t: np.ndarray, y: np.ndarray) -> tuple[float, float, float]:
+    """Ordinary least squares y = c + λt: returns (λ, c, standard error of λ)."""
+    n = len(t)
+    tm, ym = float(t.mean()), float(y.mean())
+    dt, dy = t - tm, y - ym
+    sxx = float(np.dot(dt, dt))
+    slope = float(np.dot(dt, dy)) / sxx
+    resid = dy - slope * dt
+    stderr = float(np.sqrt(np.dot(resid, resid) / max(n - 2, 1) / sxx))
+    return slope, ym - slope * tm, stderr
+
+
+def _prefix_line_sse(t: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Slope and residual sum of squares of the OLS line through the first b points, for every b."""
+    b = np.arange(1, len(t) + 1, dtype=float)
+    st, sy = np.cumsum(t), np.cumsum(y)
+    stt, sty, syy = np.cumsum(t * t), np.cumsum(t * y), np.cumsum(y * y)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        sxx = stt - st * st / b
+        sxy = sty - st * sy / b
+        syy_c = syy - sy * sy / b
+        slope = np.where(sxx > 0, sxy / sxx, 0.0)
+        sse = syy_c - slope * sxy
+    return slope, np.maximum(sse, 0.0)
+
+
 def _saturation_split(t: np.ndarray, y: np.ndarray) -> int:
     """End of the exponential stage (pitfall P7).
 
-    Scans splits b: line on [0, b), constant on [b, n). The best split is kept only if the line rises and
-    the split model beats one straight line by an F-test at the 1 % level, so a clean exponential is
+    Scans splits b: line on [0, b), constant on [b, n). The best split is kept only if that line rises
+    and the split model beats one straight line by an F-test at the 1 % level, so a clean exponential is
     never cut; otherwise returns n.
     """
     n = len(y)
-    a1, a0 = np.polyfit(t, y, 1)
-    sse_line = float(np.sum((y - (a0 + a1 * t)) ** 2))
-    best_b, best_sse = n, np.inf
-    for b in range(MIN_POINTS, n - 2):
-        tt, yy = t[:b], y[:b]
-        s1, s0 = np.polyfit(tt, yy, 1)
-        if s1 <= 0:
-            continue
-        rest = y[b:]
-        sse = float(np.sum((yy - (s0 + s1 * tt)) ** 2)) + float(np.sum((rest - rest.mean()) ** 2))
-        if sse < best_sse:
-            best_b, best_sse = b, sse
-    if best_b == n or n <= 5:
+    if n <= MIN_POINTS + 3:
         return n
-    f_stat = (sse_line - best_sse) / max(best_sse / (n - 4), 1e-300)
-    return best_b if f_stat > stats.f.isf(0.01, 1, n - 4) else n
+    slope, sse_prefix = _prefix_line_sse(t, y)
+    # constant fitted to the suffix y[b:]: SSE from reversed cumulative sums
+    ry, ryy = np.cumsum(y[::-1])[::-1], np.cumsum((y * y)[::-1])[::-1]
+    m = np.arange(n, 0, -1, dtype=float)
+    sse_suffix = ryy - ry * ry / m
+    bs = np.arange(MIN_POINTS, n - 2)
+    total = sse_prefix[bs - 1] + sse_suffix[bs]
+    total[slope[bs - 1] <= 0] = np.inf
+    i = int(np.argmin(total))
+    best_sse = float(total[i])
+    if not np.isfinite(best_sse):
+        return n
+    f_stat = (float(sse_prefix[-1]) - best_sse) / max(best_sse / (n - 4), 1e-300)
+    return int(bs[i]) if f_stat > stats.f.isf(0.01, 1, n - 4) else n
 
 
 def _hilbert_envelope(
@@ -115,8 +141,17 @@ def _hilbert_envelope(
     j1 = j1 + right
     tt = (np.arange(j0, j1) - 0.5 * (i0 + i1)) / fs
     gain = np.exp(-rate0 * tt)
-    env = np.abs(signal.hilbert(y[j0:j1] * gain, N=n)[: j1 - j0]) / gain
+    env = np.abs(analytic(y[j0:j1] * gain, n)[: j1 - j0]) / gain
     return j0, env
+
+
+def analytic(x: np.ndarray, n: int) -> np.ndarray:
+    """Analytic signal x + jH{x} with an FFT of length n (as scipy.signal.hilbert, from a real FFT)."""
+    spec = sfft.rfft(x, n=n)
+    spec[1 : (n + 1) // 2] *= 2.0
+    full = np.zeros(n, dtype=complex)
+    full[: len(spec)] = spec
+    return sfft.ifft(full, overwrite_x=True)
 
 
 def not_estimated(note: str, band=(None, None)) -> Growth:
@@ -179,7 +214,7 @@ def estimate_growth(
     levelled = split < r1 - r0
     r1 = r0 + split
     i0, i1 = trim + r0 * n_block, trim + r1 * n_block
-    rate0 = stats.linregress(t_blk[r0:r1], np.log(blk[r0:r1])).slope
+    rate0 = ols(t_blk[r0:r1], np.log(blk[r0:r1]))[0]
     first, henv = _hilbert_envelope(y, i0, i1, fs, float(rate0), int(np.ceil(2.0 / b * fs)))
     idx = np.arange(i0 + n_block // 2, i1, n_block)
     e = henv[idx - first]
@@ -188,20 +223,20 @@ def estimate_growth(
     t, e = t[good], e[good]
     if len(t) < MIN_POINTS:
         return not_estimated("too few envelope points above the noise for a fit", (lo, hi)), env_t, env
-    fit = stats.linregress(t, np.log(e))
-    half = stats.t.ppf(0.975, len(t) - 2) * fit.stderr
-    ci = (fit.slope - half, fit.slope + half)
+    slope, intercept, stderr = ols(t, np.log(e))
+    half = stats.t.ppf(0.975, len(t) - 2) * stderr
+    ci = (slope - half, slope + half)
     state = "growing" if ci[0] > 0 else "decaying" if ci[1] < 0 else "steady"
     onset = None
     if state == "growing":
-        t_cross = (0.5 * np.log(2.0 * noise_var) - fit.intercept) / fit.slope if noise_var > 0 else -1.0
+        t_cross = (0.5 * np.log(2.0 * noise_var) - intercept) / slope if noise_var > 0 else -1.0
         onset = float(t_cross) if 0.0 <= t_cross <= n / fs else None
     g = Growth(
-        rate_per_s=float(fit.slope),
+        rate_per_s=float(slope),
         ci95_per_s=(float(ci[0]), float(ci[1])),
         onset_s=onset,
         state=state,
-        intercept=float(fit.intercept),
+        intercept=float(intercept),
         fit_window_s=(i0 / fs, i1 / fs),
         band_hz=(lo, hi),
         n_points=len(t),

@@ -52,9 +52,10 @@ def impulsive(x: np.ndarray, n_blocks: int = 32) -> bool:
     nb = len(x) // n
     blocks = x[: nb * n].reshape(nb, n)
     blocks = blocks - blocks.mean(axis=1, keepdims=True)
-    ms = np.mean(blocks**2, axis=1)
+    sq = blocks * blocks
+    ms = np.mean(sq, axis=1)
     ok = ms > 0
-    kurt = np.mean(blocks[ok] ** 4, axis=1) / ms[ok] ** 2
+    kurt = np.mean(sq[ok] * sq[ok], axis=1) / ms[ok] ** 2
     return bool(np.any(kurt > IMPULSIVE_KURTOSIS))
 
 

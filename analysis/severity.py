@@ -55,10 +55,11 @@ def iso_band(f1x_hz: float, fs_hz: float) -> tuple[float, float]:
 
 def waveform_stats(x: np.ndarray) -> Waveform:
     """RMS, peak, crest factor and Pearson kurtosis of a detrended acceleration record."""
-    ms = float(np.dot(x, x)) / len(x)
+    sq = x * x
+    ms = float(np.mean(sq))
     rms = float(np.sqrt(ms))
     peak = float(np.max(np.abs(x)))
     if rms <= 0.0:
         return Waveform(rms=0.0, peak=peak, crest_factor=None, kurtosis=None)
-    kurt = float(np.mean((x * x) ** 2)) / (ms * ms)
+    kurt = float(np.dot(sq, sq)) / len(x) / (ms * ms)
     return Waveform(rms=rms, peak=peak, crest_factor=peak / rms, kurtosis=kurt)

@@ -112,6 +112,7 @@ def grandke(power: np.ndarray, k: int, df: float) -> tuple[float, float]:
     return (k + sign * delta) * df, float(np.sqrt(2.0 * power[k]) * corr)
 
 
+@lru_cache(maxsize=256)
 def cfar_threshold(pfa_total: float, n_tested: int, nu: float, nu_ref: float) -> float:
     """Power-ratio threshold τ over the estimated floor for a family-wise false-alarm probability.
 
@@ -177,8 +178,6 @@ def choose_nperseg(n: int, fs: float, f1x: float) -> tuple[int, bool]:
     fast = sfft.next_fast_len(fine, real=True)
     if n >= 4.5 * fast:
         return fast, True
-    nps = int(n / 4.5)
-    if nps < coarse:
-        nps = min(n, max(coarse, int(n / 1.5)))
-    nps = max(sfft.prev_fast_len(nps, real=True), min(coarse, n)) if nps > 64 else nps
+    nps = max(int(n / 4.5), coarse)
+    nps = max(sfft.prev_fast_len(nps, real=True), coarse)
     return min(nps, n), nps >= fine
