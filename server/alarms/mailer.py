@@ -115,8 +115,9 @@ def _mark(db, row_id: int, me: str, **values) -> None:
                   .values(lease_until=None, **values))
 
 
-def _retry(db, row_id: int, me: str, attempts: int, error: str, settings, *, permanent: bool) -> None:
-    now = utcnow()
+def _retry(db, row_id: int, me: str, attempts: int, error: str, settings, *, permanent: bool,
+           now: dt.datetime | None = None) -> None:
+    now = now or utcnow()
     if permanent or attempts >= settings.mail_max_attempts:
         _mark(db, row_id, me, status="failed", last_error=error[:2000])
     else:
@@ -124,7 +125,7 @@ def _retry(db, row_id: int, me: str, attempts: int, error: str, settings, *, per
               next_attempt_at=now + dt.timedelta(seconds=_backoff_s(settings, attempts)))
 
 
-def send_claimed(db, settings, ids: list[int], *, me: str) -> int:
+def send_claimed(db, settings, ids: list[int], *, me: str, now: dt.datetime | None = None) -> int:
     """Deliver claimed rows over one SMTP connection; returns how many were sent."""
     prepared = []
     with db.unit_of_work() as s:
@@ -138,7 +139,7 @@ def send_claimed(db, settings, ids: list[int], *, me: str) -> int:
         smtp = connect(settings)
     except (OSError, smtplib.SMTPException) as exc:
         for row_id, _r, _m, attempts, *_ in prepared:
-            _retry(db, row_id, me, attempts, f"SMTP connect: {exc}", settings, permanent=False)
+            _retry(db, row_id, me, attempts, f"SMTP connect: {exc}", settings, permanent=False, now=now)
         log.warning("SMTP server %s:%s unreachable: %s", settings.smtp_host, settings.smtp_port, exc)
         return 0
     sent = 0
@@ -153,10 +154,10 @@ def send_claimed(db, settings, ids: list[int], *, me: str) -> int:
             except smtplib.SMTPResponseException as exc:
                 permanent = 500 <= exc.smtp_code < 600
                 _retry(db, row_id, me, attempts, f"SMTP {exc.smtp_code}: {exc.smtp_error!r}", settings,
-                       permanent=permanent)
+                       permanent=permanent, now=now)
                 continue
             except (OSError, smtplib.SMTPException) as exc:
-                _retry(db, row_id, me, attempts, f"SMTP: {exc}", settings, permanent=False)
+                _retry(db, row_id, me, attempts, f"SMTP: {exc}", settings, permanent=False, now=now)
                 break  # the connection is gone; the rest stay claimed until their lease ends
             _mark(db, row_id, me, status="sent", sent_at=utcnow(), last_error=None)
             sent += 1
@@ -181,7 +182,7 @@ def run_mailer_once(db, settings, *, me: str | None = None, now: dt.datetime | N
         ids = claim(db, me=me, lease_s=settings.mail_lease_s, now=now)
         if not ids:
             return total
-        sent = send_claimed(db, settings, ids, me=me)
+        sent = send_claimed(db, settings, ids, me=me, now=now)
         total += sent
         if sent < len(ids):
             return total  # something failed: back off until the next poll
