@@ -142,6 +142,7 @@ def install_error_handlers(app: FastAPI) -> None:
         @app.exception_handler(SignalError)
         async def _signal_error(request: Request, exc):
             field = getattr(exc, "field", None)
+            field = {"sample_rate_hz": "fs_hz"}.get(field, field)  # the API's name for it
             return _respond(request, 422, error_body(422, "bad_signal", str(exc), field))
 
     from sqlalchemy.exc import OperationalError

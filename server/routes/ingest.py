@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import base64
 import binascii
-import datetime as dt
 
 import numpy as np
 from fastapi import APIRouter, Depends, File, Form, Query, Request, UploadFile
@@ -17,6 +16,7 @@ from server.errors import AppError
 from server.schemas import RecordJson
 from server.security import Principal, require_role
 from server.services.ingest import IngestOutcome, Limits, ingest_record
+from server.services.ingest_files import ingest_file
 
 router = APIRouter(prefix="/api/v1", tags=["ingest"])
 
@@ -131,36 +131,3 @@ async def post_record_file(
         client_ref=client_ref, origin="upload", uploader=principal.label, limits=_limits(request),
         site_scope=principal.site_id)
     return _answer(request, outcome)
-
-
-def read_file(data: bytes, filename: str, *, units: str | None, fs_hz: float | None):
-    """The analysis core's readers; a missing core reader is a clear 501, not a crash."""
-    try:
-        from analysis.io import read_any
-    except ImportError:
-        raise AppError("file uploads need the analysis readers, which this build lacks", status=501,
-                       code="not_implemented", field="file") from None
-    if not data:
-        raise AppError("the file is empty", field="file")
-    return read_any(data, filename, units=units, sample_rate_hz=fs_hz)
-
-
-def ingest_file(db, *, point_id: int, data: bytes, filename: str, measured_at: dt.datetime | None,
-                units: str | None, fs_hz: float | None, origin: str, uploader: str, limits: Limits,
-                site_scope: int | None = None, session=None, **extra) -> IngestOutcome:
-    rec = read_file(data, filename, units=units, fs_hz=fs_hz)
-    meta = getattr(rec, "meta", {}) or {}
-    when = measured_at or meta.get("measured_at")
-    if when is None:
-        raise AppError("measured_at is missing and the file does not carry a start time; give measured_at",
-                       field="measured_at", status=422, code="invalid")
-    if isinstance(when, str):
-        try:
-            when = dt.datetime.fromisoformat(when)
-        except ValueError:
-            raise AppError(f"the file's start time {when!r} is not ISO 8601; give measured_at",
-                           field="measured_at") from None
-    return ingest_record(db, point_id=point_id, samples=rec.samples, fs_hz=rec.fs_hz, units=rec.units,
-                         measured_at=when, origin=origin, uploader=uploader, limits=limits,
-                         site_scope=site_scope, source_name=filename[:255], source_bytes=data,
-                         session=session, **extra)

@@ -1,0 +1,58 @@
+"""Users and API keys (admin)."""
+
+from __future__ import annotations
+
+from typing import Literal
+
+from fastapi import APIRouter, Depends, Request
+from fastapi.responses import JSONResponse
+from pydantic import BaseModel, ConfigDict
+
+from server.schemas import ApiKeyIn, UserIn
+from server.security import Principal, require_role
+from server.services import users
+
+router = APIRouter(prefix="/api/v1", tags=["admin"])
+admin = require_role("admin")
+
+
+class UserPatch(BaseModel):
+    model_config = ConfigDict(extra="forbid")
+    role: Literal["viewer", "technician", "engineer", "admin"] | None = None
+    active: bool | None = None
+
+
+@router.get("/users", summary="List users (admin)")
+def list_users(request: Request, principal: Principal = Depends(admin)):
+    return {"ok": True, "users": users.list_users(request.app.state.db)}
+
+
+@router.post("/users", status_code=201, summary="Add a user (admin)")
+def add_user(request: Request, body: UserIn, principal: Principal = Depends(admin)):
+    app = request.app
+    user = users.add_user(app.state.db, app.state.settings, username=body.username, password=body.password,
+                          role=body.role, email=body.email, hashing=app.state.passwords)
+    return JSONResponse({"ok": True, "user": user}, status_code=201)
+
+
+@router.patch("/users/{user_id}", summary="Change a user's role or deactivate them (admin)")
+def patch_user(request: Request, user_id: int, body: UserPatch, principal: Principal = Depends(admin)):
+    user = users.set_user(request.app.state.db, user_id, role=body.role, active=body.active)
+    return {"ok": True, "user": user}
+
+
+@router.get("/apikeys", summary="List API keys, without the secrets (admin)")
+def list_keys(request: Request, principal: Principal = Depends(admin)):
+    return {"ok": True, "api_keys": users.list_api_keys(request.app.state.db)}
+
+
+@router.post("/apikeys", status_code=201, summary="Create an API key; the key is shown only in this answer")
+def create_key(request: Request, body: ApiKeyIn, principal: Principal = Depends(admin)):
+    key, info = users.create_api_key(request.app.state.db, name=body.name, role=body.role, site=body.site_id,
+                                     created_by=principal.name)
+    return JSONResponse({"ok": True, "key": key, "api_key": info}, status_code=201)
+
+
+@router.delete("/apikeys/{key_id}", summary="Revoke an API key (admin)")
+def revoke_key(request: Request, key_id: int, principal: Principal = Depends(admin)):
+    return {"ok": True, "api_key": users.revoke_api_key(request.app.state.db, key_id)}

@@ -1,0 +1,133 @@
+"""Alarm API under /api/v1/alarms: open alarms, history, data quality, acknowledge, shelve, rules."""
+
+from __future__ import annotations
+
+import datetime as dt
+from typing import Literal
+
+from fastapi import APIRouter, Depends, Query, Request
+from pydantic import BaseModel, Field
+
+from server.alarms import service
+from server.errors import AppError, Forbidden, NotFound
+from server.security import Principal, require_role
+
+router = APIRouter(prefix="/api/v1/alarms", tags=["alarms"])
+
+Level = Literal["alert", "danger"]
+
+
+def call(fn, *args, **kwargs):
+    """Run a service call, turning its input errors into the one API error shape."""
+    try:
+        return fn(*args, **kwargs)
+    except service.AlarmInputError as exc:
+        raise AppError(str(exc), field=exc.field, status=exc.status,
+                       code="conflict" if exc.status == 409 else "invalid") from None
+    except service.AlarmNotFound as exc:
+        raise NotFound(str(exc), field=exc.field) from None
+
+
+def _site_scope(principal: Principal, site_id: int | None) -> int | None:
+    if principal.site_id is None:
+        return site_id
+    if site_id is not None and site_id != principal.site_id:
+        raise Forbidden(f"site {site_id} is outside the site this key is limited to", field="site_id")
+    return principal.site_id
+
+
+class AckIn(BaseModel):
+    comment: str = Field(min_length=1, max_length=2000, description="what is being done about it")
+
+
+class ShelveIn(BaseModel):
+    until: dt.datetime = Field(description="end of the shelving, with a time zone (ISO 8601)")
+    reason: str = Field(min_length=1, max_length=2000)
+
+
+class RuleIn(BaseModel):
+    point_id: int | None = None
+    asset_id: int | None = None
+    metric: str
+    alert: float | None = None
+    danger: float | None = None
+    direction: Literal["above", "below"] | None = None
+    zone_based: bool = False
+    k: int = Field(2, ge=1, le=50)
+    n: int = Field(3, ge=1, le=50)
+    hysteresis: float = Field(0.1, ge=0, lt=1)
+    enabled: bool = True
+
+
+@router.get("", summary="Open alarms (active, acknowledged, shelved or all), most severe first")
+def list_alarms(request: Request, view: Literal["active", "acknowledged", "shelved", "all"] = "active",
+                site_id: int | None = None, area_id: int | None = None, asset_id: int | None = None,
+                level: Level | None = None, principal: Principal = Depends(require_role("viewer"))):
+    alarms = call(service.list_alarms, request.app.state.db, view=view, site_id=_site_scope(principal, site_id),
+                  area_id=area_id, asset_id=asset_id, level=level)
+    return {"ok": True, "view": view, "alarms": alarms}
+
+
+@router.get("/history", summary="The audit trail of transitions, acknowledgements and shelving")
+def history(request: Request, site_id: int | None = None, area_id: int | None = None,
+            asset_id: int | None = None, point_id: int | None = None, level: Level | None = None,
+            kind: Literal["transition", "data-quality", "acknowledged", "shelved", "unshelved"] | None = None,
+            limit: int = Query(200, ge=1, le=1000), before_id: int | None = None,
+            principal: Principal = Depends(require_role("viewer"))):
+    if kind == "data-quality" and not principal.has_role("engineer"):
+        raise Forbidden("data-quality events are shown to engineers; you are " + principal.role, field="kind")
+    events = call(service.history, request.app.state.db, site_id=_site_scope(principal, site_id),
+                  area_id=area_id, asset_id=asset_id, point_id=point_id, level=level, kind=kind, limit=limit,
+                  before_id=before_id)
+    if not principal.has_role("engineer"):
+        events = [e for e in events if e["kind"] != "data-quality"]
+    return {"ok": True, "events": events}
+
+
+@router.get("/data-quality", summary="Points whose latest record was a data-quality problem (engineers)")
+def data_quality(request: Request, site_id: int | None = None,
+                 principal: Principal = Depends(require_role("engineer"))):
+    return {"ok": True, "points": service.open_data_quality(request.app.state.db,
+                                                            site_id=_site_scope(principal, site_id))}
+
+
+def _check_state_site(request: Request, principal: Principal, state_id: int) -> None:
+    if principal.site_id is None:
+        return
+    site = service.state_site_id(request.app.state.db, state_id)
+    if site is not None and site != principal.site_id:
+        raise Forbidden(f"alarm {state_id} is outside the site this key is limited to", field="alarm_id")
+
+
+@router.post("/{alarm_id}/acknowledge", summary="Acknowledge an open alarm with a comment (engineer)")
+def acknowledge(request: Request, alarm_id: int, body: AckIn,
+                principal: Principal = Depends(require_role("engineer"))):
+    _check_state_site(request, principal, alarm_id)
+    event = call(service.acknowledge, request.app.state.db, alarm_id, actor=principal.name, comment=body.comment)
+    return {"ok": True, "event": event}
+
+
+@router.post("/{alarm_id}/shelve", summary="Shelve an open alarm until a date, with a reason (engineer)")
+def shelve(request: Request, alarm_id: int, body: ShelveIn,
+           principal: Principal = Depends(require_role("engineer"))):
+    _check_state_site(request, principal, alarm_id)
+    event = call(service.shelve, request.app.state.db, alarm_id, actor=principal.name, until=body.until,
+                 reason=body.reason)
+    return {"ok": True, "event": event}
+
+
+@router.post("/{alarm_id}/unshelve", summary="End the shelving of an alarm now (engineer)")
+def unshelve(request: Request, alarm_id: int, principal: Principal = Depends(require_role("engineer"))):
+    _check_state_site(request, principal, alarm_id)
+    return {"ok": True, "event": call(service.unshelve, request.app.state.db, alarm_id, actor=principal.name)}
+
+
+@router.get("/rules", summary="The rules in force at a measurement point (defaults included)")
+def rules(request: Request, point_id: int, principal: Principal = Depends(require_role("viewer"))):
+    return {"ok": True, "rules": call(service.list_rules, request.app.state.db, point_id=point_id)}
+
+
+@router.put("/rules", summary="Set the rule for one metric on a point or an asset (engineer)")
+def set_rule(request: Request, body: RuleIn, principal: Principal = Depends(require_role("engineer"))):
+    data = body.model_dump(exclude_none=True)
+    return {"ok": True, "rule": call(service.set_rule, request.app.state.db, data, actor=principal.name)}

@@ -1,0 +1,115 @@
+"""Asset registry and routes (write side): site -> area -> asset -> point; routes of points."""
+
+from __future__ import annotations
+
+from sqlalchemy import select
+from sqlalchemy.exc import IntegrityError
+
+from server.errors import AppError, Conflict, Forbidden, NotFound
+from server.services.access import point_site_id
+from server.storage.tables import Area, Asset, Point, Route, RouteStop, Site
+
+KINDS = {"site": Site, "area": Area, "asset": Asset, "point": Point, "route": Route}
+
+
+def _row_dict(row) -> dict:
+    return {c.key: getattr(row, c.key) for c in row.__table__.columns if not c.key.endswith("_at")}
+
+
+def _parent_site(s, kind: str, data: dict) -> int | None:
+    if kind == "area" or kind == "route":
+        site = s.get(Site, data["site_id"])
+        if site is None:
+            raise NotFound(f"no site {data['site_id']}", field="site_id")
+        return site.id
+    if kind == "asset":
+        area = s.get(Area, data["area_id"])
+        if area is None:
+            raise NotFound(f"no area {data['area_id']}", field="area_id")
+        return area.site_id
+    if kind == "point":
+        asset = s.get(Asset, data["asset_id"])
+        if asset is None:
+            raise NotFound(f"no asset {data['asset_id']}", field="asset_id")
+        return asset.area.site_id
+    return None
+
+
+def create(db, kind: str, data: dict, principal) -> dict:
+    """Create a site, area, asset, point or route (with its stops) in one transaction."""
+    model = KINDS[kind]
+    stops = data.pop("stops", None) if kind == "route" else None
+    try:
+        with db.unit_of_work() as s:
+            site_id = _parent_site(s, kind, data)
+            if site_id is not None and not principal.may_access_site(site_id):
+                raise Forbidden(f"site {site_id} is outside the site this key is limited to", field="site_id")
+            if kind == "site" and principal.site_id is not None:
+                raise Forbidden("a key limited to one site cannot create sites", field="name")
+            row = model(**data)
+            s.add(row)
+            s.flush()
+            if kind == "point":
+                _default_alarm_rules(s, row)
+            if stops is not None:
+                _set_stops(s, row, stops)
+            return {"ok": True, kind: _row_dict(row)}
+    except IntegrityError:
+        raise Conflict(f"a {kind} named {data.get('name')!r} already exists there; choose another name",
+                       field="name") from None
+
+
+def _default_alarm_rules(s, point: Point) -> None:
+    try:
+        from server.alarms import ensure_default_rules
+    except ImportError:  # pragma: no cover - the alarm package is part of the service
+        return
+    ensure_default_rules(s, point)
+
+
+def _set_stops(s, route: Route, stops: list[dict]) -> None:
+    seen = set()
+    for i, st in enumerate(stops):
+        pid = st["point_id"]
+        if pid in seen:
+            raise AppError(f"point {pid} appears twice in the route", field=f"stops.{i}.point_id")
+        seen.add(pid)
+        try:
+            site = point_site_id(s, pid)
+        except NotFound:
+            raise NotFound(f"no measurement point {pid}", field=f"stops.{i}.point_id") from None
+        if site != route.site_id:
+            raise AppError(f"point {pid} belongs to another site than the route", field=f"stops.{i}.point_id")
+    for st in list(route.stops):
+        s.delete(st)
+    s.flush()
+    for i, st in enumerate(stops):
+        s.add(RouteStop(route_id=route.id, point_id=st["point_id"], position=i,
+                        due_interval_h=st.get("due_interval_h", 720.0)))
+
+
+def update(db, kind: str, row_id: int, data: dict, principal) -> dict:
+    model = KINDS[kind]
+    with db.unit_of_work() as s:
+        row = s.get(model, row_id)
+        if row is None:
+            raise NotFound(f"no {kind} {row_id}", field=f"{kind}_id")
+        current = _row_dict(row)
+        site_id = _parent_site(s, kind, {**current, **data}) if kind != "site" else row.id
+        if not principal.may_access_site(site_id):
+            raise Forbidden(f"{kind} {row_id} is outside the site this key is limited to", field=f"{kind}_id")
+        stops = data.pop("stops", None) if kind == "route" else None
+        for key, value in data.items():
+            setattr(row, key, value)
+        if stops is not None:
+            _set_stops(s, row, stops)
+        try:
+            s.flush()
+        except IntegrityError:
+            raise Conflict(f"a {kind} with that name already exists there", field="name") from None
+        return {"ok": True, kind: _row_dict(row)}
+
+
+def find_site(s, name_or_id: str) -> Site | None:
+    site = s.get(Site, int(name_or_id)) if str(name_or_id).isdigit() else None
+    return site or s.scalar(select(Site).where(Site.name == str(name_or_id)))
