@@ -5,7 +5,9 @@ from __future__ import annotations
 import csv
 import io
 import os
+import struct
 import tempfile
+import warnings
 import wave
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -55,8 +57,10 @@ def read_wav(
     from scipy.io import wavfile
 
     try:
-        fs, y = wavfile.read(io.BytesIO(raw))
-    except (ValueError, EOFError, wave.Error) as exc:
+        with warnings.catch_warnings():  # extra chunks (PEAK, cue, ...) are harmless: skip them quietly
+            warnings.simplefilter("ignore", wavfile.WavFileWarning)
+            fs, y = wavfile.read(io.BytesIO(raw))
+    except (ValueError, EOFError, OSError, struct.error, wave.Error) as exc:
         raise SignalError(
             f"not a readable WAV file ({exc}); export PCM or float WAV, or use CSV", field="file"
         ) from None

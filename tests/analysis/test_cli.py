@@ -1,0 +1,65 @@
+"""`halfwatch analyze` end to end, through the installed console script."""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pytest
+from scipy.io import wavfile
+
+SCRIPT = Path(sys.executable).with_name("halfwatch")
+
+
+def _run(*args):
+    return subprocess.run(
+        [str(SCRIPT), "analyze", *map(str, args)], capture_output=True, text=True, timeout=120
+    )
+
+
+@pytest.fixture
+def growing_wav(tmp_path, make_record):
+    # a growing half-order component (0.25 /s) under a steady 1X, written by scipy.io.wavfile as float32
+    x = make_record(2560.0, 40.0, [(29.6, 0.4, 0), (59.2, 0.08, 0), (14.8, 0.05, 0.25)], noise=0.01, seed=3)
+    path = tmp_path / "pump_de.wav"
+    wavfile.write(path, 2560, x.astype(np.float32))
+    return path
+
+
+def test_json_reports_growing_half_order(growing_wav):
+    out = _run(growing_wav, "--nominal-hz", 30, "--json")
+    assert out.returncode == 0, out.stderr
+    d = json.loads(out.stdout)
+    assert d["forcing"]["source"] == "refined"
+    assert d["forcing"]["frequency_hz"] == pytest.approx(29.6, abs=0.01)
+    assert d["subharmonic"]["detected"] is True and d["subharmonic"]["class"] == "half-order"
+    assert d["growth"]["state"] == "growing"
+    lo, hi = d["growth"]["ci95_per_s"]
+    assert lo <= 0.25 <= hi and d["growth"]["rate_per_s"] == pytest.approx(0.25, rel=0.05)
+    assert d["overall"]["zone"] in "ABCD" and d["sample_rate_hz"] == 2560.0 and d["version"]
+
+
+def test_summary_speaks_the_trade(growing_wav):
+    out = _run(growing_wav, "--forcing-hz", 29.6, "--machine-group", 1, "--foundation", "flexible")
+    assert out.returncode == 0, out.stderr
+    assert "half-order component at 14.8 Hz (0.50X)" in out.stdout
+    assert "growing" in out.stdout and "zone" in out.stdout and "not a protection" in out.stdout
+
+
+def test_bad_file_exits_2_with_one_line(tmp_path):
+    bad = tmp_path / "broken.wav"
+    bad.write_bytes(b"not audio at all")
+    out = _run(bad, "--forcing-hz", 30)
+    assert out.returncode == 2 and out.stdout == ""
+    assert len(out.stderr.strip().splitlines()) == 1 and "not a readable WAV" in out.stderr
+
+
+def test_missing_file_and_csv_without_rate_exit_2(tmp_path):
+    assert _run(tmp_path / "nope.wav", "--forcing-hz", 30).returncode == 2
+    one = tmp_path / "one.csv"
+    one.write_text("\n".join(["0.1", "0.2"] * 2000))
+    out = _run(one, "--forcing-hz", 30)
+    assert out.returncode == 2 and "--sample-rate" in out.stderr
