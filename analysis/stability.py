@@ -51,8 +51,9 @@ __all__ = [
 TWO_PI = 2.0 * math.pi
 
 
-def _check(name: str, value: float, *, low: float = 0.0, low_ok: bool = False,
-           high: float | None = None) -> float:
+def _check(
+    name: str, value: float, *, low: float = 0.0, low_ok: bool = False, high: float | None = None
+) -> float:
     """Return ``value`` as float or raise ValueError naming the parameter and the allowed range."""
     v = float(value)
     bad_low = v < low if low_ok else v <= low
@@ -86,8 +87,9 @@ class FloquetResult:
     response: str
 
 
-def mathieu_standard_form(f0_hz: float, zeta: float, forcing_hz: float,
-                          modulation: float) -> tuple[float, float]:
+def mathieu_standard_form(
+    f0_hz: float, zeta: float, forcing_hz: float, modulation: float
+) -> tuple[float, float]:
     """Map the damped model to Mathieu's standard form: returns (a, q) with q >= 0.
 
     a = 4 w0^2 (1 - zeta^2) / W^2, q = 2 w0^2 h / W^2 (the sign of q only shifts tau by pi/2).
@@ -98,8 +100,15 @@ def mathieu_standard_form(f0_hz: float, zeta: float, forcing_hz: float,
     return 4.0 * r2 * (1.0 - z * z), 2.0 * r2 * h
 
 
-def monodromy(f0_hz: float, zeta: float, forcing_hz: float, modulation: float, *,
-              rtol: float = 1e-11, atol: float = 1e-13) -> np.ndarray:
+def monodromy(
+    f0_hz: float,
+    zeta: float,
+    forcing_hz: float,
+    modulation: float,
+    *,
+    rtol: float = 1e-11,
+    atol: float = 1e-13,
+) -> np.ndarray:
     """Monodromy matrix over one forcing period, state [x, dx/dtau], tau = W t / 2 (period pi).
 
     The time scaling keeps the state of order one so that ``atol`` is meaningful; it is a similarity
@@ -120,8 +129,15 @@ def monodromy(f0_hz: float, zeta: float, forcing_hz: float, modulation: float, *
     return sol.y[:, -1].reshape(2, 2).T
 
 
-def floquet_growth(f0_hz: float, zeta: float, forcing_hz: float, modulation: float, *,
-                   rtol: float = 1e-11, atol: float = 1e-13) -> FloquetResult:
+def floquet_growth(
+    f0_hz: float,
+    zeta: float,
+    forcing_hz: float,
+    modulation: float,
+    *,
+    rtol: float = 1e-11,
+    atol: float = 1e-13,
+) -> FloquetResult:
     """Largest Floquet growth rate (1/s) of the damped Mathieu equation.
 
     Uses the trace formula for a 2x2 monodromy M: r = |tr M| / (2 sqrt(det M)), lambda = -zeta w0 +
@@ -175,8 +191,9 @@ def threshold_first_order(f0_hz: float, zeta: float, forcing_hz):
     return float(out) if out.ndim == 0 else out
 
 
-def threshold_floquet(f0_hz: float, zeta: float, forcing_hz: float, *, h_max: float = 2.0,
-                      xtol: float = 1e-10) -> float:
+def threshold_floquet(
+    f0_hz: float, zeta: float, forcing_hz: float, *, h_max: float = 2.0, xtol: float = 1e-10
+) -> float:
     """Threshold modulation h_c where the Floquet growth rate crosses zero (brentq); inf if above ``h_max``.
 
     The bracket starts at the first-order threshold and widens by 1.5x steps up to ``h_max``.
@@ -225,8 +242,9 @@ def tongue_edges_first_order(f0_hz: float, zeta: float, modulation: float) -> tu
     return 2.0 * f0 - half, 2.0 * f0 + half
 
 
-def tongue_edges_floquet(f0_hz: float, zeta: float, modulation: float, *,
-                         xtol_hz: float = 1e-9) -> tuple[float, float] | None:
+def tongue_edges_floquet(
+    f0_hz: float, zeta: float, modulation: float, *, xtol_hz: float = 1e-9
+) -> tuple[float, float] | None:
     """Forcing frequencies (Hz) where the Floquet growth rate is zero on each side of the first tongue.
 
     Returns None when the mode is stable at every forcing frequency near 2 f0 for this depth.
@@ -311,8 +329,9 @@ def _half_period_trace(a: np.ndarray, q: np.ndarray, steps: int) -> np.ndarray:
     return y1 * v2 + v1 * y2
 
 
-def stability_chart(f0_hz: float, zeta: float, ratios, modulations, *, method: str = "floquet",
-                    steps: int | None = None) -> StabilityChart:
+def stability_chart(
+    f0_hz: float, zeta: float, ratios, modulations, *, method: str = "floquet", steps: int | None = None
+) -> StabilityChart:
     """Grid of growth rates (1/s) over frequency ratio W/w0 and modulation depth h.
 
     ``method="floquet"`` integrates every grid point (vectorised fixed-step RK4 on the standard form;
@@ -395,5 +414,18 @@ def stability_summary(f0_hz: float, zeta: float, forcing_hz: float, modulation: 
         ratio = 0.0 if math.isinf(hc) else math.inf
         margin = 100.0 if math.isinf(hc) else -math.inf
     lam1 = growth_rate_first_order(f0, z, fw, h)
-    return StabilitySummary(f0, z, fw, h, res.growth_rate_per_s, lam1, hc, hc1, margin, ratio, res.response,
-                            res.det_monodromy, res.det_expected)
+    return StabilitySummary(
+        f0,
+        z,
+        fw,
+        h,
+        res.growth_rate_per_s,
+        lam1,
+        hc,
+        hc1,
+        margin,
+        ratio,
+        res.response,
+        res.det_monodromy,
+        res.det_expected,
+    )

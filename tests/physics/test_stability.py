@@ -134,8 +134,14 @@ def test_damped_tongue_edges():
 
 
 # Abramowitz & Stegun Table 20.1 (values from memory; equal to scipy to 8 decimals): (q, kind, order, value)
-AS_TABLE = [(5, "a", 0, -5.80004602), (5, "b", 1, -5.79008060), (10, "a", 1, -2.39914240),
-            (5, "a", 2, 7.44910974), (10, "a", 0, -13.93697996), (5, "b", 2, 2.09946045)]
+AS_TABLE = [
+    (5, "a", 0, -5.80004602),
+    (5, "b", 1, -5.79008060),
+    (10, "a", 1, -2.39914240),
+    (5, "a", 2, 7.44910974),
+    (10, "a", 0, -13.93697996),
+    (5, "b", 2, 2.09946045),
+]
 
 
 @pytest.mark.parametrize(("q", "kind", "order", "value"), AS_TABLE)
