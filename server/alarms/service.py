@@ -16,7 +16,7 @@ from server.storage.tables import Area, Asset, Point, Site, utcnow
 
 from .digest import scope_filter
 from .rules import LEVEL_RANK, METRICS, RuleSpec
-from .tables import MODES, SCOPES, AlarmEvent, AlarmRule, AlarmState, AlarmSubscription
+from .tables import MODES, SCOPES, AlarmEvent, AlarmPointStatus, AlarmRule, AlarmState, AlarmSubscription
 
 VIEWS = ("active", "acknowledged", "shelved", "all")
 EMAIL_RE = re.compile(r"^[^@\s]+@[^@\s]+\.[^@\s]+$")
@@ -119,6 +119,25 @@ def history(db, *, site_id=None, area_id=None, asset_id=None, point_id=None, lev
         return [event_dict(e) for e in s.scalars(stmt)]
 
 
+def state_site_id(db, state_id: int) -> int | None:
+    with db.read() as s:
+        return s.scalar(select(Area.site_id).join(Asset, Asset.area_id == Area.id)
+                        .join(AlarmState, AlarmState.asset_id == Asset.id).where(AlarmState.id == state_id))
+
+
+def open_data_quality(db, *, site_id: int | None = None) -> list[dict]:
+    """Points whose latest record was refused as a data-quality problem."""
+    stmt = (select(AlarmPointStatus, Point, Asset, Area).join(Point, Point.id == AlarmPointStatus.point_id)
+            .join(Asset, Asset.id == Point.asset_id).join(Area, Area.id == Asset.area_id)
+            .where(AlarmPointStatus.data_quality_open.is_(True)))
+    if site_id is not None:
+        stmt = stmt.where(Area.site_id == site_id)
+    with db.read() as s:
+        return [{"point_id": p.id, "point": p.name, "asset_id": a.id, "asset": a.name, "area": ar.name,
+                 "site_id": ar.site_id, "reason": st.data_quality_reason,
+                 "since": st.updated_at.isoformat()} for st, p, a, ar in s.execute(stmt)]
+
+
 def _open_state(s, state_id: int) -> AlarmState:
     state = s.get(AlarmState, state_id)
     if state is None:
@@ -195,7 +214,7 @@ def subscription_dict(sub: AlarmSubscription) -> dict:
 
 
 def _check_subscription(s, body: dict) -> dict:
-    email = str(body.get("email") or "").strip()
+    email = str(body.get("email") or "").strip().lower()
     if not EMAIL_RE.match(email) or len(email) > 200:
         raise AlarmInputError("email", "email: give one address like planner@example.com")
     scope = body.get("scope")

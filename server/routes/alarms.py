@@ -63,8 +63,8 @@ class RuleIn(BaseModel):
 def list_alarms(request: Request, view: Literal["active", "acknowledged", "shelved", "all"] = "active",
                 site_id: int | None = None, area_id: int | None = None, asset_id: int | None = None,
                 level: Level | None = None, principal: Principal = Depends(require_role("viewer"))):
-    alarms = call(service.list_alarms, request.app.state.db, view=view, site_id=_site_scope(principal, site_id),
-                  area_id=area_id, asset_id=asset_id, level=level)
+    alarms = call(service.list_alarms, request.app.state.db, view=view,
+                  site_id=_site_scope(principal, site_id), area_id=area_id, asset_id=asset_id, level=level)
     return {"ok": True, "view": view, "alarms": alarms}
 
 
@@ -103,7 +103,8 @@ def _check_state_site(request: Request, principal: Principal, state_id: int) -> 
 def acknowledge(request: Request, alarm_id: int, body: AckIn,
                 principal: Principal = Depends(require_role("engineer"))):
     _check_state_site(request, principal, alarm_id)
-    event = call(service.acknowledge, request.app.state.db, alarm_id, actor=principal.name, comment=body.comment)
+    event = call(service.acknowledge, request.app.state.db, alarm_id, actor=principal.name,
+                 comment=body.comment)
     return {"ok": True, "event": event}
 
 
