@@ -64,6 +64,12 @@ class Settings(BaseSettings):
     alarm_speed_tolerance: float = Field(default=0.10, gt=0, lt=1, description="vs the point's usual speed")
     alarm_nominal_speed_tolerance: float = Field(default=0.25, gt=0, lt=1, description="vs asset nominal")
 
+    # dashboard (web/, server/routes/pages.py)
+    site_timezone: str = Field(default="UTC", description="IANA time zone the dashboard shows times in")
+    site_timezones: dict[str, str] = Field(default_factory=dict,
+                                           description="per-site IANA zones by site name, JSON object")
+    simulated_data: bool = Field(default=False, description="label the dashboard: the plant is simulated")
+
     # Argon2id password hashing (tests set these low)
     argon2_time_cost: int = Field(default=3, ge=1)
     argon2_memory_cost_kib: int = Field(default=65536, ge=8)
@@ -73,6 +79,14 @@ class Settings(BaseSettings):
     def _fill_database_url(self) -> Settings:
         if not self.database_url:
             self.database_url = f"sqlite:///{(self.data_dir / 'halfwatch.db').as_posix()}"
+        from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
+
+        for name, zone in [("site_timezone", self.site_timezone), *self.site_timezones.items()]:
+            try:
+                ZoneInfo(zone)
+            except (ZoneInfoNotFoundError, ValueError):
+                raise ValueError(f"time zone {zone!r} of {name}: use an IANA name such as Europe/Berlin"
+                                 ) from None
         if self.min_sample_rate_hz >= self.max_sample_rate_hz:
             raise ValueError("min_sample_rate_hz must be below max_sample_rate_hz")
         return self
