@@ -1,0 +1,1 @@
+"""Operations support: service heartbeats (worker, MQTT bridge) that /readyz and /metrics read."""
