@@ -70,6 +70,16 @@ def _longest_run(mask: np.ndarray) -> tuple[int, int]:
     return best
 
 
+@lru_cache(maxsize=512)
+def _t975(dof: int) -> float:
+    return float(stats.t.ppf(0.975, dof))
+
+
+@lru_cache(maxsize=512)
+def _f99(dof: int) -> float:
+    return float(stats.f.isf(0.01, 1, dof))
+
+
 def ols(t: np.ndarray, y: np.ndarray) -> tuple[float, float, float]:
     """Ordinary least squares y = c + λt: returns (λ, c, standard error of λ)."""
     n = len(t)
@@ -119,7 +129,7 @@ def _saturation_split(t: np.ndarray, y: np.ndarray) -> int:
     if not np.isfinite(best_sse):
         return n
     f_stat = (float(sse_prefix[-1]) - best_sse) / max(best_sse / (n - 4), 1e-300)
-    return int(bs[i]) if f_stat > stats.f.isf(0.01, 1, n - 4) else n
+    return int(bs[i]) if f_stat > _f99(n - 4) else n
 
 
 def _hilbert_envelope(
@@ -224,7 +234,7 @@ def estimate_growth(
     if len(t) < MIN_POINTS:
         return not_estimated("too few envelope points above the noise for a fit", (lo, hi)), env_t, env
     slope, intercept, stderr = ols(t, np.log(e))
-    half = stats.t.ppf(0.975, len(t) - 2) * stderr
+    half = _t975(len(t) - 2) * stderr
     ci = (slope - half, slope + half)
     state = "growing" if ci[0] > 0 else "decaying" if ci[1] < 0 else "steady"
     onset = None

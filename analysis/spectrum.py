@@ -80,6 +80,11 @@ def welch_psd(x: np.ndarray, fs: float, nperseg: int) -> tuple[np.ndarray, np.nd
     return freqs, psd, k, welch_nu_eff(w, step, k)
 
 
+@lru_cache(maxsize=256)
+def _chi2_median_over_mean(nu: float) -> float:
+    return float(stats.chi2.median(nu) / nu)
+
+
 def robust_floor(psd: np.ndarray, nu: float, block: int = 32) -> np.ndarray:
     """Local noise floor (mean-equivalent density) that ignores spectral lines.
 
@@ -89,7 +94,7 @@ def robust_floor(psd: np.ndarray, nu: float, block: int = 32) -> np.ndarray:
     n = len(psd)
     nb = max(1, n // block)
     used = psd[: nb * block].reshape(nb, block)
-    med = np.median(used, axis=1) / (stats.chi2.median(nu) / nu)
+    med = np.median(used, axis=1) / _chi2_median_over_mean(round(nu, 6))
     centres = (np.arange(nb) + 0.5) * block
     return np.interp(np.arange(n), centres, med)
 
@@ -178,6 +183,7 @@ def choose_nperseg(n: int, fs: float, f1x: float) -> tuple[int, bool]:
     fast = sfft.next_fast_len(fine, real=True)
     if n >= 4.5 * fast:
         return fast, True
-    nps = max(int(n / 4.5), coarse)
-    nps = max(sfft.prev_fast_len(nps, real=True), coarse)
+    coarse_fast = sfft.next_fast_len(coarse, real=True)
+    coarse = coarse_fast if coarse_fast <= n else coarse
+    nps = max(sfft.prev_fast_len(max(int(n / 4.5), coarse), real=True), coarse)
     return min(nps, n), nps >= fine
