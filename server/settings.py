@@ -70,6 +70,32 @@ class Settings(BaseSettings):
                                            description="per-site IANA zones by site name, JSON object")
     simulated_data: bool = Field(default=False, description="label the dashboard: the plant is simulated")
 
+    # operations: heartbeats, readiness and metrics (server/ops, server/metrics.py)
+    heartbeat_s: float = Field(default=10.0, gt=0, description="seconds between heartbeats")
+    ready_max_heartbeat_age_s: float = Field(default=60.0, gt=0,
+                                             description="/readyz fails when no worker beat within this")
+    metrics_token: SecretStr = Field(default=SecretStr(""), description="if set, /metrics needs it")
+
+    # MQTT bridge (halfwatch mqtt-bridge, server/mqtt)
+    mqtt_host: str = "127.0.0.1"
+    mqtt_port: int = Field(default=1883, ge=1, le=65535)
+    mqtt_client_id: str = Field(default="halfwatch-bridge", min_length=1, max_length=120,
+                                description="stable id: the broker keeps its session")
+    mqtt_topic: str = Field(default="halfwatch/{site}/{point_id}/records",
+                            description="topic rule; {site}, {asset}, {point}, {point_id} are whole levels")
+    mqtt_reply_topic: str = Field(default="{topic}/reply", description="replies go here")
+    mqtt_reply_accepted: bool = Field(default=True, description="also publish a reply for stored records")
+    mqtt_username: str = ""
+    mqtt_password: SecretStr = SecretStr("")
+    mqtt_tls: bool = False
+    mqtt_ca_file: str = Field(default="", description="CA bundle for the broker's certificate (TLS)")
+    mqtt_cert_file: str = Field(default="", description="client certificate (TLS client authentication)")
+    mqtt_key_file: str = ""
+    mqtt_tls_insecure: bool = Field(default=False, description="skip host name check")
+    mqtt_keepalive_s: int = Field(default=30, ge=5, le=3600)
+    mqtt_reconnect_min_s: float = Field(default=1.0, gt=0)
+    mqtt_reconnect_max_s: float = Field(default=60.0, gt=0)
+
     # Argon2id password hashing (tests set these low)
     argon2_time_cost: int = Field(default=3, ge=1)
     argon2_memory_cost_kib: int = Field(default=65536, ge=8)
