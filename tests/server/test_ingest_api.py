@@ -8,10 +8,10 @@ import hashlib
 import numpy as np
 import pytest
 from sqlalchemy import func, select
+from support.signals import tone_record
 
 from server.storage import blobs
 from server.storage.tables import Job, Record, Waveform
-from support.signals import tone_record
 
 T0 = "2026-03-02T08:00:00Z"
 
@@ -90,7 +90,8 @@ def test_json_base64_and_list_forms(client, plant, plant_key_headers, rng):
     ({"measured_at": "yesterday"}, "measured_at", 422),
     ({"speed_hz": -3}, "speed_hz", 400),
 ])
-def test_bad_metadata_is_a_clear_4xx(client, plant, plant_key_headers, rng, params, field, status, migrated_db):
+def test_bad_metadata_is_a_clear_4xx(client, plant, plant_key_headers, rng, params, field, status,
+                                     migrated_db):
     r = post_raw(client, plant.point_id, tone_record(rng, n=2048), plant_key_headers, **params)
     err = assert_error_shape(r, status, field)
     assert field.split("_")[0] in err["message"].lower() or field in err["message"]
@@ -119,12 +120,12 @@ def test_unknown_point_and_other_site(client, plant, plant_key_headers, rng):
 
 def test_limits_from_settings(tmp_path, rng):
     from fastapi.testclient import TestClient
+    from support.fixtures import settings_for
+    from support.plant import make_plant
 
     from server.app import create_app
     from server.migrations import upgrade
     from server.services.users import create_api_key
-    from support.fixtures import settings_for
-    from support.plant import make_plant
 
     settings = settings_for(tmp_path, max_body_bytes=40_000, max_samples=8000)
     upgrade(settings.database_url)

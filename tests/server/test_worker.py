@@ -10,6 +10,9 @@ import json
 
 import pytest
 from sqlalchemy import func, select, update
+from support.fixtures import settings_for
+from support.plant import make_plant
+from support.signals import tone_record
 
 from server import worker
 from server.migrations import upgrade
@@ -17,9 +20,6 @@ from server.services.ingest import ingest_record
 from server.services.jobs import requeue_since
 from server.storage import Database
 from server.storage.tables import Job, Result, Waveform
-from support.fixtures import settings_for
-from support.plant import make_plant
-from support.signals import tone_record
 
 T0 = dt.datetime(2026, 3, 2, 8, 0, tzinfo=dt.UTC)
 

@@ -38,12 +38,36 @@ def hw_settings(tmp_path):
     return settings_for(tmp_path)
 
 
-@pytest.fixture
-def migrated_db(hw_settings):
+@pytest.fixture(scope="session")
+def migrated_template(tmp_path_factory):
+    """A SQLite file migrated once per session; each test gets its own copy (fast and isolated)."""
     from server.migrations import upgrade
+
+    path = tmp_path_factory.mktemp("template") / "halfwatch.db"
+    upgrade(f"sqlite:///{path.as_posix()}")
+    return path
+
+
+def migrate(settings, template=None) -> None:
+    """Bring the settings' database to the newest schema (copying the session template for SQLite)."""
+    import shutil
+
+    from server.migrations import upgrade
+
+    if template is not None and settings.is_sqlite:
+        target = settings.data_dir / "halfwatch.db"
+        if settings.database_url == f"sqlite:///{target.as_posix()}" and not target.exists():
+            target.parent.mkdir(parents=True, exist_ok=True)
+            shutil.copyfile(template, target)
+            return
+    upgrade(settings.database_url)
+
+
+@pytest.fixture
+def migrated_db(hw_settings, migrated_template):
     from server.storage import Database
 
-    upgrade(hw_settings.database_url)
+    migrate(hw_settings, migrated_template)
     db = Database(hw_settings.database_url)
     yield db
     db.dispose()
