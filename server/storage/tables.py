@@ -66,7 +66,7 @@ MACHINE_KINDS = ("pump", "fan", "compressor", "gearbox", "reciprocating_compress
 FORCING_KINDS = ("shaft", "stroke", "mesh", "other")
 FOUNDATIONS = ("rigid", "flexible")
 UNITS = ("g", "m/s2", "mm/s2")  # acceleration, as the analysis core accepts them
-ORIGINS = ("api", "upload", "route", "other")
+ORIGINS = ("api", "upload", "route", "mqtt", "other")
 ROLES = ("viewer", "technician", "engineer", "admin")
 JOB_STATES = ("queued", "running", "done", "failed")
 
