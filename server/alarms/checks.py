@@ -11,9 +11,10 @@ from __future__ import annotations
 import math
 import statistics
 
-# Flags of the measurement chain that make a record unfit for machine alarms. Other flags (for
-# example "too-short-for-resolution") are shown but do not block the rules.
+# Flags of the measurement chain that make a record unfit for machine alarms. A record the analysis
+# marks not ok is unfit too, unless its only flags are notes such as "too-short-for-resolution".
 BLOCKING_FLAGS = ("flat-line", "clipping", "dc-jump", "impulsive")
+NOTE_FLAGS = ("too-short-for-resolution",)
 FLAG_WORDS = {
     "flat-line": "flat line (sensor or cable fault)",
     "clipping": "clipping (input range exceeded)",
@@ -40,7 +41,7 @@ def data_quality_problem(
     bad = [f for f in flags if f in BLOCKING_FLAGS]
     if bad:
         return "bad data: " + ", ".join(FLAG_WORDS.get(f, f) for f in bad)
-    if quality.get("ok") is False:
+    if quality.get("ok") is False and (not flags or any(f not in NOTE_FLAGS for f in flags)):
         return "bad data: " + (", ".join(flags) or "the analysis marked the record unfit")
     speed = (result.get("forcing") or {}).get("frequency_hz")
     if not isinstance(speed, (int, float)) or not math.isfinite(speed) or speed <= 0:

@@ -45,7 +45,7 @@ class MetricInfo:
 
 
 METRICS: dict[str, MetricInfo] = {
-    "half_order_velocity": MetricInfo("half-order velocity", "mm/s"),
+    "half_order_velocity": MetricInfo("half-order velocity", "mm/s r.m.s."),
     "half_order_amplitude": MetricInfo("half-order amplitude (record units)", ""),
     "half_order_ratio": MetricInfo("half-order / 1X ratio", ""),
     "growth_rate": MetricInfo("within-record growth rate", "1/s"),
@@ -53,8 +53,8 @@ METRICS: dict[str, MetricInfo] = {
     "time_to_limit_days": MetricInfo("forecast time to the danger level", "days", "below"),
     "overall_velocity": MetricInfo("overall velocity r.m.s. (ISO 20816 zone)", "mm/s"),
     "threshold_margin": MetricInfo("margin to the instability threshold", "", "below"),
-    "order_1x_velocity": MetricInfo("1X velocity", "mm/s"),
-    "order_2x_velocity": MetricInfo("2X velocity", "mm/s"),
+    "order_1x_velocity": MetricInfo("1X velocity", "mm/s r.m.s."),
+    "order_2x_velocity": MetricInfo("2X velocity", "mm/s r.m.s."),
     "crest_factor": MetricInfo("crest factor", ""),
 }
 
@@ -159,10 +159,17 @@ def _num(value) -> float | None:
     return float(value) if _finite(value) else None
 
 
+def _rms(peak) -> float | None:
+    """Line velocities in the analysis JSON are sine peaks; rules compare r.m.s. (peak / sqrt 2)."""
+    value = _num(peak)
+    return None if value is None else value / math.sqrt(2.0)
+
+
 def result_metrics(result: dict) -> dict[str, float | None]:
     """Metrics that come straight from one analysis result (``RecordAnalysis.to_dict()``).
 
     ``None`` means "this reading says nothing about the metric" (it neither raises nor clears).
+    Line velocities are turned from peak into r.m.s., the measure of the ISO zones.
     """
     sub = result.get("subharmonic") or {}
     orders = result.get("orders") or {}
@@ -173,7 +180,7 @@ def result_metrics(result: dict) -> dict[str, float | None]:
     waveform = result.get("waveform") or {}
     detected = bool(sub.get("detected"))
 
-    half_v = _num(sub.get("velocity_mm_s")) if detected else 0.0
+    half_v = _rms(sub.get("velocity_mm_s")) if detected else 0.0
     half_a = _num(sub.get("amplitude")) if detected else 0.0
     ratio = None
     one_x_amp = _num(one_x.get("amplitude"))
@@ -188,8 +195,8 @@ def result_metrics(result: dict) -> dict[str, float | None]:
         "half_order_ratio": ratio,
         "growth_rate": significant_growth(growth),
         "overall_velocity": _num(overall.get("velocity_rms_mm_s")),
-        "order_1x_velocity": _num(one_x.get("velocity_mm_s")),
-        "order_2x_velocity": _num(two_x.get("velocity_mm_s")),
+        "order_1x_velocity": _rms(one_x.get("velocity_mm_s")),
+        "order_2x_velocity": _rms(two_x.get("velocity_mm_s")),
         "crest_factor": _num(waveform.get("crest_factor")),
     }
 

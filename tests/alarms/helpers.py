@@ -19,18 +19,21 @@ def make_result(*, half_v: float = 0.0, f1x: float = 24.75, one_x_v: float = 20.
         "subharmonic": {"detected": detected, "class": klass if detected else "none",
                         "frequency_hz": f1x / 2 if detected else None, "order": 0.5 if detected else None,
                         "amplitude": half_v * 0.1 if detected else None,
-                        "velocity_mm_s": half_v if detected else None, "snr_db": 20.0 if detected else None,
+                        # the JSON carries line velocities as sine peaks
+                        "velocity_mm_s": half_v * SQRT2 if detected else None,
+                        "snr_db": 20.0 if detected else None,
                         "family": family or {"1.5X": None, "2.5X": None}},
         "growth": {"rate_per_s": growth, "ci95_per_s": list(ci) if ci else [None, None], "onset_s": None,
                    "state": "growing" if growth and ci and ci[0] > 0 else "steady"},
         "overall": {"velocity_rms_mm_s": overall, "zone": zone, "zone_limits_mm_s": list(zone_limits)},
-        "orders": {"1X": {"frequency_hz": f1x, "amplitude": one_x_v * 0.1, "velocity_mm_s": one_x_v},
+        "orders": {"1X": {"frequency_hz": f1x, "amplitude": one_x_v * 0.1, "velocity_mm_s": one_x_v * SQRT2},
                    "2X": {"frequency_hz": 2 * f1x, "amplitude": 0.01, "velocity_mm_s": 0.2}},
         "waveform": {"rms": 1.0, "peak": 3.0, "crest_factor": 3.0, "kurtosis": 3.0},
         "quality": {"ok": ok, "flags": list(flags)},
     }
 
 
+SQRT2 = 2 ** 0.5
 T0 = dt.datetime(2026, 11, 2, 6, 0, tzinfo=dt.UTC)
 
 

@@ -82,7 +82,8 @@ def test_result_metrics_from_analysis_json():
         "overall": {"velocity_rms_mm_s": 5.1},
     }
     m = result_metrics(result)
-    assert m["half_order_velocity"] == 3.2 and m["half_order_ratio"] == pytest.approx(0.25)
+    # Line velocities in the JSON are sine peaks; the rules use r.m.s. = peak / sqrt(2) (sine law).
+    assert m["half_order_velocity"] == pytest.approx(3.2 / np.sqrt(2)) and m["half_order_ratio"] == 0.25
     assert m["growth_rate"] == 0.9 and m["overall_velocity"] == 5.1
     calm = result_metrics({"subharmonic": {"detected": False, "velocity_mm_s": 9.0}})
     assert calm["half_order_velocity"] == 0.0 and calm["half_order_ratio"] == 0.0

@@ -46,7 +46,7 @@ def test_escalation_sends_exactly_one_email_with_the_finding(feeder, plant, migr
     assert msg["Subject"].startswith("[halfwatch] ALERT: CW pump 1 / P1-DE-H")
     text = msg.get_body(preferencelist=("plain",)).get_content()
     html = msg.get_body(preferencelist=("html",)).get_content()
-    assert "half-order component at 12.4 Hz (0.50X), 1.6 mm/s, growing 0.9 /s" in text
+    assert "half-order component at 12.4 Hz (0.50X), 1.6 mm/s r.m.s., growing 0.9 /s" in text
     assert "zone C" in text
     assert "half-order 1.5 -> 1.6 mm/s (+7%)" in text  # change since the last reading
     assert "Forecast:" in text and "danger level" in text
