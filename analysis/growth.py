@@ -81,15 +81,22 @@ def _f99(dof: int) -> float:
 
 
 def ols(t: np.ndarray, y: np.ndarray) -> tuple[float, float, float]:
-    """Ordinary least squares y = c + λt: returns (λ, c, standard error of λ)."""
+    """Ordinary least squares y = c + λt: returns (λ, c, standard error of λ).
+
+    The standard error is the larger of the classical one and the HC3 heteroscedasticity-consistent one
+    (MacKinnon & White 1985): the log-envelope scatters most where the line is weakest, at the start of a
+    growing record, and the classical formula would then claim too narrow an interval.
+    """
     n = len(t)
     tm, ym = float(t.mean()), float(y.mean())
     dt, dy = t - tm, y - ym
     sxx = float(np.dot(dt, dt))
     slope = float(np.dot(dt, dy)) / sxx
     resid = dy - slope * dt
-    stderr = float(np.sqrt(np.dot(resid, resid) / max(n - 2, 1) / sxx))
-    return slope, ym - slope * tm, stderr
+    var_classic = float(np.dot(resid, resid)) / max(n - 2, 1) / sxx
+    lev = 1.0 / n + dt * dt / sxx
+    var_hc3 = float(np.sum((dt * resid / (1.0 - np.minimum(lev, 0.999))) ** 2)) / (sxx * sxx)
+    return slope, ym - slope * tm, float(np.sqrt(max(var_classic, var_hc3)))
 
 
 def _prefix_line_sse(t: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -227,7 +234,8 @@ def estimate_growth(
     rate0 = ols(t_blk[r0:r1], np.log(blk[r0:r1]))[0]
     first, henv = _hilbert_envelope(y, i0, i1, fs, float(rate0), int(np.ceil(2.0 / b * fs)))
     idx = np.arange(i0 + n_block // 2, i1, n_block)
-    e = henv[idx - first]
+    # pitfall P3: E|z|² = A² + 2σ_b² for a line in band noise, so remove the floor's share of the power
+    e = np.sqrt(np.maximum(henv[idx - first] ** 2 - 2.0 * noise_var, 0.0))
     t = idx / fs
     good = e > 0
     t, e = t[good], e[good]
@@ -251,6 +259,7 @@ def estimate_growth(
         band_hz=(lo, hi),
         n_points=len(t),
         note="envelope levels off after the fit window" if levelled else "",
+        end_amplitude=float(np.exp(intercept + slope * i1 / fs)),
     )
     return g, env_t, env
 

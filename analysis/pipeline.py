@@ -102,6 +102,9 @@ def analyze_record(
     exclude = [orders["1X"].frequency_hz or f1, orders["2X"].frequency_hz or 2 * f1]
     if sub.detected:
         exclude.append(sub.frequency_hz)
+        exclude += [
+            mult * f1 for name, mult in (("1.5X", 1.5), ("2.5X", 2.5)) if sub.family.get(name) is not None
+        ]
     tones = other_tones(spec, f1, pfa, exclude)
 
     line_hz = [t.frequency_hz for t in tones] + exclude[:2]

@@ -122,10 +122,20 @@ class Growth:
     band_hz: tuple[float | None, float | None] = (None, None)
     n_points: int = 0
     note: str = ""
+    end_amplitude: float | None = None  # fitted envelope (peak, input units) at the end of the fit window
+
+    @property
+    def doubling_time_s(self) -> float | None:
+        """ln 2 / λ for a growing line."""
+        if self.state != "growing" or not self.rate_per_s:
+            return None
+        return math.log(2.0) / self.rate_per_s
 
     def to_dict(self) -> dict:
         return {
             "rate_per_s": _num(self.rate_per_s),
+            "doubling_time_s": _num(self.doubling_time_s),
+            "end_amplitude": _num(self.end_amplitude),
             "ci95_per_s": [_num(v) for v in self.ci95_per_s],
             "onset_s": _num(self.onset_s),
             "state": self.state,

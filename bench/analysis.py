@@ -92,9 +92,7 @@ def main() -> None:
             f"| {mem_ours:.1f}x | {mem_naive:.1f}x |"
         )
     print()
-    print(
-        f"load average: {os.getloadavg()[0]:.2f} (2 cores; above ~1 other work shares the machine)"
-    )
+    print(f"load average: {os.getloadavg()[0]:.2f} (2 cores; above ~1 other work shares the machine)")
 
 
 if __name__ == "__main__":

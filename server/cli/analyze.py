@@ -65,6 +65,14 @@ def summary(d: dict) -> str:
         if g["state"] != "not-estimated":
             lo, hi = g["ci95_per_s"]
             text += f", {g['state']} {g['rate_per_s']:.2g} /s [{lo:.2g}, {hi:.2g}]"
+            if g["state"] == "growing" and g["end_amplitude"] is not None:
+                from analysis.conditioning import velocity_mm_s
+
+                v_end = velocity_mm_s(g["end_amplitude"], s["frequency_hz"], d["units"])
+                text += (
+                    f" (doubling in {g['doubling_time_s']:.2g} s; {v_end:.2g} mm/s peak "
+                    f"at {g['fit_window_s'][1]:.1f} s)"
+                )
             if g["onset_s"] is not None:
                 text += f", onset near {g['onset_s']:.1f} s"
         else:

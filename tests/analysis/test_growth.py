@@ -32,16 +32,36 @@ def test_growth_rate_within_3pct_and_ci_coverage_at_30db():
 
 
 def test_ols_matches_scipy_linregress(rng):
-    # reference: scipy.stats.linregress slope, intercept and stderr
-    t = np.sort(rng.uniform(0, 10, 50))
-    y = 0.3 + 0.07 * t + 0.1 * rng.standard_normal(50)
+    # reference: scipy.stats.linregress slope and intercept; the standard error is never below
+    # linregress's classical one, and for homoscedastic data the HC3 form (MacKinnon & White 1985) stays
+    # close to it
+    t = np.sort(rng.uniform(0, 10, 200))
+    y = 0.3 + 0.07 * t + 0.1 * rng.standard_normal(200)
     slope, intercept, stderr = ols(t, y)
     ref = stats.linregress(t, y)
-    assert (slope, intercept, stderr) == (
-        pytest.approx(ref.slope, rel=1e-12),
-        pytest.approx(ref.intercept, rel=1e-12),
-        pytest.approx(ref.stderr, rel=1e-12),
-    )
+    assert slope == pytest.approx(ref.slope, rel=1e-12)
+    assert intercept == pytest.approx(ref.intercept, rel=1e-12)
+    assert ref.stderr * (1 - 1e-12) <= stderr <= 1.25 * ref.stderr
+
+
+def test_growth_interval_coverage_when_snr_rises_through_the_window():
+    # the line emerges from the floor at ~8 dB and grows 40 dB within the fit window, so the log-envelope
+    # scatter shrinks along it; the 95 % interval must still cover the truth (λ used to synthesise the
+    # record) in >= 90 % of seeded trials
+    fs, f1, lam, seconds = 2560.0, 29.6, 0.25, 40.0
+    t = np.arange(int(fs * seconds)) / fs
+    covered, rates = 0, []
+    for seed in range(30):
+        rng = np.random.default_rng(100 + seed)
+        tone = 0.025 * np.exp(lam * (t - seconds)) * np.sin(np.pi * f1 * t + rng.uniform(0, 2 * np.pi))
+        x = 0.07 * np.sin(2 * np.pi * f1 * t) + tone + 0.003 * rng.standard_normal(len(t))
+        g = analyze_record(x, fs, forcing_hz=f1).growth
+        rates.append(g.rate_per_s)
+        covered += g.ci95_per_s[0] <= lam <= g.ci95_per_s[1]
+        t1 = g.fit_window_s[1]  # fitted envelope at the end of the window vs the synthesised amplitude
+        assert g.end_amplitude == pytest.approx(0.025 * np.exp(lam * (t1 - seconds)), rel=0.1)
+    assert covered / 30 >= 0.9
+    assert np.mean(rates) == pytest.approx(lam, rel=0.01)
 
 
 def test_saturating_growth_fits_the_exponential_stage_only(rng):
