@@ -1,0 +1,174 @@
+"""Read-side queries behind the dashboard charts (no router here; see server/routes/dashboard.py).
+
+* :func:`point_series`: several result metrics of one point over a period, bucketed in SQL to at most
+  ``max_points`` buckets (min, max and mean of each), so a year of hourly readings stays one small answer.
+* :func:`asset_sparks`: a small half-order trend per asset for the plant overview (max per bucket).
+* :func:`trend_forecast`: the trend fit of the half-order velocity and its forecast to the danger level,
+  from :func:`analysis.trend.fit_trend`, with the forecast line and its 90 % crossing interval.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import math
+
+from sqlalchemy import Float, Integer, cast, func, literal_column, select
+
+from server.storage.queries import iso
+from server.storage.tables import Point, Result
+
+#: series name -> (label, unit) as the charts show them
+SERIES = {
+    "half_velocity": ("half-order velocity", "mm/s"),
+    "one_x_velocity": ("1X velocity", "mm/s"),
+    "ratio": ("half-order / 1X amplitude", "ratio"),
+    "overall": ("overall velocity r.m.s.", "mm/s"),
+    "growth": ("within-record growth rate", "1/s"),
+    "forcing": ("forcing frequency (1X)", "Hz"),
+}
+
+
+def json_number(dialect: str, *path: str):
+    """A number inside the result JSON (``data``), read in SQL."""
+    if dialect == "postgresql":
+        from sqlalchemy.dialects.postgresql import JSONB
+
+        arr = literal_column("'{" + ",".join(path) + "}'")
+        return cast(cast(Result.data, JSONB).op("#>>")(arr), Float)
+    return func.json_extract(Result.data, "$." + ".".join(f'"{p}"' for p in path))
+
+
+def _columns(dialect: str) -> dict:
+    one_x_amp = json_number(dialect, "orders", "1X", "amplitude")
+    return {
+        "half_velocity": Result.sub_velocity_mm_s,
+        "one_x_velocity": json_number(dialect, "orders", "1X", "velocity_mm_s"),
+        "ratio": Result.sub_amplitude / func.nullif(one_x_amp, 0),
+        "overall": Result.overall_velocity_rms_mm_s,
+        "growth": Result.growth_rate_per_s,
+        "forcing": Result.forcing_hz,
+    }
+
+
+def _ts(x: float | None) -> str | None:
+    return None if x is None else iso(dt.datetime.fromtimestamp(float(x), dt.UTC))
+
+
+def _num(x) -> float | None:
+    if x is None:
+        return None
+    x = float(x)
+    return x if math.isfinite(x) else None
+
+
+def point_series(s, point_id: int, t0: dt.datetime, t1: dt.datetime, max_points: int) -> dict:
+    a, b = t0.timestamp(), t1.timestamp()
+    dialect = s.bind.dialect.name
+    cols = _columns(dialect)
+    scope = (Result.point_id == point_id, Result.current.is_(True), Result.measured_ts >= a,
+             Result.measured_ts <= b)
+    n = s.scalar(select(func.count()).where(*scope)) or 0
+    names = list(cols)
+    if n <= max_points:
+        rows = s.execute(select(Result.measured_ts, Result.sub_detected, Result.record_id, *cols.values())
+                         .where(*scope).order_by(Result.measured_ts)).all()
+        out = {"bucketed": False, "n_source": n, "t": [_ts(r[0]) for r in rows],
+               "detected": [bool(r[1]) for r in rows], "record_id": [r[2] for r in rows]}
+        for i, name in enumerate(names):
+            out[name] = {"mean": [_num(r[3 + i]) for r in rows]}
+        return out
+    width = (b - a) * (1 + 1e-9) / max_points
+    pos = (Result.measured_ts - a) / width
+    bucket = (func.floor(pos) if dialect == "postgresql" else cast(pos, Integer)).label("k")
+    aggregates = []
+    for col in cols.values():
+        aggregates += [func.min(col), func.max(col), func.avg(cast(col, Float))]
+    rows = s.execute(select(bucket, func.min(Result.measured_ts), func.max(Result.measured_ts), func.count(),
+                            func.max(cast(Result.sub_detected, Integer)), *aggregates)
+                     .where(*scope).group_by(bucket).order_by(bucket)).all()
+    out = {"bucketed": True, "n_source": n, "t": [_ts((r[1] + r[2]) / 2) for r in rows],
+           "count": [int(r[3]) for r in rows], "detected": [bool(r[4]) for r in rows]}
+    for i, name in enumerate(names):
+        j = 5 + 3 * i
+        out[name] = {"min": [_num(r[j]) for r in rows], "max": [_num(r[j + 1]) for r in rows],
+                     "mean": [_num(r[j + 2]) for r in rows]}
+    return out
+
+
+def asset_sparks(s, points: list[Point], *, days: float = 30.0, buckets: int = 30,
+                 now: dt.datetime | None = None) -> dict[int, list[float | None]]:
+    """Per asset: the largest half-order velocity of its points in each of ``buckets`` periods."""
+    now = now or dt.datetime.now(dt.UTC)
+    b = now.timestamp()
+    a = b - days * 86400.0
+    asset_of = {p.id: p.asset_id for p in points}
+    if not asset_of:
+        return {}
+    width = (b - a) * (1 + 1e-9) / buckets
+    pos = (Result.measured_ts - a) / width
+    dialect = s.bind.dialect.name
+    bucket = (func.floor(pos) if dialect == "postgresql" else cast(pos, Integer)).label("k")
+    rows = s.execute(select(Result.point_id, bucket, func.max(Result.sub_velocity_mm_s))
+                     .where(Result.point_id.in_(list(asset_of)), Result.current.is_(True),
+                            Result.measured_ts >= a, Result.measured_ts <= b)
+                     .group_by(Result.point_id, bucket)).all()
+    out: dict[int, list[float | None]] = {}
+    for pid, k, v in rows:
+        series = out.setdefault(asset_of[pid], [None] * buckets)
+        k = min(int(k), buckets - 1)
+        if v is not None and (series[k] is None or v > series[k]):
+            series[k] = float(v)
+    return out
+
+
+def trend_forecast(s, point_id: int, t0: dt.datetime, t1: dt.datetime, limit: float | None,
+                   *, max_rows: int = 3000) -> dict:
+    """Trend fit of the half-order velocity over the period and its forecast to ``limit`` (mm/s)."""
+    try:
+        from analysis.trend import fit_trend
+    except ImportError:  # the trend module is part of the analysis package; guard for partial installs
+        return {"status": "unavailable", "message": "the trend fit is not installed"}
+    rows = s.execute(select(Result.measured_ts, Result.sub_velocity_mm_s, Result.forcing_hz)
+                     .where(Result.point_id == point_id, Result.current.is_(True),
+                            Result.measured_ts >= t0.timestamp(), Result.measured_ts <= t1.timestamp(),
+                            Result.sub_detected.is_(True))
+                     .order_by(Result.measured_ts.desc()).limit(max_rows)).all()
+    rows.reverse()
+    days = [r[0] / 86400.0 for r in rows]
+    amps = [math.nan if r[1] is None else r[1] for r in rows]
+    speeds = [math.nan if r[2] is None else r[2] for r in rows]
+    fit = fit_trend(days, amps, limit=limit, speed_hz=speeds if any(map(math.isfinite, speeds)) else None)
+    d = fit.to_dict()
+    out = {k: d.get(k) for k in ("status", "message", "model", "n_used", "n_total", "growth_db_per_day",
+                                 "growth_db_per_day_lo", "growth_db_per_day_hi", "doubling_days",
+                                 "days_to_limit", "days_to_limit_lo", "days_to_limit_hi", "limit",
+                                 "onset_iso", "limit_iso")}
+    band = d.get("band") or {}
+    if band.get("days"):
+        out["band"] = {"t": [_ts(x * 86400.0) for x in band["days"]], "fit": band["fit"], "lo": band["lo"],
+                       "hi": band["hi"]}
+        out["forecast"] = _forecast_line(d, band)
+    return out
+
+
+def _forecast_line(d: dict, band: dict) -> dict | None:
+    """From the last fitted value to the limit: the mean line and the 90 % interval of the crossing."""
+    days_to = d.get("days_to_limit")
+    limit = d.get("limit")
+    if d.get("status") != "forecast" or days_to is None or limit is None:
+        return None
+    last_day, last_fit = band["days"][-1], band["fit"][-1]
+    rate, slope = d.get("growth_per_day"), d.get("slope_per_day")
+    grid = [last_day + days_to * i / 20.0 for i in range(21)]
+    if rate is not None:
+        line = [last_fit * math.exp(rate * (x - last_day)) for x in grid]
+    elif slope is not None:
+        line = [last_fit + slope * (x - last_day) for x in grid]
+    else:
+        return None
+    lo, hi = d.get("days_to_limit_lo"), d.get("days_to_limit_hi")
+    return {"t": [_ts(x * 86400.0) for x in grid], "value": line,
+            "cross": _ts((last_day + days_to) * 86400.0),
+            "cross_lo": None if lo is None else _ts((last_day + lo) * 86400.0),
+            "cross_hi": None if hi is None else _ts((last_day + hi) * 86400.0),
+            "from": _ts(last_day * 86400.0), "from_value": last_fit}

@@ -1,0 +1,174 @@
+"""Browser tests: a real uvicorn on 127.0.0.1 serving a seeded database, driven by headless Chromium.
+
+Chromium is the system's (``/usr/bin/chromium``; Playwright never downloads a browser). Without it the
+tests skip with a message, except under ``CI=true``, where a missing browser is a failure. Launch flags
+include the host-resolver rule that keeps Chromium from looking up any name off this machine, and the
+tests only ever navigate to 127.0.0.1.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import os
+import shutil
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import pytest
+from support.fixtures import PASSWORD, ROLES, settings_for
+from support.plant import Plant, make_plant
+from support.servers import serve_in_thread
+from support.signals import tone_record
+
+CHROMIUM = "/usr/bin/chromium"
+CHROMIUM_ARGS = [
+    "--headless", "--no-sandbox", "--disable-gpu", "--disable-dev-shm-usage",
+    "--disable-background-networking", "--disable-component-update", "--disable-sync",
+    "--no-first-run", "--disable-quic",
+    "--host-resolver-rules=MAP * ~NOTFOUND, EXCLUDE 127.0.0.1, EXCLUDE localhost",
+]
+# --- the seeded plant: the shared test plant plus readings analysed by the real worker. The drive-end
+# point of the pump gets a half-order line growing from reading to reading (detected, alarmed, trended);
+# the other points stay healthy. Signals are made with numpy (support.signals), invented for the test.
+FS_HZ = 2560.0
+N = 16384
+PUMP_HZ = 24.75
+
+
+@dataclass
+class Seeded:
+    plant: Plant
+    record_ids: dict[str, list[int]] = field(default_factory=dict)
+
+    @property
+    def growing_point(self) -> int:
+        return self.plant.point_ids["P1-DE-H"]
+
+    @property
+    def last_growing_record(self) -> int:
+        return self.record_ids["P1-DE-H"][-1]
+
+
+def seed(db, settings, *, days: int = 12, now: dt.datetime | None = None) -> Seeded:
+    from server.services.ingest import ingest_record
+    from server.worker import run_once
+
+    plant = make_plant(db)
+    now = now or dt.datetime.now(dt.UTC)
+    rng = np.random.default_rng(20261201)
+    out = Seeded(plant)
+    for name, pid in plant.point_ids.items():
+        ids = []
+        for day in range(days):
+            t = now - dt.timedelta(days=days - day, hours=-2)
+            if name == "P1-DE-H":
+                half = 0.01 * 1.4 ** day  # m/s2; grows 40 % a day (invented for the test)
+                x = tone_record(rng, fs_hz=FS_HZ, n=N, forcing_hz=PUMP_HZ, amp_1x=0.3, amp_half=half,
+                                growth_per_s=0.03)
+                speed = PUMP_HZ
+            elif name == "C2-CYL-A":
+                x = tone_record(rng, fs_hz=FS_HZ * 2, n=N, forcing_hz=25.0, amp_1x=0.8)
+                speed = 12.5
+            else:
+                scale = 9.80665 if name.endswith("-V") else 1.0  # that point records in g
+                x = tone_record(rng, fs_hz=FS_HZ, n=N, forcing_hz=PUMP_HZ, amp_1x=0.25) / scale
+                speed = PUMP_HZ
+            fs = FS_HZ * 2 if name == "C2-CYL-A" else FS_HZ
+            units = "g" if name.endswith("-V") else "m/s2"
+            o = ingest_record(db, point_id=pid, samples=x, fs_hz=fs, units=units, measured_at=t,
+                              speed_hz=speed,
+                              speed_source="tachometer", origin="api", uploader="test:seed")
+            ids.append(o.record_id)
+        out.record_ids[name] = ids
+    while run_once(db, settings):
+        pass
+    return out
+
+
+ARTIFACTS = Path(__file__).resolve().parents[2] / "test-artifacts" / "screenshots"
+
+
+def chromium_path() -> str | None:
+    if Path(CHROMIUM).exists():
+        return CHROMIUM
+    return shutil.which("chromium")
+
+
+@pytest.fixture(scope="session")
+def browser():
+    path = chromium_path()
+    if path is None:
+        if os.environ.get("CI", "").lower() == "true":
+            pytest.fail(f"CI=true but no Chromium at {CHROMIUM}: install the system package 'chromium'")
+        pytest.skip(f"no Chromium found at {CHROMIUM}; install the 'chromium' package to run browser tests")
+    from playwright.sync_api import sync_playwright
+
+    with sync_playwright() as p:
+        b = p.chromium.launch(executable_path=path, headless=True, args=CHROMIUM_ARGS, timeout=30_000)
+        yield b
+        b.close()
+
+
+@pytest.fixture(scope="module")
+def site(tmp_path_factory):
+    """A migrated database with the seeded plant and users, served by uvicorn with the worker inside."""
+    from server.app import create_app
+    from server.migrations import upgrade
+    from server.services.users import add_user
+    from server.storage import Database
+
+    tmp = tmp_path_factory.mktemp("web")
+    settings = settings_for(tmp, embedded_worker=True, site_timezone="Europe/Berlin", simulated_data=True)
+    upgrade(settings.database_url)
+    db = Database(settings.database_url)
+    seeded = seed(db, settings)
+    db.dispose()
+    app = create_app(settings)
+    for role in ROLES:
+        add_user(app.state.db, settings, username=f"{role}1", password=PASSWORD, role=role,
+                 email=f"{role}1@example.test", hashing=app.state.passwords)
+    with serve_in_thread(app) as base:
+        yield Site(base, app, seeded, settings)
+
+
+class Site:
+    def __init__(self, base, app, seeded, settings):
+        self.base, self.app, self.seeded, self.settings = base, app, seeded, settings
+
+    @property
+    def db(self):
+        return self.app.state.db
+
+
+@pytest.fixture
+def login(browser, site):
+    """login(role) -> a Playwright page logged in as that role (through the login form)."""
+    contexts = []
+
+    def _login(role: str, *, viewport=(1280, 900)):
+        ctx = browser.new_context(viewport={"width": viewport[0], "height": viewport[1]},
+                                  timezone_id="UTC", locale="en-GB")
+        contexts.append(ctx)
+        page = ctx.new_page()
+        errors = []
+        page.on("pageerror", lambda e: errors.append(str(e)))
+        page.on("console", lambda m: errors.append(m.text) if m.type == "error" else None)
+        page.js_errors = errors
+        page.goto(f"{site.base}/login")
+        page.fill("#username", f"{role}1")
+        page.fill("#password", PASSWORD)
+        page.click("button[type=submit]")
+        page.wait_for_url(f"{site.base}/")
+        return page
+
+    yield _login
+    for ctx in contexts:
+        ctx.close()
+
+
+def shot(page, name: str) -> Path:
+    ARTIFACTS.mkdir(parents=True, exist_ok=True)
+    path = ARTIFACTS / f"{name}.png"
+    page.screenshot(path=str(path), full_page=True)
+    return path

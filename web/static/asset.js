@@ -1,0 +1,209 @@
+/* Machine page: the points of one asset; trends over a chosen period (half-order, 1X, ratio, overall with
+   ISO 20816 zones, growth rate, speed); trend fit and forecast to the danger level with its uncertainty;
+   alarm states and history; recent readings. The server buckets long periods (min, max, mean per bucket). */
+"use strict";
+(function () {
+  const { el, $ } = HW;
+  const root = () => $("#asset-root");
+  let asset = null, tz = "UTC", point = null;
+
+  function periodQuery() {
+    const p = $("#period").value;
+    if (p !== "custom") {
+      const end = new Date();
+      return { start: new Date(end - Number(p) * 86400e3).toISOString(), end: end.toISOString() };
+    }
+    const s = $("#start").value, e = $("#end").value;
+    if (!s || !e) throw new HW.ApiError(0, "invalid", "give both dates of the period", "start");
+    return { start: HW.fromWall(s + "T00:00", tz), end: HW.fromWall(e + "T23:59", tz) };
+  }
+
+  const xaxis = () => ({ title: { text: `time (${tz})` }, type: "date" });
+
+  function pointMarkers(d) {
+    if (d.bucketed) return {};
+    return { marker: { size: 7, symbol: d.detected.map((x) => (x ? "diamond" : "circle-open")) },
+      customdata: d.record_id, hovertemplate: "%{y:.3g}<br>%{x}<br>reading %{customdata}<extra></extra>" };
+  }
+
+  function seriesTraces(d, x, key, name, color, unit) {
+    const tr = HW.bandTraces(x, d[key], name, color);
+    Object.assign(tr[tr.length - 1], pointMarkers(d));
+    tr[tr.length - 1].name = `${name} (${unit})`;
+    if (tr[tr.length - 1].marker && color) tr[tr.length - 1].marker.color = color;
+    return tr;
+  }
+
+  function drawHalf(d, x, levels) {
+    const traces = seriesTraces(d, x, "half_velocity", "half-order velocity", HW.palette.half, "mm/s");
+    const shapes = [];
+    const t = d.trend || {};
+    if (t.band) {
+      const bx = t.band.t.map((v) => HW.wall(v, tz));
+      traces.push({ x: bx, y: t.band.hi, type: "scatter", mode: "lines", line: { width: 0 }, showlegend: false, hoverinfo: "skip" });
+      traces.push({ x: bx, y: t.band.lo, type: "scatter", mode: "lines", line: { width: 0 }, fill: "tonexty",
+        fillcolor: HW.palette.band, name: "95 % band of the fit", hoverinfo: "skip" });
+      traces.push({ x: bx, y: t.band.fit, type: "scatter", mode: "lines", line: { color: HW.palette.fit, width: 2 },
+        name: `trend fit (${t.model})` });
+    }
+    const f = t.forecast;
+    if (f) {
+      traces.push({ x: f.t.map((v) => HW.wall(v, tz)), y: f.value, type: "scatter", mode: "lines",
+        line: { color: HW.palette.fit, width: 2, dash: "dash" }, name: "forecast to the danger level" });
+      if (f.cross_lo && f.cross_hi) {
+        traces.push({ x: [HW.wall(f.cross_lo, tz), HW.wall(f.cross_hi, tz)], y: [t.limit, t.limit], type: "scatter",
+          mode: "lines+markers", marker: { symbol: "line-ns-open", size: 14, color: HW.palette.limit },
+          line: { color: HW.palette.limit, width: 6 }, opacity: 0.55, name: "90 % interval of the crossing" });
+      }
+    }
+    if (levels && levels.danger) shapes.push(HW.hline(levels.danger, HW.palette.limit, "dash", `danger ${HW.num(levels.danger)} mm/s`));
+    if (levels && levels.alert) shapes.push(HW.hline(levels.alert, HW.palette.alert, "dot", `alert ${HW.num(levels.alert)} mm/s`));
+    const note = [];
+    if (t.status === "forecast") note.push(`Growth ${HW.num(t.growth_db_per_day)} dB/day (95 %: ${HW.num(t.growth_db_per_day_lo)} to ${HW.num(t.growth_db_per_day_hi)}); reaches the danger level in about ${HW.num(t.days_to_limit, 2)} days (90 %: ${HW.num(t.days_to_limit_lo, 2)} to ${t.days_to_limit_hi == null ? "not bounded" : HW.num(t.days_to_limit_hi, 2)}).`);
+    else if (t.message) note.push(`Trend: ${t.message}.`);
+    if (t.onset_iso) note.push(`Onset about ${HW.when(t.onset_iso, tz)}.`);
+    note.push("Markers: ◆ half-order detected, ○ not detected.");
+    $("#trend-note").textContent = note.join(" ");
+    return HW.plot("chart-half", traces, { xaxis: xaxis(), yaxis: { title: { text: "half-order velocity (mm/s)" }, rangemode: "tozero" }, shapes });
+  }
+
+  function drawOverall(d, x, limits) {
+    const traces = seriesTraces(d, x, "overall", "overall velocity r.m.s.", HW.palette.overall, "mm/s");
+    const vals = (d.overall.max || d.overall.mean).filter((v) => v != null);
+    const top = Math.max(...vals, limits ? limits[2] * 1.25 : 1) * 1.08;
+    const shapes = [], annotations = [];
+    if (limits) {
+      const edges = [0, limits[0], limits[1], limits[2], top];
+      "ABCD".split("").forEach((z, i) => {
+        shapes.push({ type: "rect", xref: "paper", x0: 0, x1: 1, y0: edges[i], y1: edges[i + 1], fillcolor: HW.zoneFill[z], line: { width: 0 }, layer: "below" });
+        annotations.push({ xref: "paper", x: 0.995, xanchor: "right", y: (edges[i] + edges[i + 1]) / 2, text: `zone ${z}`, showarrow: false, font: { size: 11, color: "#374151" } });
+      });
+      $("#zone-note").textContent = `ISO 20816 zone boundaries for group ${asset.asset.machine_group}, ${asset.asset.foundation} support: A/B ${limits[0]}, B/C ${limits[1]}, C/D ${limits[2]} mm/s r.m.s.`;
+    }
+    return HW.plot("chart-overall", traces, { xaxis: xaxis(), yaxis: { title: { text: "velocity r.m.s. (mm/s)" }, range: [0, top] }, shapes, annotations });
+  }
+
+  function simple(id, d, x, key, name, color, unit, ytitle, extra) {
+    return HW.plot(id, seriesTraces(d, x, key, name, color, unit), Object.assign({ xaxis: xaxis(), yaxis: { title: { text: ytitle } } }, extra || {}));
+  }
+
+  function drawSpeed(d, x) {
+    const mult = asset.asset.forcing_multiplier || 1;
+    const conv = (s) => s && { min: s.min && s.min.map((v) => v == null ? null : v / mult), max: s.max && s.max.map((v) => v == null ? null : v / mult), mean: s.mean.map((v) => v == null ? null : v / mult) };
+    const dd = Object.assign({}, d, { speed: conv(d.forcing) });
+    const tr = seriesTraces(dd, x, "speed", "shaft speed", HW.palette.speed, "Hz");
+    tr[tr.length - 1].hovertemplate = "%{y:.4g} Hz = %{customdata} rpm<extra></extra>";
+    tr[tr.length - 1].customdata = dd.speed.mean.map((v) => v == null ? null : Math.round(v * 60));
+    return HW.plot("chart-speed", tr, { xaxis: xaxis(), yaxis: { title: { text: "shaft speed (Hz = rev/s)" } },
+      shapes: [HW.hline(asset.asset.nominal_speed_hz, "#64748b", "dot", `nominal ${asset.asset.nominal_speed_hz} Hz`)] });
+  }
+
+  function bindClicks() {
+    for (const id of ["chart-half", "chart-overall", "chart-onex", "chart-ratio", "chart-growth", "chart-speed"]) {
+      const div = document.getElementById(id);
+      if (div.dataset.bound) continue;
+      div.dataset.bound = "1";
+      div.on("plotly_click", (ev) => {
+        const p = ev.points && ev.points[0];
+        if (p && typeof p.customdata === "number" && id !== "chart-speed") location.assign(`/records/${p.customdata}`);
+      });
+    }
+  }
+
+  async function loadSeries() {
+    $("#asset-error").hidden = true;
+    let q;
+    try { q = periodQuery(); } catch (e) { HW.showError("#asset-error", e); return; }
+    const levels = point.levels.half_order_velocity;
+    const params = new URLSearchParams({ start: q.start, end: q.end, max_points: "600" });
+    if (levels && levels.danger) params.set("limit", levels.danger);
+    let d;
+    try { d = await HW.api(`/api/v1/dashboard/points/${point.id}/series?${params}`); }
+    catch (e) { HW.showError("#asset-error", e); return; }
+    const x = d.t.map((v) => HW.wall(v, tz));
+    await Promise.all([
+      drawHalf(d, x, levels),
+      drawOverall(d, x, asset.zone_limits_mm_s),
+      simple("chart-onex", d, x, "one_x_velocity", "1X velocity", HW.palette.onex, "mm/s", "1X velocity (mm/s)"),
+      simple("chart-ratio", d, x, "ratio", "half-order / 1X", HW.palette.ratio, "ratio", "amplitude ratio (1 = equal)",
+        { shapes: point.levels.half_order_ratio ? [HW.hline(point.levels.half_order_ratio.danger, HW.palette.limit, "dash", "danger"), HW.hline(point.levels.half_order_ratio.alert, HW.palette.alert, "dot", "alert")] : [] }),
+      simple("chart-growth", d, x, "growth", "growth rate", HW.palette.growth, "1/s", "growth rate (1/s)"),
+      drawSpeed(d, x),
+    ]);
+    bindClicks();
+    $("#bucket-note").textContent = d.bucketed
+      ? `${d.n_source} readings in ${d.t.length} time buckets: lines are bucket means, shaded bands the min–max of each bucket.`
+      : `${d.n_source} readings; click a marker to open that reading.`;
+    document.body.dataset.ready = "1";
+    loadReadings();
+  }
+
+  async function loadReadings() {
+    const body = $("#readings tbody");
+    const r = await HW.api(`/api/v1/points/${point.id}/records?limit=15`);
+    body.replaceChildren(...r.records.map((rec) => el("tr", {},
+      el("td", {}, HW.when(rec.measured_at, tz)), el("td", {}, rec.speed_hz ? `${HW.num(rec.speed_hz, 4)} Hz` : "—"),
+      el("td", {}, rec.origin), el("td", {}, `${rec.n_samples} @ ${HW.num(rec.fs_hz, 5)} Hz`),
+      el("td", {}, el("a", { href: `/records/${rec.id}` }, "open reading")))));
+  }
+
+  function renderAlarms() {
+    const body = $("#alarm-states tbody");
+    body.replaceChildren(...asset.alarms.map((a) => el("tr", {},
+      el("td", {}, HW.levelBadge(a.level)), el("td", {}, a.point), el("td", {}, a.rule),
+      el("td", {}, `${HW.num(a.value)} ${a.unit}`), el("td", {}, HW.when(a.since, tz)),
+      el("td", {}, a.shelved ? `shelved until ${HW.when(a.shelved_until, tz)}` : a.acknowledged ? `acknowledged by ${a.acked_by}` : "active"))));
+    if (!asset.alarms.length) body.append(el("tr", {}, el("td", { colspan: 6 }, "No open alarm.")));
+  }
+
+  async function loadHistory() {
+    const h = await HW.api(`/api/v1/alarms/history?asset_id=${asset.asset.id}&limit=30`);
+    const names = Object.fromEntries(asset.points.map((p) => [p.id, p.name]));
+    $("#alarm-history tbody").replaceChildren(...h.events.map((e) => el("tr", {},
+      el("td", {}, HW.when(e.created_at, tz)), el("td", {}, names[e.point_id] || e.point_id),
+      el("td", {}, e.kind === "transition" ? el("span", {}, HW.levelBadge(e.to_level), " ", e.summary || e.metric) : `${e.kind}: ${e.summary || ""}`),
+      el("td", {}, e.actor), el("td", {}, e.comment || ""))));
+  }
+
+  function selectPoint(id) {
+    point = asset.points.find((p) => p.id === id) || asset.points[0];
+    const l = point.latest;
+    $("#point-facts").textContent = `${point.location || "location not given"} · ${point.direction} · records in ${point.units} · ${point.records} readings · state: ${point.state.replace(/-/g, " ")}`;
+    const links = $("#point-links");
+    links.replaceChildren();
+    if (l) links.append(el("a", { href: `/records/${l.record_id}` }, "latest reading"), " · ");
+    links.append(el("a", { href: `/points/${point.id}/window` }, "operating window"));
+    history.replaceState(null, "", `?point=${point.id}`);
+    return loadSeries();
+  }
+
+  async function load() {
+    const id = root().dataset.assetId;
+    try { asset = await HW.api(`/api/v1/dashboard/assets/${id}`); }
+    catch (e) { HW.showError("#asset-error", e); return; }
+    const a = asset.asset;
+    tz = a.timezone;
+    document.title = `${a.name} · halfwatch`;
+    $("#asset-name").textContent = a.name;
+    $("#asset-level").replaceChildren(HW.levelBadge(asset.alarm_summary.level));
+    $("#asset-where").textContent = `${a.site} › ${a.area} · ${a.kind.replace(/_/g, " ")} · nominal ${a.nominal_speed_hz} Hz (${Math.round(a.nominal_speed_hz * 60)} rpm) · forcing ${a.forcing_kind} × ${a.forcing_multiplier} · ISO group ${a.machine_group}, ${a.foundation} · times in ${tz}`;
+    const sel = $("#point-select");
+    sel.replaceChildren(...asset.points.map((p) => el("option", { value: p.id }, `${p.name} (${p.state.replace(/-/g, " ")})`)));
+    const wanted = Number(HW.param("point")) || (asset.points.find((p) => p.records > 0) || asset.points[0] || {}).id;
+    sel.value = wanted;
+    renderAlarms();
+    loadHistory();
+    if (asset.points.length) await selectPoint(Number(sel.value));
+  }
+
+  document.addEventListener("DOMContentLoaded", () => {
+    $("#point-select").addEventListener("change", (e) => selectPoint(Number(e.target.value)));
+    $("#period").addEventListener("change", (e) => {
+      const custom = e.target.value === "custom";
+      $("#start").disabled = !custom; $("#end").disabled = !custom;
+      if (!custom) loadSeries();
+    });
+    $("#apply").addEventListener("click", () => loadSeries());
+    load();
+  });
+})();
