@@ -70,6 +70,7 @@ def cmd_db_upgrade(args) -> int:
 def cmd_user_add(args) -> int:
     import getpass
 
+    from server.errors import AppError
     from server.services import users
 
     password = args.password
@@ -80,7 +81,7 @@ def cmd_user_add(args) -> int:
     try:
         user = users.add_user(db, settings, username=args.username, password=password,
                               role=args.role, email=args.email or "")
-    except users.UserError as exc:
+    except AppError as exc:
         raise UsageError(str(exc)) from None
     finally:
         db.dispose()
@@ -89,6 +90,7 @@ def cmd_user_add(args) -> int:
 
 
 def cmd_apikey_create(args) -> int:
+    from server.errors import AppError
     from server.services import users
 
     settings = _settings(args)
@@ -96,7 +98,7 @@ def cmd_apikey_create(args) -> int:
     try:
         key, info = users.create_api_key(db, name=args.name, role=args.role, site=args.site,
                                          created_by="cli")
-    except users.UserError as exc:
+    except AppError as exc:
         raise UsageError(str(exc)) from None
     finally:
         db.dispose()

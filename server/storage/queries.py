@@ -123,7 +123,7 @@ def trend(s, point_id: int, metric: str, t0: dt.datetime, t1: dt.datetime, max_p
             rows = s.execute(select(Result.measured_ts, col).where(*scope, col.is_not(None))
                              .order_by(Result.measured_ts)).all()
             return _raw(metric, rows)
-        width = (b - a) * (1 + 1e-9) / max_points  # t1 itself falls in the last bucket
+        width = bucket_width(a, b, max_points)
         pos = (Result.measured_ts - a) / width
         bucket = (func.floor(pos) if s.bind.dialect.name == "postgresql" else cast(pos, Integer)).label("k")
         rows = s.execute(
@@ -143,11 +143,16 @@ def trend(s, point_id: int, metric: str, t0: dt.datetime, t1: dt.datetime, max_p
         return _raw(metric, pairs)
     t = np.array([p[0] for p in pairs])
     v = np.array([p[1] for p in pairs], dtype=float)
-    k = np.minimum(((t - a) / ((b - a) / max_points)).astype(int), max_points - 1)
+    k = ((t - a) / bucket_width(a, b, max_points)).astype(int)
     starts = np.flatnonzero(np.r_[True, k[1:] != k[:-1]])
     out = [(t[i], t[j - 1], v[i:j].min(), v[i:j].max(), v[i:j].mean(), j - i)
            for i, j in zip(starts, np.r_[starts[1:], t.size], strict=True)]
     return _buckets(metric, out, len(pairs))
+
+
+def bucket_width(a: float, b: float, n: int) -> float:
+    """Seconds per trend bucket; slightly wider than (b - a) / n so t1 itself falls in the last bucket."""
+    return (b - a) * (1 + 1e-9) / n
 
 
 def _ts_iso(ts: float) -> str:

@@ -51,9 +51,9 @@ def point_state(result: Result | None, jobs: dict[str, int], n_records: int) -> 
     if result is None:
         waiting = jobs.get("queued") or jobs.get("running")
         return "failed" if jobs.get("failed") and not waiting else "pending"
-    if not result.quality_ok:
-        return "data-quality"
-    return "subharmonic" if result.sub_detected else "no-subharmonic"
+    if result.sub_detected:  # shown even with quality flags (the flags are in "latest")
+        return "subharmonic"
+    return "no-subharmonic" if result.quality_ok else "data-quality"
 
 
 def latest_dict(res: Result) -> dict:
