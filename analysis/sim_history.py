@@ -34,7 +34,7 @@ def simulate_history(
     growth_noise: float = 0.05,
     sub_floor: float = 0.002,
 ) -> dict:
-    """Return column arrays ``time_days, speed_hz, amp_1x, amp_sub, present, growth_rate_per_s`` and ``truth``.
+    """Return column arrays (time_days, speed_hz, amp_1x, amp_sub, present, growth_rate_per_s) and truth.
 
     ``k`` maps the 1X amplitude to the modulation depth (h = k a). Present records have an amp_sub growing
     with the log margin; absent ones read the floor ``sub_floor``. ``growth_rate_per_s`` is filled for about

@@ -252,7 +252,8 @@ def _one_speed(f, a, y, base) -> WindowFit:
     lo, hi = ac * math.exp(-z90 * se), ac * math.exp(z90 * se)
     amp = base["today_amp_1x"]
     msg = (
-        f"all records at one speed ({float(np.median(f)):.4g} Hz): f0, zeta and the unstable speed band are not "
+        f"all records at one speed ({float(np.median(f)):.4g} Hz): f0, zeta and the unstable speed band "
+        "are not "
         "constrained; only the 1X amplitude threshold at this speed is"
     )
     return WindowFit(
