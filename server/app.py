@@ -70,7 +70,7 @@ def _too_large(limit: int) -> str:
 
 def create_app(settings: Settings | None = None) -> FastAPI:
     settings = settings or Settings()
-    db = Database(settings.database_url)
+    db = Database(settings.database_url, busy_timeout_ms=settings.db_busy_timeout_ms)
     db.check_schema()
 
     @asynccontextmanager

@@ -22,6 +22,8 @@ class Settings(BaseSettings):
         default="", description="SQLAlchemy URL; empty means a SQLite file halfwatch.db under data_dir"
     )
 
+    db_busy_timeout_ms: int = Field(default=10_000, ge=0, description="SQLite: wait this long for a lock")
+
     # HTTP service
     host: str = "127.0.0.1"
     port: int = Field(default=8000, ge=0, le=65535)

@@ -22,7 +22,7 @@ def _settings(args):
 def _database(settings, *, check: bool = True):
     from server.storage import Database, SchemaNotReady
 
-    db = Database(settings.database_url)
+    db = Database(settings.database_url, busy_timeout_ms=settings.db_busy_timeout_ms)
     if check:
         try:
             db.check_schema()
@@ -46,12 +46,17 @@ def cmd_serve(args) -> int:
 
 
 def cmd_worker(args) -> int:
+    import signal
+    import threading
+
     from server.worker import run_forever
 
     settings = _settings(args)
     db = _database(settings)
+    stop = threading.Event()
+    signal.signal(signal.SIGTERM, lambda *_: stop.set())  # finish the current job, then leave
     try:
-        run_forever(db, settings, max_jobs=args.max_jobs)
+        run_forever(db, settings, stop=stop, max_jobs=args.max_jobs)
     finally:
         db.dispose()
     return 0

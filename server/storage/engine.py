@@ -25,10 +25,10 @@ class SchemaNotReady(RuntimeError):
     """The database has no schema or an old one; the message says what to run."""
 
 
-def _sqlite_engine(url: str, *, immediate: bool) -> Engine:
+def _sqlite_engine(url: str, *, immediate: bool, busy_timeout_ms: int) -> Engine:
     engine = create_engine(
         url,
-        connect_args={"check_same_thread": False, "timeout": BUSY_TIMEOUT_MS / 1000},
+        connect_args={"check_same_thread": False, "timeout": busy_timeout_ms / 1000},
         pool_size=8,
         max_overflow=8,
     )
@@ -39,7 +39,7 @@ def _sqlite_engine(url: str, *, immediate: bool) -> Engine:
         cur = dbapi_conn.cursor()
         cur.execute("PRAGMA journal_mode=WAL")
         cur.execute("PRAGMA synchronous=NORMAL")
-        cur.execute(f"PRAGMA busy_timeout={BUSY_TIMEOUT_MS}")
+        cur.execute(f"PRAGMA busy_timeout={int(busy_timeout_ms)}")
         cur.execute("PRAGMA foreign_keys=ON")
         cur.close()
 
@@ -53,15 +53,15 @@ def _sqlite_engine(url: str, *, immediate: bool) -> Engine:
 class Database:
     """Owns the engine(s). ``unit_of_work()`` for writes, ``read()`` for queries."""
 
-    def __init__(self, url: str):
+    def __init__(self, url: str, *, busy_timeout_ms: int = BUSY_TIMEOUT_MS):
         self.url = url
         self.is_sqlite = url.startswith("sqlite")
         if self.is_sqlite:
             path = url.split("///", 1)[-1]
             if path and path != ":memory:":
                 Path(path).parent.mkdir(parents=True, exist_ok=True)
-            self.write_engine = _sqlite_engine(url, immediate=True)
-            self.read_engine = _sqlite_engine(url, immediate=False)
+            self.write_engine = _sqlite_engine(url, immediate=True, busy_timeout_ms=busy_timeout_ms)
+            self.read_engine = _sqlite_engine(url, immediate=False, busy_timeout_ms=busy_timeout_ms)
         else:
             self.write_engine = create_engine(url, pool_pre_ping=True, pool_size=8, max_overflow=8)
             self.read_engine = self.write_engine

@@ -154,3 +154,32 @@ def test_unsupported_content_type_and_missing_query(client, plant, plant_key_hea
 def test_unknown_path_and_healthz(client):
     assert_error_shape(client.get("/api/v1/nothing-here"), 404)
     assert client.get("/healthz").json() == {"ok": True, "database": "sqlite"}
+
+
+def test_locked_database_is_a_503_with_retry_after_and_nothing_lost(tmp_path, migrated_template, rng):
+    import sqlite3
+
+    from fastapi.testclient import TestClient
+    from support.fixtures import migrate, settings_for
+    from support.plant import make_plant
+
+    from server.app import create_app
+    from server.services.users import create_api_key
+
+    settings = settings_for(tmp_path, db_busy_timeout_ms=100)
+    migrate(settings, migrated_template)
+    app = create_app(settings)
+    plant = make_plant(app.state.db)
+    key, _ = create_api_key(app.state.db, name="k")
+    x = tone_record(rng, n=2048)
+    blocker = sqlite3.connect(settings.data_dir / "halfwatch.db", isolation_level=None)
+    with TestClient(app) as c:
+        c.get("/api/v1/tree", headers={"X-API-Key": key})  # key's last-used time written before the lock
+        blocker.execute("BEGIN IMMEDIATE")  # another writer holds the lock
+        r = post_raw(c, plant.point_id, x, {"X-API-Key": key}, client_ref="r1")
+        assert_error_shape(r, 503)
+        assert r.headers["Retry-After"].isdigit()
+        blocker.execute("ROLLBACK")
+        retry = post_raw(c, plant.point_id, x, {"X-API-Key": key}, client_ref="r1")
+        assert retry.status_code == 201  # the retry stores it once
+    blocker.close()
