@@ -36,6 +36,7 @@ _SPELLINGS = {
 MIN_SAMPLES = 256
 MIN_FS_HZ = 10.0
 MAX_FS_HZ = 1.0e6
+MAX_ABS_VALUE = 1.0e9  # 1e9 mm/s² is 1e5 g: larger values are a scaling error, not vibration
 
 
 def normalize_units(units: str | None) -> str:
@@ -88,6 +89,12 @@ def validate_samples(samples, fs_hz: float) -> tuple[np.ndarray, float]:
         raise SignalError(
             f"samples contain {bad} non-finite values (NaN or inf), the first at index {first}; "
             "remove or interpolate them before analysis"
+        )
+    peak = float(np.max(np.abs(x)))
+    if peak > MAX_ABS_VALUE:
+        raise SignalError(
+            f"samples reach {peak:.3g}, beyond any accelerometer ({MAX_ABS_VALUE:g} in any unit); check the "
+            "scaling and the units of the record"
         )
     if x.size < MIN_SAMPLES:
         raise SignalError(

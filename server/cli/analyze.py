@@ -41,6 +41,23 @@ def _fmt(v, spec: str = ".3g", none: str = "-") -> str:
     return none if v is None else format(v, spec)
 
 
+def _growth_text(g: dict, s: dict, units: str) -> str:
+    if g["state"] == "not-estimated":
+        return f"growth not estimated ({g['note']})"
+    lo, hi = g["ci95_per_s"]
+    text = f"{g['state']} {g['rate_per_s']:.2g} /s [{lo:.2g}, {hi:.2g}] (95 %)"
+    if g["state"] == "growing":
+        from analysis.conditioning import velocity_mm_s
+
+        text += f", doubling every {g['doubling_time_s']:.2g} s"
+        if g["onset_s"] is not None:
+            text += f", out of the floor near {g['onset_s']:.1f} s"
+        v_end = velocity_mm_s(g["end_amplitude"], s["frequency_hz"], units)
+        if v_end is not None:
+            text += f", {v_end:.2g} mm/s peak at {g['fit_window_s'][1]:.1f} s"
+    return text
+
+
 def summary(d: dict) -> str:
     """Human-readable summary in the words of the trade."""
     f, s, g, o = d["forcing"], d["subharmonic"], d["growth"], d["overall"]
@@ -56,31 +73,15 @@ def summary(d: dict) -> str:
     ]
     if s["detected"]:
         name = "half-order component" if s["class"] == "half-order" else "sub-synchronous component"
-        text = (
-            f"{name} at {s['frequency_hz']:.4g} Hz ({s['order']:.2f}X), "
-            f"{_fmt(s['velocity_mm_s'], '.2g')} mm/s peak "
-            f"({_fmt(s['amplitude'], '.3g')} {d['units']} peak), {s['snr_db']:.1f} dB over the floor "
-            f"(threshold {s['threshold_db']:.1f} dB at Pfa {s['pfa']:g})"
-        )
-        if g["state"] != "not-estimated":
-            lo, hi = g["ci95_per_s"]
-            text += f", {g['state']} {g['rate_per_s']:.2g} /s [{lo:.2g}, {hi:.2g}]"
-            if g["state"] == "growing" and g["end_amplitude"] is not None:
-                from analysis.conditioning import velocity_mm_s
-
-                v_end = velocity_mm_s(g["end_amplitude"], s["frequency_hz"], d["units"])
-                text += (
-                    f" (doubling in {g['doubling_time_s']:.2g} s; {v_end:.2g} mm/s peak "
-                    f"at {g['fit_window_s'][1]:.1f} s)"
-                )
-            if g["onset_s"] is not None:
-                text += f", onset near {g['onset_s']:.1f} s"
-        else:
-            text += f", growth not estimated ({g['note']})"
         fam = [k for k, v in s["family"].items() if v is not None]
-        if fam:
-            text += f"; family lines present: {', '.join(fam)}"
-        lines.append(text)
+        lines.append(
+            f"{name} at {s['frequency_hz']:.4g} Hz ({s['order']:.2f}X), "
+            f"{_fmt(s['velocity_mm_s'], '.2g')} mm/s peak ({_fmt(s['amplitude'], '.3g')} {d['units']}) "
+            f"averaged over the record, {s['snr_db']:.1f} dB over the floor "
+            f"(threshold {s['threshold_db']:.1f} dB at Pfa {s['pfa']:g})"
+            + (f"; family lines {', '.join(fam)}" if fam else "")
+        )
+        lines.append("  " + _growth_text(g, s, d["units"]))
     else:
         lines.append(
             f"no subharmonic detected (threshold {s['threshold_db']:.1f} dB over the floor "

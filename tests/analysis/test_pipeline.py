@@ -110,3 +110,30 @@ def test_importing_analysis_pulls_in_no_server_or_web_stack():
     )
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
     assert out.stdout.strip() == ""
+
+
+@pytest.mark.parametrize("kind", ["offset", "integers", "clipped", "tiny", "whirl-and-half"])
+def test_awkward_records_give_json_safe_results(kind):
+    rng = np.random.default_rng(21)
+    fs, f1, n = 2560.0, 24.0, 120_000
+    t = np.arange(n) / fs
+    x = {
+        "offset": 5.0 + 1e-12 * rng.standard_normal(n),
+        "integers": np.round(3 * rng.standard_normal(n)),
+        "clipped": np.clip(3 * np.sin(2 * np.pi * f1 * t) + rng.standard_normal(n), -2, 2),
+        "tiny": 1e-15 * rng.standard_normal(n),
+        "whirl-and-half": np.sin(2 * np.pi * f1 * t) + 0.1 * np.sin(2 * np.pi * 0.44 * f1 * t)
+        + np.exp(0.3 * (t - t[-1])) * np.sin(np.pi * f1 * t) + 1e-3 * rng.standard_normal(n),
+    }[kind]  # fmt: skip
+    d = analyze_record(x, fs, nominal_hz=f1).to_dict()
+    json.dumps(d, allow_nan=False)
+    if kind == "clipped":
+        assert "clipping" in d["quality"]["flags"]
+    if kind == "whirl-and-half":
+        assert d["subharmonic"]["class"] == "half-order"
+        assert any(abs(t["order"] - 0.44) < 0.005 for t in d["tones"])
+
+
+def test_implausible_values_are_rejected():
+    with pytest.raises(SignalError, match="check the scaling"):
+        analyze_record(np.full(4096, 1e12), 2560.0, forcing_hz=30.0)
