@@ -11,6 +11,8 @@ from __future__ import annotations
 import math
 import statistics
 
+import numpy as np
+
 # Flags of the measurement chain that make a record unfit for machine alarms. A record the analysis
 # marks not ok is unfit too, unless its only flags are notes such as "too-short-for-resolution".
 BLOCKING_FLAGS = ("flat-line", "clipping", "dc-jump", "impulsive")
@@ -68,6 +70,20 @@ def remember_speed(speeds: list[float], speed_hz) -> list[float]:
     return speeds[-SPEED_HISTORY:]
 
 
+def theil_sen(x: list[float], y: list[float]) -> tuple[float, float]:
+    """Theil-Sen line: slope = median of pairwise slopes, intercept = median(y) - slope * median(x).
+
+    The same estimator as ``scipy.stats.theilslopes`` (checked against it in the tests), written
+    out with numpy because the worker runs it for every record.
+    """
+    xa, ya = np.asarray(x, dtype=float), np.asarray(y, dtype=float)
+    i, j = np.triu_indices(xa.size, k=1)
+    dx = xa[j] - xa[i]
+    keep = dx != 0
+    slope = float(np.median((ya[j] - ya[i])[keep] / dx[keep]))
+    return slope, float(np.median(ya) - slope * np.median(xa))
+
+
 def trend_and_forecast(
     history: list[list[float]],
     *,
@@ -96,10 +112,8 @@ def trend_and_forecast(
     days = [(ts - run[0][0]) / 86400.0 for ts, _ in run]
     if days[-1] - days[0] < min_span_days:
         return None, None
-    from scipy.stats import theilslopes
-
     logs = [math.log(a) for _, a in run]
-    slope, intercept, _lo, _hi = theilslopes(logs, days)
+    slope, intercept = theil_sen(days, logs)
     db_per_day = DB_PER_NEPER * float(slope)
     if limit is None or limit <= 0:
         return db_per_day, None

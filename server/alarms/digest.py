@@ -12,7 +12,7 @@ from server.storage.tables import Area, Asset, Point, Site, utcnow
 
 from .notify import message_id
 from .rules import LEVEL_RANK, METRICS
-from .tables import AlarmEvent, AlarmState, AlarmSubscription, OutboxMessage
+from .tables import AlarmEvent, AlarmPointStatus, AlarmState, AlarmSubscription, OutboxMessage
 
 
 def scope_filter(stmt, scope: str, scope_id: int):
@@ -31,14 +31,16 @@ def open_alarm_rows(session, scope: str, scope_id: int, *, min_level: str = "ale
                     now: dt.datetime | None = None) -> list[dict]:
     now = now or utcnow()
     stmt = (
-        select(AlarmState, Point.name, Asset.name)
+        select(AlarmState, Point.name, Asset.name, AlarmPointStatus.last_metrics)
         .join(Point, Point.id == AlarmState.point_id)
+        .outerjoin(AlarmPointStatus, AlarmPointStatus.point_id == AlarmState.point_id)
         .join(Asset, Asset.id == Point.asset_id)
         .join(Area, Area.id == Asset.area_id)
         .where(AlarmState.level != "normal")
     )
     rows = []
-    for state, point_name, asset_name in session.execute(scope_filter(stmt, scope, scope_id)):
+    for state, point_name, asset_name, latest in session.execute(scope_filter(stmt, scope, scope_id)):
+        value = (latest or {}).get(state.metric, state.last_value)
         if LEVEL_RANK[state.level] < LEVEL_RANK[min_level]:
             continue
         if state.shelved_until and state.shelved_until > now:
@@ -50,7 +52,7 @@ def open_alarm_rows(session, scope: str, scope_id: int, *, min_level: str = "ale
         info = METRICS[state.metric]
         rows.append({
             "level": state.level, "asset": asset_name, "point": point_name, "rule": info.label,
-            "value": f"{state.last_value:.3g} {info.unit}".strip() if state.last_value is not None else "n/a",
+            "value": f"{value:.3g} {info.unit}".strip() if value is not None else "n/a",
             "since": f"{state.since:%Y-%m-%d %H:%M} UTC", "status": status,
         })
     rows.sort(key=lambda r: (-LEVEL_RANK[r["level"]], r["asset"], r["point"], r["rule"]))

@@ -15,7 +15,7 @@ import math
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
-from server.storage.tables import Area, Asset, Point, utcnow
+from server.storage.tables import Area, Asset, Point, Site, utcnow
 
 from . import checks, margin
 from .engine import Reading, step
@@ -34,12 +34,14 @@ def rule_spec(row: AlarmRule) -> RuleSpec:
     )
 
 
-def ensure_default_rules(session: Session, point: Point) -> list[AlarmRule]:
+def ensure_default_rules(session: Session, point: Point, asset: Asset | None = None,
+                         rows: list[AlarmRule] | None = None) -> list[AlarmRule]:
     """Create the default rules of a point that has none (the server may call this on point creation)."""
-    rows = list(session.scalars(select(AlarmRule).where(AlarmRule.point_id == point.id)))
+    if rows is None:
+        rows = list(session.scalars(select(AlarmRule).where(AlarmRule.point_id == point.id)))
     if rows:
         return rows
-    asset = point.asset
+    asset = asset or point.asset
     for spec in default_rules(group=asset.machine_group or 2, support=asset.foundation or "rigid"):
         rows.append(
             AlarmRule(
@@ -53,13 +55,13 @@ def ensure_default_rules(session: Session, point: Point) -> list[AlarmRule]:
     return rows
 
 
-def effective_rules(session: Session, point: Point) -> list[AlarmRule]:
-    """Point rules, with asset rules for any metric the point does not set itself."""
-    point_rules = ensure_default_rules(session, point)
-    asset_rules = session.scalars(
-        select(AlarmRule).where(AlarmRule.asset_id == point.asset_id, AlarmRule.point_id.is_(None))
-    )
-    by_metric = {r.metric: r for r in asset_rules}
+def effective_rules(session: Session, point: Point, asset: Asset | None = None) -> list[AlarmRule]:
+    """Point rules, with asset rules for any metric the point does not set itself (one query)."""
+    rows = session.scalars(select(AlarmRule).where(
+        (AlarmRule.point_id == point.id)
+        | ((AlarmRule.asset_id == point.asset_id) & AlarmRule.point_id.is_(None)))).all()
+    point_rules = ensure_default_rules(session, point, asset, [r for r in rows if r.point_id == point.id])
+    by_metric = {r.metric: r for r in rows if r.point_id is None}
     # A point's own rule that an engineer edited wins; a default point rule yields to an asset rule.
     for r in point_rules:
         if not r.is_default or r.metric not in by_metric:
@@ -75,28 +77,32 @@ def _result_data(result) -> dict:
 def _status(session: Session, point_id: int) -> AlarmPointStatus:
     status = session.get(AlarmPointStatus, point_id)
     if status is None:
-        status = AlarmPointStatus(point_id=point_id, speeds_hz=[], history=[], last_metrics={})
+        status = AlarmPointStatus(point_id=point_id, speeds_hz=[], history=[], windows={}, last_metrics={})
         session.add(status)
     return status
 
 
-def _state(session: Session, point: Point, metric: str) -> AlarmState:
-    state = session.scalars(
-        select(AlarmState).where(AlarmState.point_id == point.id, AlarmState.metric == metric)
-    ).first()
-    if state is None:
-        state = AlarmState(point_id=point.id, asset_id=point.asset_id, metric=metric, level="normal",
-                           window=[])
-        session.add(state)
-    return state
+def _states(session: Session, point: Point, metrics: list[str]) -> dict[str, AlarmState]:
+    """The point's states by metric (one query), creating the missing ones."""
+    rows = session.scalars(select(AlarmState).where(AlarmState.point_id == point.id))
+    states = {st.metric: st for st in rows}
+    for metric in metrics:
+        if metric not in states:
+            states[metric] = AlarmState(point_id=point.id, asset_id=point.asset_id, metric=metric,
+                                        level="normal", window=[])
+            session.add(states[metric])
+    return states
 
 
-def _where(point: Point) -> dict:
-    asset: Asset = point.asset
-    area: Area = asset.area
-    return {
+def _context(session: Session, point_id: int) -> tuple[Point, Asset, dict]:
+    """The point, its asset and the names up to the site, in one query."""
+    point, asset, area, site = session.execute(
+        select(Point, Asset, Area, Site).join(Asset, Asset.id == Point.asset_id)
+        .join(Area, Area.id == Asset.area_id).join(Site, Site.id == Area.site_id).where(Point.id == point_id)
+    ).one()
+    return point, asset, {
         "point_id": point.id, "point": point.name, "asset_id": asset.id, "asset": asset.name,
-        "area_id": area.id, "area": area.name, "site_id": area.site_id, "site": area.site.name,
+        "area_id": area.id, "area": area.name, "site_id": site.id, "site": site.name,
     }
 
 
@@ -113,11 +119,14 @@ def evaluate_result(
 ) -> list:
     """Run the rules for ``record``'s point on ``result``; returns the new :class:`AlarmEvent` rows."""
     now = now or utcnow()
-    point = session.get(Point, record.point_id)
+    with session.no_autoflush:
+        return _evaluate(session, record, result, settings, now)
+
+
+def _evaluate(session: Session, record, result, settings, now: dt.datetime) -> list:
+    point, asset, where = _context(session, record.point_id)
     data = _result_data(result)
-    where = _where(point)
     status = _status(session, point.id)
-    asset = point.asset
     nominal = (asset.nominal_speed_hz or 0) * (asset.forcing_multiplier or 1.0) or None
     common = {
         "point_id": point.id, "asset_id": asset.id, "area_id": where["area_id"], "site_id": where["site_id"],
@@ -138,7 +147,7 @@ def evaluate_result(
         queue_for_events(session, [event], now=now)
         return [event]
 
-    rules = [r for r in effective_rules(session, point) if r.enabled]
+    rules = [r for r in effective_rules(session, point, asset) if r.enabled]
     metrics = result_metrics(data)
     previous = dict(status.last_metrics or {})
     ts = _measured_ts(record, result)
@@ -155,22 +164,29 @@ def evaluate_result(
     status.last_record_id, status.data_quality_open, status.updated_at = record.id, False, now
 
     events = []
+    states = _states(session, point, [r.metric for r in rules])
+    windows = dict(status.windows or {})
     for row in rules:
         spec = rule_spec(row)
-        state = _state(session, point, row.metric)
-        state.rule_id = row.id
+        state = states[row.metric]
+        if state.rule_id != row.id:
+            state.rule_id = row.id
         value = metrics.get(row.metric)
         levels = spec.levels(data)
         if value is None or levels is None:
-            state.inactive_reason = margin_reason if row.metric == "threshold_margin" else "no reading"
+            reason = margin_reason if row.metric == "threshold_margin" else "no reading"
+            if state.inactive_reason != reason:
+                state.inactive_reason = reason
             continue
-        state.inactive_reason = None
-        window = [Reading.from_list(item) for item in state.window or []]
+        if state.inactive_reason is not None:
+            state.inactive_reason = None
+        window = [Reading.from_list(item) for item in windows.get(row.metric, [])]
         new_level, window, tr = step(spec, state.level, window, Reading(value, *levels))
-        state.window = [r.to_list() for r in window]
-        state.last_value, state.last_record_id, state.updated_at = value, record.id, now
+        windows[row.metric] = [r.to_list() for r in window]
         if tr is None:
-            continue
+            continue  # the state row is written only when its level changes
+        state.window = windows[row.metric]
+        state.last_value, state.last_record_id, state.updated_at = value, record.id, now
         summary = f"{row.metric}: {tr.from_level} -> {tr.to_level} at {value:.4g}"
         event = AlarmEvent(
             kind="transition", metric=row.metric, rule_id=row.id, from_level=tr.from_level,
@@ -183,6 +199,7 @@ def evaluate_result(
         session.add(event)
         _apply_transition(state, new_level, now)
         events.append((event, state))
+    status.windows = windows
     session.flush()
     for event, state in events:
         state.last_event_id = event.id

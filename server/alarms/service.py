@@ -42,14 +42,18 @@ def _level(value: str | None, field: str = "level") -> str | None:
     return value
 
 
-def state_dict(state: AlarmState, point: Point, asset: Asset, area: Area, now: dt.datetime) -> dict:
+def state_dict(state: AlarmState, point: Point, asset: Asset, area: Area, now: dt.datetime,
+               status: AlarmPointStatus | None = None) -> dict:
     shelved = state.shelved_until is not None and state.shelved_until > now
+    latest = (status.last_metrics or {}).get(state.metric) if status is not None else None
     return {
         "id": state.id, "point_id": point.id, "point": point.name, "asset_id": asset.id, "asset": asset.name,
         "area_id": area.id, "area": area.name, "site_id": area.site_id, "metric": state.metric,
         "rule": METRICS[state.metric].label, "unit": METRICS[state.metric].unit, "rule_id": state.rule_id,
-        "level": state.level, "value": state.last_value, "since": state.since.isoformat(),
-        "record_id": state.last_record_id, "acknowledged": bool(state.acked_level),
+        "level": state.level, "value": latest if latest is not None else state.last_value,
+        "value_at_change": state.last_value, "since": state.since.isoformat(),
+        "record_id": status.last_record_id if status is not None else state.last_record_id,
+        "acknowledged": bool(state.acked_level),
         "acked_level": state.acked_level, "acked_by": state.acked_by,
         "acked_at": state.acked_at.isoformat() if state.acked_at else None, "ack_comment": state.ack_comment,
         "shelved": shelved, "shelved_until": state.shelved_until.isoformat() if shelved else None,
@@ -73,12 +77,13 @@ def list_alarms(db, *, view: str = "active", site_id=None, area_id=None, asset_i
         raise AlarmInputError("view", f"view: use one of {', '.join(VIEWS)}")
     _level(level)
     now = now or utcnow()
-    stmt = _joined(select(AlarmState, Point, Asset, Area).where(AlarmState.level != "normal"),
-                   site_id=site_id, area_id=area_id, asset_id=asset_id)
+    stmt = _joined(select(AlarmState, Point, Asset, Area, AlarmPointStatus)
+                   .outerjoin(AlarmPointStatus, AlarmPointStatus.point_id == AlarmState.point_id)
+                   .where(AlarmState.level != "normal"), site_id=site_id, area_id=area_id, asset_id=asset_id)
     out = []
     with db.read() as s:
-        for state, point, asset, area in s.execute(stmt):
-            d = state_dict(state, point, asset, area, now)
+        for state, point, asset, area, status in s.execute(stmt):
+            d = state_dict(state, point, asset, area, now, status)
             if level and state.level != level:
                 continue
             if view == "active" and (d["acknowledged"] or d["shelved"]):

@@ -43,7 +43,11 @@ class AlarmRule(Base):
 
 
 class AlarmState(Base):
-    """The current level of one rule metric at one point, with its window of recent readings."""
+    """The current level of one rule metric at one point (written when the level changes).
+
+    The window of recent readings lives in :class:`AlarmPointStatus` (one row per point, updated per
+    record); ``window`` here keeps the window as it was at the last transition.
+    """
 
     __tablename__ = "alarm_states"
     __table_args__ = (UniqueConstraint("point_id", "metric"),)
@@ -77,6 +81,7 @@ class AlarmPointStatus(Base):
     point_id: Mapped[int] = mapped_column(ForeignKey("points.id", ondelete="CASCADE"), primary_key=True)
     speeds_hz: Mapped[list] = mapped_column(JSON, default=list)
     history: Mapped[list] = mapped_column(JSON, default=list)  # [[measured_ts, half-order mm/s], ...]
+    windows: Mapped[dict] = mapped_column(JSON, default=dict)  # metric -> [[value, alert, danger], ...]
     last_metrics: Mapped[dict] = mapped_column(JSON, default=dict)
     last_record_id: Mapped[int | None] = mapped_column(Integer)
     data_quality_open: Mapped[bool] = mapped_column(Boolean, default=False)
