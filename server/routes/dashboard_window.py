@@ -8,7 +8,6 @@ chart (region outline, unstable band at today's amplitude, margin) and says plai
 from __future__ import annotations
 
 import datetime as dt
-import inspect
 import math
 
 from server.storage.queries import iso
@@ -37,35 +36,39 @@ def readings(rows) -> list[dict]:
     return out
 
 
-def _call_fit(fit_fn, pts: list[dict]):
-    """Call the physics fit with the arguments its signature asks for (by name)."""
-    names = set(inspect.signature(fit_fn).parameters)
-    cols = {"time_days": [_days(p["t"]) for p in pts], "speed_hz": [p["forcing_hz"] for p in pts],
-            "forcing_hz": [p["forcing_hz"] for p in pts], "amplitude_1x": [p["one_x"] for p in pts],
-            "one_x": [p["one_x"] for p in pts], "present": [p["present"] for p in pts],
-            "growth_per_s": [p["growth_per_s"] for p in pts]}
-    kwargs = {k: v for k, v in cols.items() if k in names}
-    return fit_fn(**kwargs)
-
-
-def _days(t: str) -> float:
-    return dt.datetime.fromisoformat(t.replace("Z", "+00:00")).timestamp() / 86400.0
+def region(fit: dict, speeds: list[float], *, points: int = 121) -> dict | None:
+    """The fitted tongue boundary: the 1X amplitude threshold over a speed grid (first-order theory,
+    a_c(f) = 2 sqrt(((f - 2 f0) / f0)^2 + 4 zeta^2) / k, as analysis.window fits it)."""
+    f0, zeta, k = fit.get("f0_hz"), fit.get("zeta"), fit.get("k_per_unit")
+    if not all(isinstance(v, int | float) and math.isfinite(v) and v > 0 for v in (f0, zeta, k)):
+        return None
+    lo = min([*speeds, 2 * f0 * 0.85])
+    hi = max([*speeds, 2 * f0 * 1.15])
+    grid = [lo + (hi - lo) * i / (points - 1) for i in range(points)]
+    amp = [2.0 * math.sqrt(((f - 2.0 * f0) / f0) ** 2 + 4.0 * zeta**2) / k for f in grid]
+    return {"forcing_hz": grid, "amplitude_1x": amp}
 
 
 def fitted_window(pts: list[dict]) -> dict:
     try:
-        from analysis import window as physics
+        from analysis.window import fit_operating_window
     except ImportError:
         return {"status": "unavailable", "message": NO_FIT}
-    fit_fn = getattr(physics, "fit_window", None) or getattr(physics, "fit_operating_window", None)
-    if fit_fn is None:
-        return {"status": "unavailable", "message": NO_FIT}
+    today = pts[-1]
+    speeds = [p["forcing_hz"] for p in pts]
     try:
-        result = _call_fit(fit_fn, pts)
-    except (ValueError, TypeError) as exc:
+        present = [1.0 if p["present"] else 0.0 for p in pts]
+        result = fit_operating_window(speeds, [p["one_x"] for p in pts], present,
+                                      growth_rate_per_s=[math.nan if p["growth_per_s"] is None
+                                                         else p["growth_per_s"] for p in pts],
+                                      today_speed_hz=today["forcing_hz"], today_amp_1x=today["one_x"])
+    except ValueError as exc:
         return {"status": "not_constrained", "message": f"the fit could not be made: {exc}"}
-    d = result.to_dict() if hasattr(result, "to_dict") else dict(result)
-    return {"status": d.get("status", "fit"), **d}
+    d = result.to_dict()
+    d["region"] = region(d, speeds)
+    if d.get("margin_pct_lo") is not None and d.get("margin_pct_hi") is not None:
+        d["margin_ci"] = [d["margin_pct_lo"], d["margin_pct_hi"]]
+    return d
 
 
 def window_answer(rows) -> dict:

@@ -1,0 +1,159 @@
+/* Reading page: spectrum with order markers from this record's forcing frequency (zoom, cursor read-out in
+   Hz and orders), waveform with the subharmonic envelope and fitted growth line, the analysis numbers with
+   their confidence intervals, and a waterfall of the point's recent spectra. */
+"use strict";
+(function () {
+  const { el, $ } = HW;
+  let bundle = null, spec = null, tz = "UTC";
+  const ORDERS = [0.5, 1, 1.5, 2, 2.5, 3, 3.5, 4, 5];
+
+  const orderName = (k) => `${k}X`;
+
+  function number(label, value, unit, ci, title) {
+    return el("div", { class: "n", title: title || null },
+      el("div", { class: "k" }, label), el("div", { class: "v" }, value, unit ? ` ${unit}` : ""),
+      ci ? el("div", { class: "ci" }, ci) : null);
+  }
+
+  function renderNumbers(r, rec) {
+    const box = $("#numbers");
+    box.replaceChildren();
+    const s = r.subharmonic || {}, g = r.growth || {}, o = r.overall || {}, f = r.forcing || {};
+    const one = (r.orders || {})["1X"] || {}, two = (r.orders || {})["2X"] || {};
+    const u = r.units || rec.units;
+    box.append(
+      number("Forcing frequency (1X)", HW.num(f.frequency_hz, 5), "Hz", `${f.source}${f.nominal_hz ? `, nominal ${HW.num(f.nominal_hz, 5)} Hz` : ""}`),
+      number("Subharmonic", s.detected ? `${s.class} found` : "none found", "", s.detected ? `at ${HW.num(s.frequency_hz, 5)} Hz = ${HW.num(s.order, 4)}X` : `false-alarm rate ${HW.num(s.pfa)} per search`),
+      number("Subharmonic amplitude", HW.num(s.amplitude), u, `velocity ${HW.num(s.velocity_mm_s)} mm/s`),
+      number("Signal to noise", HW.num(s.snr_db), "dB", `detection threshold ${HW.num(s.threshold_db)} dB (false-alarm rate ${HW.num(s.pfa)})`),
+      number("Growth rate", HW.num(g.rate_per_s), "1/s",
+        g.ci95_per_s && g.ci95_per_s[0] != null ? `95 % interval ${HW.num(g.ci95_per_s[0])} to ${HW.num(g.ci95_per_s[1])} 1/s · ${g.state}` : `${g.state || "not estimated"}${g.note ? ` · ${g.note}` : ""}`),
+      number("Doubling time", g.rate_per_s > 0 ? HW.num(Math.LN2 / g.rate_per_s) : "—", g.rate_per_s > 0 ? "s" : "", g.onset_s != null ? `onset at ${HW.num(g.onset_s)} s into the reading` : null),
+      number("Overall velocity r.m.s.", HW.num(o.velocity_rms_mm_s), "mm/s", o.band_hz ? `${HW.num(o.band_hz[0])} – ${HW.num(o.band_hz[1])} Hz · ${o.standard || "ISO 20816"}` : null),
+      el("div", { class: "n" }, el("div", { class: "k" }, "ISO 20816 zone"), el("div", { class: "v" }, HW.zoneBadge(o.zone)),
+        el("div", { class: "ci" }, o.zone_limits_mm_s ? `group ${o.machine_group}, ${o.foundation}: ${o.zone_limits_mm_s.join(" / ")} mm/s` : "")),
+      number("1X", HW.num(one.amplitude), u, `velocity ${HW.num(one.velocity_mm_s)} mm/s`),
+      number("2X", HW.num(two.amplitude), u, `velocity ${HW.num(two.velocity_mm_s)} mm/s`),
+      number("Crest factor / kurtosis", `${HW.num((r.waveform || {}).crest_factor)} / ${HW.num((r.waveform || {}).kurtosis)}`, "", "kurtosis 3 for Gaussian noise, 1.5 for a sine"),
+      number("Spectrum", `${HW.num((r.spectrum_summary || {}).df_hz)} Hz`, "lines", `${(r.spectrum_summary || {}).n_segments} averages (Welch)`),
+    );
+    const q = r.quality || {};
+    $("#quality-note").textContent = q.ok === false ? `Data quality: NOT fit for judging the machine (${(q.flags || []).join(", ")}).`
+      : `Data quality: fit${q.flags && q.flags.length ? ` (notes: ${q.flags.join(", ")})` : ""}. Analysis version ${r.analysis_version || r.version}.`;
+  }
+
+  function drawSpectrum() {
+    const F = spec.forcing_hz;
+    const unit = bundle.record.units;
+    const fmax = spec.freqs_hz[spec.freqs_hz.length - 1];
+    const ymax = Math.max(...spec.amplitude);
+    const orders = ORDERS.filter((k) => k * F <= fmax);
+    const traces = [
+      { x: spec.freqs_hz, y: spec.amplitude, type: "scatter", mode: "lines", line: { color: "#1f3b4d", width: 1.2 }, name: `amplitude (${unit}, peak)`,
+        hovertemplate: "%{x:.4g} Hz<br>%{y:.4g} " + unit + "<extra></extra>" },
+      { x: orders.map((k) => k * F), y: orders.map(() => ymax * 1.05), text: orders.map(orderName), type: "scatter", mode: "markers+text",
+        textposition: "top center", marker: { symbol: "triangle-down", size: 9, color: orders.map((k) => (k === 0.5 ? HW.palette.half : "#64748b")) },
+        name: "order markers", hovertemplate: "%{text} = %{x:.4g} Hz<extra></extra>" },
+    ];
+    const shapes = orders.map((k) => ({ type: "line", x0: k * F, x1: k * F, yref: "paper", y0: 0, y1: 0.93,
+      line: { color: k === 0.5 ? HW.palette.half : "#94a3b8", width: k === 0.5 ? 1.6 : 1, dash: k % 1 ? "dot" : "dash" } }));
+    const s = bundle.result.subharmonic || {};
+    if (s.detected) traces.push({ x: [s.frequency_hz], y: [s.amplitude], type: "scatter", mode: "markers",
+      marker: { symbol: "diamond", size: 11, color: HW.palette.half, line: { color: "#fff", width: 1 } }, name: `${s.class} line found` });
+    return HW.plot("chart-spectrum", traces, {
+      xaxis: { title: { text: "frequency (Hz)" }, range: [0, Math.min(fmax, 5.2 * F)] },
+      yaxis: { title: { text: `amplitude (${unit}, peak)` }, type: $("#log-y").checked ? "log" : "linear" }, shapes, hovermode: "x" });
+  }
+
+  function bindReadout() {
+    const div = $("#chart-spectrum");
+    const F = spec.forcing_hz;
+    div.on("plotly_hover", (ev) => {
+      const p = ev.points.find((q) => q.curveNumber === 0) || ev.points[0];
+      $("#readout").textContent = `${HW.num(p.x, 5)} Hz = ${(p.x / F).toFixed(3)}X · ${HW.num(p.y, 4)} ${bundle.record.units}`;
+    });
+  }
+
+  function zoom(lo, hi) {
+    Plotly.relayout("chart-spectrum", { "xaxis.range": [lo, hi], "xaxis.autorange": false });
+  }
+
+  async function drawWaveform() {
+    const w = await HW.api(`/api/v1/records/${bundle.record.id}/waveform?max_points=4000`);
+    const unit = bundle.record.units;
+    const traces = [{ x: w.t_s, y: w.value, type: "scatter", mode: "lines", line: { color: "#94a3b8", width: 0.8 }, name: `acceleration (${unit})` }];
+    if (spec.envelope && spec.envelope.length) {
+      traces.push({ x: spec.envelope_t_s, y: spec.envelope, type: "scatter", mode: "lines", line: { color: HW.palette.half, width: 2 }, name: "subharmonic envelope" });
+    }
+    const g = bundle.result.growth || {};
+    if (g.rate_per_s != null && g.intercept != null && g.fit_window_s && g.fit_window_s[0] != null) {
+      const [a, b] = g.fit_window_s;
+      const xs = Array.from({ length: 40 }, (_, i) => a + (b - a) * i / 39);
+      traces.push({ x: xs, y: xs.map((t) => Math.exp(g.intercept + g.rate_per_s * t)), type: "scatter", mode: "lines",
+        line: { color: HW.palette.fit, width: 2, dash: "dash" }, name: `fitted growth ${HW.num(g.rate_per_s)} 1/s` });
+      $("#growth-note").textContent = `Envelope of the band ${HW.num(g.band_hz && g.band_hz[0])} – ${HW.num(g.band_hz && g.band_hz[1])} Hz fitted from ${HW.num(a)} s to ${HW.num(b)} s (${g.n_points} points): ln(envelope) = ${HW.num(g.intercept)} + ${HW.num(g.rate_per_s)}·t.`;
+    } else {
+      $("#growth-note").textContent = `No growth line: ${g.note || g.state || "not estimated"}.`;
+    }
+    return HW.plot("chart-waveform", traces, { xaxis: { title: { text: "time in the reading (s)" } },
+      yaxis: { title: { text: `acceleration (${unit})` } } });
+  }
+
+  async function drawWaterfall() {
+    const wf = await HW.api(`/api/v1/points/${bundle.record.point_id}/waterfall?n=20`);
+    if (!wf.spectra.length) return null;
+    const F = spec.forcing_hz;
+    const fmax = Math.min(5.2 * F, wf.spectra[0].freqs_hz[wf.spectra[0].freqs_hz.length - 1]);
+    const x = wf.spectra[0].freqs_hz.filter((f) => f <= fmax);
+    const z = wf.spectra.map((s) => s.freqs_hz.length === wf.spectra[0].freqs_hz.length ? s.amplitude.slice(0, x.length) : x.map(() => null));
+    const y = wf.spectra.map((s) => HW.wall(s.measured_at, tz).slice(0, 16));
+    const unit = wf.spectra[0].units || bundle.record.units;
+    const traces = [{ x, y, z, type: "heatmap", colorscale: [[0, "#fbfaf6"], [0.25, "#c7d2fe"], [0.6, "#6d28d9"], [1, "#1e1b4b"]],
+      colorbar: { title: { text: `${unit} peak` } }, name: "amplitude", hovertemplate: "%{x:.4g} Hz<br>%{y}<br>%{z:.3g} " + unit + "<extra></extra>" }];
+    const shapes = [0.5, 1].map((k) => ({ type: "line", x0: k * F, x1: k * F, yref: "paper", y0: 0, y1: 1, line: { color: k === 0.5 ? "#f59e0b" : "#0f766e", dash: "dash", width: 1.4 } }));
+    return HW.plot("chart-waterfall", traces, { xaxis: { title: { text: "frequency (Hz)" } }, yaxis: { title: { text: `reading time (${tz})` }, type: "category" }, shapes, showlegend: false, margin: { l: 140 } });
+  }
+
+  function renderHead() {
+    const rec = bundle.record, a = bundle.asset, p = bundle.point;
+    tz = a.timezone;
+    document.title = `Reading ${rec.id} · ${a.name} · halfwatch`;
+    $("#record-title").textContent = `${a.name} · ${p.name} · ${HW.when(rec.measured_at, tz)}`;
+    $("#record-where").textContent = `${a.site} › ${a.area} · reading ${rec.id} · ${rec.n_samples} samples at ${HW.num(rec.fs_hz, 5)} Hz (${HW.num(rec.duration_s)} s) · ${rec.units} · speed ${rec.speed_hz ? HW.num(rec.speed_hz, 5) + " Hz (" + (rec.speed_source || "given") + ")" : "not given"} · from ${rec.origin} by ${rec.uploader} · times in ${tz}`;
+    const nav = $("#record-nav");
+    nav.replaceChildren(el("a", { href: `/assets/${a.id}?point=${p.id}` }, `← ${a.name} trends`), " · ",
+      bundle.older_id ? el("a", { href: `/records/${bundle.older_id}` }, "older reading") : "oldest reading", " · ",
+      bundle.newer_id ? el("a", { href: `/records/${bundle.newer_id}` }, "newer reading") : "newest reading", " · ",
+      el("a", { href: `/points/${p.id}/window` }, "operating window"));
+  }
+
+  async function load() {
+    const id = $("#record-root").dataset.recordId;
+    try { bundle = await HW.api(`/api/v1/dashboard/records/${id}`); }
+    catch (e) { HW.showError("#record-error", e); return; }
+    renderHead();
+    if (!bundle.result) {
+      const j = bundle.job || {};
+      const box = $("#record-pending");
+      box.hidden = false;
+      box.textContent = j.state === "failed" ? `The analysis failed: ${j.error}` : `The analysis is ${j.state || "waiting"}; this page refreshes when it is done.`;
+      if (j.state !== "failed") setTimeout(load, 1500);
+      return;
+    }
+    $("#record-pending").hidden = true;
+    renderNumbers(bundle.result, bundle.record);
+    spec = await HW.api(`/api/v1/records/${id}/spectrum`);
+    await drawSpectrum();
+    bindReadout();
+    await Promise.all([drawWaveform(), drawWaterfall()]);
+    document.body.dataset.ready = "1";
+  }
+
+  document.addEventListener("DOMContentLoaded", () => {
+    $("#zoom-orders").addEventListener("click", () => spec && zoom(0, 5.2 * spec.forcing_hz));
+    $("#zoom-half").addEventListener("click", () => spec && zoom(0.28 * spec.forcing_hz, 0.72 * spec.forcing_hz));
+    $("#zoom-all").addEventListener("click", () => spec && zoom(0, spec.freqs_hz[spec.freqs_hz.length - 1]));
+    $("#log-y").addEventListener("change", () => spec && Plotly.relayout("chart-spectrum", { "yaxis.type": $("#log-y").checked ? "log" : "linear" }));
+    load();
+  });
+})();
