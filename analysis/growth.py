@@ -139,6 +139,22 @@ def _saturation_split(t: np.ndarray, y: np.ndarray) -> int:
     return int(bs[i]) if f_stat > _f99(n - 4) else n
 
 
+def _trim_knee(t: np.ndarray, y: np.ndarray) -> int:
+    """Drop the rounded knee before a plateau: while the last points of the line fit all fall below it by
+    more than their scatter, shorten the fit by one point (never below MIN_POINTS)."""
+    b = len(y)
+    while b > MIN_POINTS + 2:
+        slope, c, _ = ols(t[:b], y[:b])
+        resid = y[:b] - (c + slope * t[:b])
+        scatter = float(np.std(resid[:-3])) if b > 6 else float(np.std(resid))
+        tail = resid[-3:]
+        if np.all(tail < 0) and float(np.mean(tail)) < -1.0 * scatter:
+            b -= 1
+        else:
+            break
+    return b
+
+
 def _hilbert_envelope(
     y: np.ndarray, i0: int, i1: int, fs: float, rate0: float, margin: int
 ) -> tuple[int, np.ndarray]:
@@ -229,6 +245,8 @@ def estimate_growth(
         )
     split = _saturation_split(t_blk[r0:r1], np.log(blk[r0:r1]))
     levelled = split < r1 - r0
+    if levelled:
+        split = _trim_knee(t_blk[r0 : r0 + split], np.log(blk[r0 : r0 + split]))
     r1 = r0 + split
     i0, i1 = trim + r0 * n_block, trim + r1 * n_block
     rate0 = ols(t_blk[r0:r1], np.log(blk[r0:r1]))[0]
