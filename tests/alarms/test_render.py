@@ -1,0 +1,96 @@
+"""Email wording, suggested checks, HTML escaping, and state-machine properties (hypothesis)."""
+
+from __future__ import annotations
+
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from server.alarms.engine import run
+from server.alarms.render import alarm_email, describe_finding, digest_email
+from server.alarms.rules import RuleSpec
+from server.alarms.suggestions import CAUTIONS, suggested_checks
+
+SQRT2 = 2 ** 0.5
+
+
+def finding(klass="half-order", family=None, velocity_peak=3.2 * SQRT2, zone="C"):
+    return {
+        "subharmonic": {"detected": True, "class": klass, "frequency_hz": 14.8, "order": 0.5,
+                        "velocity_mm_s": velocity_peak, "family": family or {}},
+        "growth": {"rate_per_s": 0.9, "ci95_per_s": [0.7, 1.1], "state": "growing"},
+        "overall": {"velocity_rms_mm_s": 3.9, "zone": zone},
+    }
+
+
+def test_finding_in_the_trades_words():
+    assert describe_finding(finding()) == (
+        "half-order component at 14.8 Hz (0.50X), 3.2 mm/s r.m.s., growing 0.9 /s; "
+        "zone C (3.9 mm/s r.m.s. overall)"
+    )
+    calm = {"subharmonic": {"detected": False}, "overall": {"zone": "A", "velocity_rms_mm_s": 0.8}}
+    assert describe_finding(calm) == "no subharmonic line detected; zone A (0.8 mm/s r.m.s. overall)"
+
+
+def test_suggested_checks_by_kind_of_finding():
+    # Common practice (no source): rub/looseness for a half-order family, oil film for whirl.
+    rub = " ".join(suggested_checks(finding(family={"1.5X": 0.3})))
+    assert "rub" in rub and "looseness" in rub and "unstable speed band" in rub
+    whirl = " ".join(suggested_checks(finding(klass="sub-synchronous")))
+    assert "oil" in whirl and "clearance" in whirl and "load" in whirl
+    assert "rub" not in whirl
+    assert "sensor" in " ".join(suggested_checks({}, data_quality=True))
+
+
+def _event(asset="Pump <A&B>"):
+    where = {"site": "Works", "area": "Area 1", "asset": asset, "asset_id": 7, "point": "DE-H",
+             "point_id": 3}
+    metrics = {"half_order_velocity": 1.6, "time_to_limit_days": 12.0}
+    details = {"where": where, "finding": finding(), "metrics": metrics,
+               "previous": {"half_order_velocity": 1.2}, "half_order_danger": 2.8}
+    return {"kind": "transition", "metric": "half_order_velocity", "from_level": "normal",
+            "to_level": "alert", "value": 1.6, "threshold": 1.4, "record_id": 11, "summary": "",
+            "created_at": "2026-11-02 12:00 UTC", "details": details}
+
+
+def test_alarm_email_parts_and_escaping():
+    subject, text, html = alarm_email([_event()], base_url="https://cm.example.test/")
+    assert subject == "[halfwatch] ALERT: Pump <A&B> / DE-H - half-order velocity"
+    assert "half-order 1.2 -> 1.6 mm/s (+33%)" in text
+    assert "about 12 days to the danger level (2.8 mm/s)" in text
+    assert "https://cm.example.test/assets/7" in text
+    assert "Pump &lt;A&amp;B&gt;" in html and "<A&B>" not in html
+    for caution in CAUTIONS:
+        assert caution in text
+
+
+def test_digest_table_orders_danger_first():
+    rows = [{"level": "danger", "asset": "P1", "point": "DE", "rule": "half-order velocity",
+             "value": "3.1 mm/s", "since": "2026-11-02 12:00 UTC", "status": "open"},
+            {"level": "alert", "asset": "P2", "point": "NDE", "rule": "overall velocity", "value": "3.0 mm/s",
+             "since": "2026-11-02 13:00 UTC", "status": "acknowledged by engineer1"}]
+    subject, text, html = digest_email(rows, scope_name="site Works", local_date="2026-11-03",
+                                       base_url="https://cm.example.test", changes_24h=3)
+    assert subject.endswith("2 open alarm(s), 1 danger")
+    table = [ln for ln in text.splitlines() if ln.startswith(("DANGER", "ALERT"))]
+    assert table[0].startswith("DANGER") and table[1].startswith("ALERT") and "acknowledged" in table[1]
+    assert "transitions in the last 24 h: 3" in text and html.count("<tr>") == 3
+
+
+values = st.lists(st.floats(min_value=0.0, max_value=6.0, allow_nan=False), min_size=1, max_size=60)
+
+
+@settings(max_examples=200, deadline=None)
+@given(values)
+def test_without_persistence_the_level_is_the_reading(vals):
+    rule = RuleSpec("half_order_velocity", 1.4, 2.8, k=1, n=1, hysteresis=0.0)
+    expected = ["danger" if v >= 2.8 else "alert" if v >= 1.4 else "normal" for v in vals]
+    assert run(rule, vals) == expected
+
+
+@settings(max_examples=200, deadline=None)
+@given(values, st.integers(min_value=0, max_value=59), st.floats(min_value=0.0, max_value=6.0))
+def test_one_outlier_never_changes_a_settled_level_with_2_of_3(vals, where, outlier):
+    # A level reached by 3 equal readings does not move on one different reading (k = 2, n = 3).
+    rule = RuleSpec("half_order_velocity", 1.4, 2.8, k=2, n=3, hysteresis=0.1)
+    settled = run(rule, [vals[0]] * 3)[-1]
+    assert run(rule, [vals[0]] * 3 + [outlier])[-1] == settled
