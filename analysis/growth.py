@@ -13,9 +13,10 @@ from functools import lru_cache
 
 import numpy as np
 import scipy.fft as sfft
-from scipy import signal, stats
+from scipy import signal, special
 
 from .results import Growth, Spectrum
+from .spectrum import f_isf
 
 BAND_ORDERS = 0.08  # default band width B, in orders of 1X (so B/2 = 0.04X: 1X and 2X far outside)
 MIN_SNR_DB = 8.0
@@ -72,12 +73,12 @@ def _longest_run(mask: np.ndarray) -> tuple[int, int]:
 
 @lru_cache(maxsize=512)
 def _t975(dof: int) -> float:
-    return float(stats.t.ppf(0.975, dof))
+    return float(special.stdtrit(dof, 0.975))
 
 
 @lru_cache(maxsize=512)
 def _f99(dof: int) -> float:
-    return float(stats.f.isf(0.01, 1, dof))
+    return f_isf(0.01, 1.0, float(dof))
 
 
 def ols(t: np.ndarray, y: np.ndarray) -> tuple[float, float, float]:

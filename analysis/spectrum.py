@@ -12,7 +12,7 @@ from functools import lru_cache
 
 import numpy as np
 import scipy.fft as sfft
-from scipy import stats
+from scipy import special
 
 from .results import Spectrum
 
@@ -80,9 +80,16 @@ def welch_psd(x: np.ndarray, fs: float, nperseg: int) -> tuple[np.ndarray, np.nd
     return freqs, psd, k, welch_nu_eff(w, step, k)
 
 
+def f_isf(p: float, d1: float, d2: float) -> float:
+    """Upper-tail quantile of the F(d1, d2) distribution, accurate for small p: if X ~ F(d1, d2) then
+    d2/(d2 + d1·X) ~ Beta(d2/2, d1/2), so x = (d2/d1)·(1/I⁻¹_p(d2/2, d1/2) − 1)."""
+    b = float(special.betaincinv(d2 / 2.0, d1 / 2.0, p))
+    return (d2 / d1) * (1.0 / b - 1.0)
+
+
 @lru_cache(maxsize=256)
 def _chi2_median_over_mean(nu: float) -> float:
-    return float(stats.chi2.median(nu) / nu)
+    return 2.0 * float(special.gammaincinv(nu / 2.0, 0.5)) / nu  # median of χ²_ν over its mean ν
 
 
 def robust_floor(psd: np.ndarray, nu: float, block: int = 32) -> np.ndarray:
@@ -127,7 +134,7 @@ def cfar_threshold(pfa_total: float, n_tested: int, nu: float, nu_ref: float) ->
     """
     n_tested = max(1, int(n_tested))
     pfa_bin = -np.expm1(np.log1p(-pfa_total) / n_tested)
-    return float(stats.f.isf(pfa_bin, nu, nu_ref))
+    return f_isf(pfa_bin, nu, nu_ref)
 
 
 def calibrated_spectrum(x: np.ndarray, fs: float, nperseg: int) -> Spectrum:

@@ -4,10 +4,12 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from scipy import signal
+from scipy import signal, stats
 
 from analysis.spectrum import (
     calibrated_spectrum,
+    cfar_threshold,
+    f_isf,
     grandke,
     hann,
     power,
@@ -103,3 +105,21 @@ def test_chart_spectrum_keeps_peaks():
     assert len(f) <= 512
     assert a.max() == spec.amplitude.max()  # the strongest line survives decimation
     assert abs(f[np.argmax(a)] - 333.3) < 2 * spec.df_hz
+
+
+@pytest.mark.parametrize(
+    ("p", "d1", "d2"), [(1e-3, 32, 435), (4.785e-4, 30.416, 400.0), (1e-6, 2, 27), (0.01, 1, 18)]
+)
+def test_f_quantile_matches_scipy_stats(p, d1, d2):
+    # reference: scipy.stats.f.isf
+    assert f_isf(p, d1, d2) == pytest.approx(stats.f.isf(p, d1, d2), rel=1e-9)
+
+
+def test_cfar_threshold_matches_chi2_table():
+    # methods note §8.2 (scipy.stats.chi2): K = 16 independent averages, Pfa 1e-3 per bin -> τ = 1.953 over a
+    # known floor; with a floor of ~infinite degrees of freedom the F threshold tends to it
+    assert cfar_threshold(1e-3, 1, 32.0, 1e9) == pytest.approx(1.953, abs=1e-3)
+    assert cfar_threshold(1e-3, 1, 32.0, 1e9) == pytest.approx(stats.chi2.isf(1e-3, 32) / 32, rel=1e-6)
+    # the family-wise correction: 21 bins at 1 % total -> 4.785e-4 per bin (methods note §8.4 worked example)
+    tau = cfar_threshold(0.01, 21, 30.416, 1e9)
+    assert tau == pytest.approx(2.0683, abs=1e-3)
