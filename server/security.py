@@ -20,7 +20,7 @@ import secrets
 from dataclasses import dataclass
 
 from fastapi import Depends, Request
-from sqlalchemy import select, update
+from sqlalchemy import bindparam, select, update
 
 from server.errors import Forbidden, Unauthorized
 from server.storage.tables import ROLES, ApiKey, User, UserSession, utcnow
@@ -92,6 +92,9 @@ def new_api_key() -> tuple[str, str, str]:
     return key, prefix, token_hash(key)
 
 
+_KEY_BY_PREFIX = select(ApiKey.__table__).where(ApiKey.__table__.c.prefix == bindparam("prefix"))
+
+
 def _api_key_from(request: Request) -> str | None:
     value = request.headers.get("x-api-key")
     if value:
@@ -108,15 +111,16 @@ def _principal_from_key(db, key: str) -> Principal:
     if len(parts) != 3 or parts[0] != KEY_PREFIX:
         raise Unauthorized("the API key is malformed; send the whole key as shown when it was created")
     now = utcnow()
-    with db.read() as s:
-        row = s.scalar(select(ApiKey).where(ApiKey.prefix == parts[1]))
+    with db.read_engine.connect() as conn:
+        row = conn.execute(_KEY_BY_PREFIX, {"prefix": parts[1]}).first()
     if row is None or not hmac.compare_digest(row.key_hash, token_hash(key)):
         raise Unauthorized("unknown API key; ask an admin for a key (halfwatch apikey create)")
     if row.revoked_at is not None:
         raise Unauthorized("this API key was revoked; ask an admin for a new one")
     if row.last_used_at is None or now - row.last_used_at > LAST_USED_RESOLUTION:
-        with db.unit_of_work() as s:
-            s.execute(update(ApiKey).where(ApiKey.id == row.id).values(last_used_at=now))
+        with db.write_engine.begin() as conn:
+            conn.execute(update(ApiKey.__table__).where(ApiKey.__table__.c.id == row.id)
+                         .values(last_used_at=now))
     return Principal("apikey", row.id, row.name, row.role, site_id=row.site_id)
 
 

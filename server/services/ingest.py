@@ -13,7 +13,7 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-from sqlalchemy import select
+from sqlalchemy import bindparam, insert, select
 from sqlalchemy.exc import IntegrityError
 
 from server.errors import AppError, Conflict, Forbidden, NotFound, PayloadTooLarge
@@ -99,11 +99,20 @@ def check_speed(speed_hz) -> float | None:
     return v
 
 
-def point_site(session, point_id: int) -> tuple[Point, int]:
-    row = session.execute(
-        select(Point, Area.site_id).join(Asset, Asset.id == Point.asset_id)
-        .join(Area, Area.id == Asset.area_id).where(Point.id == point_id)
-    ).first()
+# statements built once (building them per request costs about as much as running them)
+_POINT_SITE = (select(Point.id, Area.site_id).join(Asset, Asset.id == Point.asset_id)
+               .join(Area, Area.id == Asset.area_id).where(Point.id == bindparam("pid")))
+_FIRST = select(Record.id, Record.checksum).where(Record.point_id == bindparam("pid"),
+                                                  Record.client_ref == bindparam("ref"))
+_FIRST_JOB = select(Job.id).where(Job.record_id == bindparam("rid")).order_by(Job.id).limit(1)
+_INSERT_RECORD = insert(Record.__table__).returning(Record.__table__.c.id)
+_INSERT_WAVEFORM = insert(Waveform.__table__)
+_INSERT_JOB = insert(Job.__table__).returning(Job.__table__.c.id)
+
+
+def point_site(conn, point_id: int) -> tuple[int, int]:
+    """(point id, site id) of a point; NotFound names the field."""
+    row = conn.execute(_POINT_SITE, {"pid": point_id}).first()
     if row is None:
         raise NotFound(f"no measurement point {point_id}; see GET /api/v1/tree", field="point_id")
     return row[0], row[1]
@@ -117,7 +126,7 @@ def ingest_record(db, *, point_id: int, samples, fs_hz: float, units: str | None
     """Validate and store one record with its analysis job; see the module docstring.
 
     ``site_scope`` limits the call to points of one site (API keys scoped to a site). With ``session``
-    the caller owns the transaction (route uploads store several records in one).
+    the caller owns the transaction (the record is stored in it, uncommitted).
     """
     limits = limits or Limits()
     if origin not in ORIGINS:
@@ -130,53 +139,60 @@ def ingest_record(db, *, point_id: int, samples, fs_hz: float, units: str | None
     measured_at = check_time(measured_at, limits)
     speed = check_speed(speed_hz)
     digest = blobs.checksum(x32)
-    codec, data = blobs.encode_waveform(x32)
-    packed_source = blobs.compress(source_bytes) if source_bytes is not None else None
 
-    def _store(s) -> IngestOutcome:
-        point, site_id = point_site(s, point_id)
+    def _check(conn) -> IngestOutcome | None:
+        _, site_id = point_site(conn, point_id)
         if site_scope is not None and site_scope != site_id:
             raise Forbidden(f"this API key is limited to site {site_scope}; point {point_id} is elsewhere",
                             field="point_id")
-        if client_ref is not None:
-            first = _existing(s, point_id, client_ref, digest)
-            if first is not None:
-                return first
-        record = Record(point_id=point.id, measured_at=measured_at, received_at=utcnow(), fs_hz=fs,
-                        n_samples=int(x32.size), units=canonical, speed_hz=speed,
-                        speed_source=(speed_source or "given") if speed is not None else None,
-                        origin=origin, uploader=uploader[:120], client_ref=client_ref, checksum=digest)
-        s.add(record)
-        s.flush()
-        s.add(Waveform(record_id=record.id, codec=codec, data=data, source_name=source_name,
-                       source_bytes=packed_source))
-        job = Job(record_id=record.id, state="queued", reason="ingest")
-        s.add(job)
-        s.flush()
-        return IngestOutcome(record.id, True, job.id)
+        return _existing(conn, point_id, client_ref, digest) if client_ref is not None else None
+
+    def _encode():
+        packed_source = blobs.compress(source_bytes) if source_bytes is not None else None
+        return (*blobs.encode_waveform(x32), packed_source)
+
+    def _store(conn, codec, data, packed_source) -> IngestOutcome:
+        now = utcnow()
+        rid = conn.execute(_INSERT_RECORD, dict(
+            point_id=point_id, measured_at=measured_at, received_at=now, fs_hz=fs, n_samples=int(x32.size),
+            units=canonical, speed_hz=speed, speed_source=(speed_source or "given") if speed else None,
+            origin=origin, uploader=uploader[:120], client_ref=client_ref, checksum=digest,
+        )).scalar_one()
+        conn.execute(_INSERT_WAVEFORM, dict(record_id=rid, codec=codec, data=data, source_name=source_name,
+                                            source_bytes=packed_source))
+        jid = conn.execute(_INSERT_JOB, dict(record_id=rid, state="queued", reason="ingest", attempts=0,
+                                             not_before=now, created_at=now, lease_until=None, worker_id=None,
+                                             error=None, finished_at=None)).scalar_one()
+        return IngestOutcome(rid, True, jid)
 
     if session is not None:
-        return _store(session)
+        conn = session.connection()
+        first = _check(conn)
+        return first if first is not None else _store(conn, *_encode())
+    with db.read_engine.connect() as conn:  # lookups outside the write lock
+        first = _check(conn)
+    if first is not None:
+        return first
+    encoded = _encode()
     try:
-        with db.unit_of_work() as s:
-            return _store(s)
+        with db.write_engine.begin() as conn:
+            return _store(conn, *encoded)
     except IntegrityError:
         if client_ref is None:
             raise
-        with db.read() as s:  # another request with the same reference won the race
-            first = _existing(s, point_id, client_ref, digest)
+        with db.read_engine.connect() as conn:  # another request with the same reference won the race
+            first = _existing(conn, point_id, client_ref, digest)
         if first is None:
             raise
         return first
 
 
 def _existing(s, point_id: int, client_ref: str, digest: str) -> IngestOutcome | None:
-    row = s.execute(select(Record.id, Record.checksum).where(Record.point_id == point_id,
-                                                             Record.client_ref == client_ref)).first()
+    row = s.execute(_FIRST, {"pid": point_id, "ref": client_ref}).first()
     if row is None:
         return None
     if row.checksum != digest:
         raise Conflict(f"client_ref {client_ref!r} was already used for record {row.id} with different "
                        "samples; use a new reference for a new record", field="client_ref")
-    job_id = s.scalar(select(Job.id).where(Job.record_id == row.id).order_by(Job.id).limit(1))
+    job_id = s.execute(_FIRST_JOB, {"rid": row.id}).scalar()
     return IngestOutcome(row.id, False, job_id)
