@@ -333,6 +333,7 @@ def _two_mode(b: _Builder, p: dict, fw: float) -> dict:
     amp_1x = _positive("amp_1x_g", p.pop("amp_1x_g", 0.2))
     pre = float(p.pop("pre_ratio", 0.8))
     method = p.pop("method", "slow")
+    start_rel = _positive("start_rel", p.pop("start_rel", 1e-4))
     if method not in ("slow", "ode"):
         raise ValueError(f"method must be 'slow' or 'ode', got {method!r}")
     b.background(p, one_x=False)
@@ -342,11 +343,17 @@ def _two_mode(b: _Builder, p: dict, fw: float) -> dict:
     scale = amp_1x / (setup.big_w**2 * a2c)  # g per model unit of acceleration: 1X at a2c reads amp_1x
     if method == "ode":
         _, _, acc1, acc2 = sm.two_mode_ode(
-            b.t, setup, force=ratio * f_c, force_before=pre * f_c, t0=t0, u1_start=1e-4 * a2c
+            b.t, setup, force=ratio * f_c, force_before=pre * f_c, t0=t0, u1_start=start_rel * a2c
         )
     else:
         u1, u2 = sm.two_mode_slow(
-            b.t, b.rng, setup, force_before=pre * f_c, force_after=ratio * f_c, t0=t0, noise_sub=1e-4 * a2c
+            b.t,
+            b.rng,
+            setup,
+            force_before=pre * f_c,
+            force_after=ratio * f_c,
+            t0=t0,
+            noise_sub=start_rel * a2c,
         )
         acc1, acc2 = -((setup.big_w / 2) ** 2) * u1, -(setup.big_w**2) * u2
     b.x += scale * (acc1 + acc2)
