@@ -18,7 +18,7 @@ from scipy import signal, special
 from .results import Growth, Spectrum
 from .spectrum import f_isf
 
-BAND_ORDERS = 0.08  # default band width B, in orders of 1X (so B/2 = 0.04X: 1X and 2X far outside)
+BAND_ORDERS = 0.16  # default band width B in orders of 1X (0.42-0.58X), narrowed around other lines
 MIN_SNR_DB = 8.0
 MIN_POINTS = 6
 SPACING_B = 1.5  # envelope samples every 1.5/B s
