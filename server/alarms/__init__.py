@@ -29,10 +29,18 @@ def run_mailer_once(db, settings, **kwargs) -> int:
     return _once(db, settings, **kwargs)
 
 
+def run_background_once(db, settings, **kwargs) -> int:
+    """Refresh operating-window fits and send due emails (what the worker loop calls between jobs)."""
+    from .mailer import run_background_once as _once
+
+    return _once(db, settings, **kwargs)
+
+
 def run_mailer_forever(db, settings, stop=None) -> None:
     from .mailer import run_mailer_forever as _forever
 
     _forever(db, settings, stop)
 
 
-__all__ = ["ensure_default_rules", "evaluate_result", "run_mailer_forever", "run_mailer_once"]
+__all__ = ["ensure_default_rules", "evaluate_result", "run_background_once", "run_mailer_forever",
+           "run_mailer_once"]

@@ -123,3 +123,21 @@ def trend_and_forecast(
     if slope <= 0:
         return db_per_day, NO_FORECAST_DAYS
     return db_per_day, min(NO_FORECAST_DAYS, (math.log(limit) - now_log) / slope)
+
+
+def detailed_forecast(history: list[list[float]], *, limit: float | None) -> dict:
+    """The trend model of ``analysis.trend`` (model choice, change point, Fieller interval) for emails.
+
+    It costs milliseconds, so the engine calls it only when a level changes, not for every record.
+    """
+    from analysis.trend import fit_trend
+
+    points = [(ts / 86400.0, a) for ts, a in history if a and a > 0]
+    if len(points) < 5:
+        return {"status": "not_enough_data"}
+    try:
+        res = fit_trend([p[0] for p in points], [p[1] for p in points], limit=limit, band_points=2)
+    except ValueError as exc:
+        return {"status": "failed", "message": str(exc)}
+    return {k: getattr(res, k) for k in ("status", "message", "model", "growth_db_per_day", "days_to_limit",
+                                         "days_to_limit_lo", "days_to_limit_hi")}

@@ -77,7 +77,8 @@ def _result_data(result) -> dict:
 def _status(session: Session, point_id: int) -> AlarmPointStatus:
     status = session.get(AlarmPointStatus, point_id)
     if status is None:
-        status = AlarmPointStatus(point_id=point_id, speeds_hz=[], history=[], windows={}, last_metrics={})
+        status = AlarmPointStatus(point_id=point_id, speeds_hz=[], history=[], windows={}, window_fit={},
+                                  last_metrics={})
         session.add(status)
     return status
 
@@ -156,7 +157,7 @@ def _evaluate(session: Session, record, result, settings, now: dt.datetime) -> l
     metrics["trend_db_per_day"], metrics["time_to_limit_days"] = checks.trend_and_forecast(
         history, limit=danger_of.get("half_order_velocity")
     )
-    metrics["threshold_margin"], margin_reason = margin.threshold_margin(session, point, data)
+    metrics["threshold_margin"], margin_reason = margin.threshold_margin(status, data)
     status.history = history
     status.speeds_hz = checks.remember_speed(list(status.speeds_hz or []), (data.get("forcing") or {})
                                              .get("frequency_hz"))
@@ -164,6 +165,7 @@ def _evaluate(session: Session, record, result, settings, now: dt.datetime) -> l
     status.last_record_id, status.data_quality_open, status.updated_at = record.id, False, now
 
     events = []
+    forecast: dict | None = None  # the detailed forecast, computed once if anything changes
     states = _states(session, point, [r.metric for r in rules])
     windows = dict(status.windows or {})
     for row in rules:
@@ -185,6 +187,8 @@ def _evaluate(session: Session, record, result, settings, now: dt.datetime) -> l
         windows[row.metric] = [r.to_list() for r in window]
         if tr is None:
             continue  # the state row is written only when its level changes
+        if forecast is None:
+            forecast = checks.detailed_forecast(history, limit=danger_of.get("half_order_velocity"))
         state.window = windows[row.metric]
         state.last_value, state.last_record_id, state.updated_at = value, record.id, now
         summary = f"{row.metric}: {tr.from_level} -> {tr.to_level} at {value:.4g}"
@@ -192,6 +196,7 @@ def _evaluate(session: Session, record, result, settings, now: dt.datetime) -> l
             kind="transition", metric=row.metric, rule_id=row.id, from_level=tr.from_level,
             to_level=tr.to_level, value=value, threshold=tr.level_value, summary=summary,
             details={"where": where, "metrics": status.last_metrics, "previous": previous,
+                     "window": _window_summary(status.window_fit), "forecast": forecast,
                      "levels": list(levels), "finding": _finding(data), "direction": spec.direction,
                      "half_order_danger": danger_of.get("half_order_velocity")},
             **common,
@@ -220,6 +225,12 @@ def _apply_transition(state: AlarmState, new_level: str, now: dt.datetime) -> No
 
 def _shelved(state: AlarmState, now: dt.datetime) -> bool:
     return state.shelved_until is not None and state.shelved_until > now
+
+
+def _window_summary(fit: dict | None) -> dict | None:
+    if not fit or fit.get("status") != "fit":
+        return None
+    return {"unstable_band_hz": fit.get("unstable_band_hz"), "fitted_at": fit.get("fitted_at")}
 
 
 def _finding(data: dict) -> dict:

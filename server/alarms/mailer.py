@@ -188,13 +188,24 @@ def run_mailer_once(db, settings, *, me: str | None = None, now: dt.datetime | N
             return total  # something failed: back off until the next poll
 
 
+def run_background_once(db, settings, *, me: str | None = None, now: dt.datetime | None = None) -> int:
+    """One pass of the alarm background work: refresh stale operating-window fits, then send mail."""
+    from .margin import refresh_window_fits
+
+    try:
+        refresh_window_fits(db, now=now)
+    except Exception:  # the fits are optional; mail must still go out
+        log.exception("operating-window fit refresh failed")
+    return run_mailer_once(db, settings, me=me, now=now)
+
+
 def run_mailer_forever(db, settings, stop: threading.Event | None = None) -> None:
     stop = stop or threading.Event()
     me = sender_id()
     log.info("mailer %s started (SMTP %s:%s)", me, settings.smtp_host, settings.smtp_port)
     while not stop.is_set():
         try:
-            run_mailer_once(db, settings, me=me)
+            run_background_once(db, settings, me=me)
         except Exception:  # keep the loop alive; the next poll retries
             log.exception("mailer pass failed")
         stop.wait(settings.mail_poll_s)

@@ -1,21 +1,100 @@
-"""Margin to the instability threshold, from the operating-window fit when one exists.
+"""Margin to the instability threshold from the point's operating-window fit.
 
-The margin is ``1 - h/h_c`` (1 far from the threshold, 0 on it, negative beyond it). It is read from
-the result's ``window.margin`` (written when an operating-window fit exists for the point, see
-``analysis/window.py``); without it the rule stays inactive with the reason :data:`NO_FIT`.
+The fit (``analysis.window.fit_operating_window``, the same one the dashboard shows) takes about a
+tenth of a second, too slow for every record inside the worker's transaction. So it is refreshed in
+the background (:func:`refresh_window_fits`, run by the mailer/housekeeping loop) and its parameters
+f0, zeta and k are kept in ``alarm_point_status.window_fit``. Each record then gets today's margin in
+closed form from the first-order threshold used by that fit:
+
+    a_c(f) = 2 sqrt(((f - 2 f0) / f0)^2 + 4 zeta^2) / k,     margin = 1 - a_1X / a_c(f)
+
+(1 far from the threshold, 0 on it, negative beyond it). Only a fit with status ``fit`` is used; a
+weakly constrained one leaves the rule inactive with the fit's own message as the reason.
 """
 
 from __future__ import annotations
 
+import datetime as dt
+import logging
 import math
 
+from sqlalchemy import func, select
+
+log = logging.getLogger(__name__)
+
 NO_FIT = "no operating-window fit for this point"
+MIN_RECORDS = 10  # analysis.window needs at least this many labelled records
+REFIT_AFTER = 5  # new results since the last fit
+HISTORY_LIMIT = 2000
 
 
-def threshold_margin(session, point, data: dict) -> tuple[float | None, str | None]:
-    """``(margin, None)`` when a fit is available, else ``(None, reason)``."""
-    window_data = data.get("window")
-    value = window_data.get("margin") if isinstance(window_data, dict) else None
-    if isinstance(value, (int, float)) and not isinstance(value, bool) and math.isfinite(value):
-        return float(value), None
-    return None, NO_FIT
+def _finite(v) -> bool:
+    return isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v)
+
+
+def margin_from_fit(fit: dict, speed_hz, amp_1x) -> float | None:
+    f0, zeta, k = fit.get("f0_hz"), fit.get("zeta"), fit.get("k_per_unit")
+    if not all(_finite(v) and v > 0 for v in (f0, zeta, k)) or not (_finite(speed_hz) and _finite(amp_1x)):
+        return None
+    a_c = 2.0 * math.sqrt(((speed_hz - 2.0 * f0) / f0) ** 2 + 4.0 * zeta**2) / k
+    return 1.0 - amp_1x / a_c if a_c > 0 else None
+
+
+def threshold_margin(status, data: dict) -> tuple[float | None, str | None]:
+    """``(margin, None)`` when a usable fit exists, else ``(None, reason)``."""
+    fit = (status.window_fit if status is not None else None) or {}
+    if not fit:
+        return None, NO_FIT
+    if fit.get("status") != "fit":
+        return None, f"{NO_FIT}: {fit.get('message') or fit.get('status')}"
+    speed = (data.get("forcing") or {}).get("frequency_hz")
+    amp = ((data.get("orders") or {}).get("1X") or {}).get("amplitude")
+    value = margin_from_fit(fit, speed, amp)
+    return (value, None) if value is not None else (None, f"{NO_FIT}: no 1X reading in this record")
+
+
+def _history_rows(session, point_id: int):
+    from server.routes.dashboard_series import json_number
+    from server.storage.tables import Result
+
+    cols = (Result.measured_ts, Result.forcing_hz,
+            json_number(session.bind.dialect.name, "orders", "1X", "amplitude"), Result.sub_detected,
+            Result.sub_class, Result.growth_rate_per_s, Result.sub_amplitude, Result.record_id)
+    rows = session.execute(select(*cols).where(Result.point_id == point_id, Result.current.is_(True))
+                           .order_by(Result.measured_ts.desc()).limit(HISTORY_LIMIT)).all()
+    rows.reverse()
+    return rows
+
+
+def refresh_window_fits(db, *, now: dt.datetime | None = None) -> int:
+    """Refit the points with enough new results; returns how many fits were stored."""
+    from server.routes.dashboard_window import fitted_window, readings
+    from server.storage.tables import Result, utcnow
+
+    from .tables import AlarmPointStatus
+
+    now = now or utcnow()
+    with db.read() as s:
+        counts = dict(s.execute(select(Result.point_id, func.count()).where(Result.current.is_(True))
+                                .group_by(Result.point_id)).all())
+        fitted = {p: (f or {}).get("n_results", 0) for p, f in
+                  s.execute(select(AlarmPointStatus.point_id, AlarmPointStatus.window_fit))}
+    due = [p for p, n in counts.items() if p in fitted and n >= MIN_RECORDS and n - fitted[p] >= REFIT_AFTER]
+    stored = 0
+    for point_id in due:
+        with db.read() as s:
+            pts = readings(_history_rows(s, point_id))
+        try:
+            fit = fitted_window(pts) if len(pts) >= MIN_RECORDS else {"status": "not_enough_data"}
+        except Exception as exc:  # a failed fit must not stop the loop; the rule stays inactive
+            log.warning("window fit for point %s failed: %s", point_id, exc)
+            fit = {"status": "failed", "message": str(exc)}
+        keep = {k: fit.get(k) for k in ("status", "message", "f0_hz", "zeta", "k_per_unit", "margin_pct",
+                                        "unstable_band_hz")}
+        keep.update(n_results=counts[point_id], fitted_at=now.isoformat())
+        with db.unit_of_work() as s:
+            status = s.get(AlarmPointStatus, point_id)
+            if status is not None:
+                status.window_fit = keep
+                stored += 1
+    return stored

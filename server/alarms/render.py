@@ -60,7 +60,19 @@ def change_since_last(metrics: dict, previous: dict) -> str:
     return "; ".join(out) or "no comparable previous reading"
 
 
-def forecast_text(metrics: dict, danger: float | None) -> str:
+def forecast_text(metrics: dict, danger: float | None, detailed: dict | None = None) -> str:
+    limit = f" ({danger:.2g} mm/s r.m.s.)" if danger else ""
+    d = detailed or {}
+    if d.get("status") == "forecast" and d.get("days_to_limit") is not None:
+        text = f"about {d['days_to_limit']:.0f} days to the danger level{limit}"
+        lo, hi = d.get("days_to_limit_lo"), d.get("days_to_limit_hi")
+        if lo is not None and hi is not None:
+            text += f" (90 % interval {lo:.0f} to {hi:.0f} days)"
+        elif lo is not None:
+            text += f" (at least {lo:.0f} days; no upper bound)"
+        return text + f", {d.get('model')} trend"
+    if d.get("status") == "above_limit":
+        return "already at or above the danger level"
     days = metrics.get("time_to_limit_days")
     if days is None:
         return "not enough readings yet for a forecast"
@@ -68,17 +80,19 @@ def forecast_text(metrics: dict, danger: float | None) -> str:
         return "half-order level not rising: no forecast"
     if days <= 0:
         return "already at or above the danger level"
-    limit = f" ({danger:.2g} mm/s)" if danger else ""
     return f"about {days:.0f} days to the danger level{limit} at the present trend"
 
 
-def margin_text(metrics: dict) -> str:
+def margin_text(metrics: dict, window: dict | None = None) -> str:
     margin = metrics.get("threshold_margin")
     if margin is None:
         return "not known (no operating-window fit for this point yet)"
-    if margin < 0:
-        return "beyond the instability threshold"
-    return f"{margin:.0%} below the instability threshold"
+    text = "beyond the instability threshold" if margin < 0 else \
+        f"{margin:.0%} below the instability threshold"
+    band = (window or {}).get("unstable_band_hz")
+    if band:
+        text += f"; unstable forcing band {band[0]:.2f} to {band[1]:.2f} Hz at today's 1X amplitude"
+    return text
 
 
 def _event_lines(event: dict) -> tuple[str, list[tuple[str, str]]]:
@@ -117,8 +131,8 @@ def alarm_email(events: list[dict], *, base_url: str) -> tuple[str, str, str]:
         facts += [
             ("Finding", describe_finding(finding)),
             ("Change since the last reading", change_since_last(metrics, details.get("previous") or {})),
-            ("Forecast", forecast_text(metrics, details.get("half_order_danger"))),
-            ("Margin to the instability threshold", margin_text(metrics)),
+            ("Forecast", forecast_text(metrics, details.get("half_order_danger"), details.get("forecast"))),
+            ("Margin to the instability threshold", margin_text(metrics, details.get("window"))),
         ]
     headlines = [_event_lines(e)[0] for e in events]
     checks = suggested_checks(finding, first.get("metric"), data_quality=dq)

@@ -82,6 +82,7 @@ class AlarmPointStatus(Base):
     speeds_hz: Mapped[list] = mapped_column(JSON, default=list)
     history: Mapped[list] = mapped_column(JSON, default=list)  # [[measured_ts, half-order mm/s], ...]
     windows: Mapped[dict] = mapped_column(JSON, default=dict)  # metric -> [[value, alert, danger], ...]
+    window_fit: Mapped[dict] = mapped_column(JSON, default=dict)  # operating-window fit (margin.py)
     last_metrics: Mapped[dict] = mapped_column(JSON, default=dict)
     last_record_id: Mapped[int | None] = mapped_column(Integer)
     data_quality_open: Mapped[bool] = mapped_column(Boolean, default=False)

@@ -24,7 +24,7 @@ def _settings():
 
 
 def cmd_mailer(args) -> int:
-    from server.alarms.mailer import run_mailer_forever, run_mailer_once
+    from server.alarms.mailer import run_background_once, run_mailer_forever
     from server.cli.service import _database
 
     settings = _settings()
@@ -33,7 +33,7 @@ def cmd_mailer(args) -> int:
     db = _database(settings)
     try:
         if args.once:
-            print(f"sent {run_mailer_once(db, settings)} email(s)")
+            print(f"sent {run_background_once(db, settings)} email(s)")
         else:
             run_mailer_forever(db, settings)
     finally:
@@ -70,7 +70,8 @@ def cmd_email_test(args) -> int:
 
 
 def register(sub: argparse._SubParsersAction) -> None:
-    p = sub.add_parser("mailer", help="send the alert emails waiting in the outbox (runs until stopped)")
+    p = sub.add_parser("mailer", help="send the alert emails waiting in the outbox and refresh the "
+                       "operating-window fits behind the margin rule (runs until stopped)")
     p.add_argument("--once", action="store_true", help="send what is due, then exit")
     p.set_defaults(func=cmd_mailer)
     p = sub.add_parser("email-test", help="send a test message through the configured SMTP server")

@@ -56,11 +56,22 @@ def test_alarm_email_parts_and_escaping():
     subject, text, html = alarm_email([_event()], base_url="https://cm.example.test/")
     assert subject == "[halfwatch] ALERT: Pump <A&B> / DE-H - half-order velocity"
     assert "half-order 1.2 -> 1.6 mm/s (+33%)" in text
-    assert "about 12 days to the danger level (2.8 mm/s)" in text
+    assert "about 12 days to the danger level (2.8 mm/s r.m.s.) at the present trend" in text
     assert "https://cm.example.test/assets/7" in text
     assert "Pump &lt;A&amp;B&gt;" in html and "<A&B>" not in html
     for caution in CAUTIONS:
         assert caution in text
+
+
+def test_detailed_forecast_and_unstable_band_in_the_email():
+    event = _event()
+    event["details"]["forecast"] = {"status": "forecast", "model": "exponential", "days_to_limit": 9.4,
+                                    "days_to_limit_lo": 6.2, "days_to_limit_hi": 15.8}
+    event["details"]["metrics"]["threshold_margin"] = 0.18
+    event["details"]["window"] = {"unstable_band_hz": [48.91, 51.07]}
+    _s, text, _h = alarm_email([event], base_url="https://cm.example.test")
+    assert "about 9 days to the danger level (2.8 mm/s r.m.s.) (90 % interval 6 to 16 days)" in text
+    assert "18% below the instability threshold; unstable forcing band 48.91 to 51.07 Hz" in text
 
 
 def test_digest_table_orders_danger_first():

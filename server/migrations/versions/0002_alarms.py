@@ -99,6 +99,7 @@ def upgrade() -> None:
     sa.Column('speeds_hz', sa.JSON(), nullable=False),
     sa.Column('history', sa.JSON(), nullable=False),
     sa.Column('windows', sa.JSON(), nullable=False),
+    sa.Column('window_fit', sa.JSON(), nullable=False),
     sa.Column('last_metrics', sa.JSON(), nullable=False),
     sa.Column('last_record_id', sa.Integer(), nullable=True),
     sa.Column('data_quality_open', sa.Boolean(), nullable=False),

@@ -1,0 +1,66 @@
+"""The threshold-margin rule: closed-form margin from a stored operating-window fit, and the refresh."""
+
+from __future__ import annotations
+
+import pytest
+from alarms.helpers import make_result
+from sqlalchemy import select
+
+from server.alarms.margin import NO_FIT, margin_from_fit, refresh_window_fits
+from server.alarms.tables import AlarmPointStatus, AlarmState
+
+
+def test_margin_at_exact_tuning_is_one_minus_a_over_4_zeta_over_k():
+    # First-order damped Mathieu at exact tuning (forcing = 2 f0): h_c = 4 zeta (Landau & Lifshitz
+    # section 27/29, from memory; methods.md 6.3). With h = k a: a_c = 4 zeta / k = 0.4 here.
+    fit = {"f0_hz": 25.0, "zeta": 0.01, "k_per_unit": 0.1}
+    assert margin_from_fit(fit, 50.0, 0.3) == pytest.approx(0.25)
+    assert margin_from_fit(fit, 50.0, 0.4) == pytest.approx(0.0, abs=1e-12)
+    # Detuned by 2 %: h_c = 2 sqrt(0.02^2 + 4 zeta^2) = 0.056569 (same formula, T5 of methods.md).
+    assert margin_from_fit(fit, 50.5, 0.3) == pytest.approx(1 - 0.3 / (2 * (0.02**2 + 4e-4) ** 0.5 / 0.1))
+    assert margin_from_fit({"f0_hz": None}, 50.0, 0.3) is None
+
+
+def _margin_state(db, point_id):
+    with db.read() as s:
+        return s.scalars(select(AlarmState).where(AlarmState.point_id == point_id,
+                                                  AlarmState.metric == "threshold_margin")).one()
+
+
+def test_margin_rule_follows_a_stored_fit(feeder, plant, migrated_db):
+    feeder.feed(plant.point_id, make_result(half_v=0.2, f1x=24.75))
+    with migrated_db.unit_of_work() as s:
+        s.get(AlarmPointStatus, plant.point_id).window_fit = {
+            "status": "fit", "f0_hz": 12.375, "zeta": 0.01, "k_per_unit": 0.1,
+            "unstable_band_hz": [24.6, 24.9]}
+    # a_c at exact tuning = 0.4; the helper's 1X amplitude is one_x_v x 0.1 -> margins 0.5, 0.15, 0.025.
+    got = []
+    for one_x in (2.0, 3.4, 3.4, 3.9, 3.9):
+        events = feeder.feed(plant.point_id, make_result(half_v=0.2, f1x=24.75, one_x_v=one_x))
+        got += [(e[3], e[4]) for e in events if e[2] == "threshold_margin"]
+    assert got == [("normal", "alert"), ("alert", "danger")]
+    assert _margin_state(migrated_db, plant.point_id).inactive_reason is None
+
+
+def test_weak_fit_leaves_the_rule_inactive_with_its_reason(feeder, plant, migrated_db):
+    feeder.feed(plant.point_id, make_result(half_v=0.2))
+    with migrated_db.unit_of_work() as s:
+        s.get(AlarmPointStatus, plant.point_id).window_fit = {"status": "weakly_constrained",
+                                                               "message": "add records at other speeds"}
+    feeder.feed(plant.point_id, make_result(half_v=0.2))
+    reason = _margin_state(migrated_db, plant.point_id).inactive_reason
+    assert reason.startswith(NO_FIT) and "other speeds" in reason
+
+
+def test_refresh_stores_a_fit_after_enough_records(feeder, plant, migrated_db):
+    # Invented history: speeds 24.0-25.5 Hz, 1X amplitudes, half-order present above a tongue edge.
+    speeds = [24.0, 24.3, 24.6, 24.75, 24.9, 25.2, 25.5, 24.5, 24.75, 25.0, 24.2, 24.8]
+    amps = [2.0, 3.0, 4.0, 4.5, 4.0, 3.0, 2.0, 5.0, 1.0, 4.8, 4.9, 2.5]
+    for f, a in zip(speeds, amps, strict=True):
+        present = a >= 3.5 and abs(f - 24.75) < 0.35
+        feeder.feed(plant.point_id, make_result(half_v=1.0 if present else 0.0, f1x=f, one_x_v=a))
+    assert refresh_window_fits(migrated_db) == 1
+    with migrated_db.read() as s:
+        fit = s.get(AlarmPointStatus, plant.point_id).window_fit
+    assert fit["n_results"] == 12 and fit["status"]
+    assert refresh_window_fits(migrated_db) == 0  # nothing new: no refit
