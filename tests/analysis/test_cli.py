@@ -57,9 +57,16 @@ def test_bad_file_exits_2_with_one_line(tmp_path):
     assert len(out.stderr.strip().splitlines()) == 1 and "not a readable WAV" in out.stderr
 
 
-def test_missing_file_and_csv_without_rate_exit_2(tmp_path):
-    assert _run(tmp_path / "nope.wav", "--forcing-hz", 30).returncode == 2
+def test_missing_file_and_csv_without_rate_exit_2(tmp_path, capsys):
+    # in-process through the same dispatcher the console script calls
+    from server.cli import main
+
+    assert main(["analyze", str(tmp_path / "nope.wav"), "--forcing-hz", "30"]) == 2
+    assert "check the path" in capsys.readouterr().err
     one = tmp_path / "one.csv"
-    one.write_text("\n".join(["0.1", "0.2"] * 2000))
-    out = _run(one, "--forcing-hz", 30)
-    assert out.returncode == 2 and "--sample-rate" in out.stderr
+    one.write_text("\n".join(["0.1", "0.2"] * 4000))
+    assert main(["analyze", str(one), "--forcing-hz", "30"]) == 2
+    err = capsys.readouterr().err
+    assert "--sample-rate" in err and len(err.strip().splitlines()) == 1
+    assert main(["analyze", str(one), "--forcing-hz", "30", "--sample-rate", "2560", "--json"]) == 0
+    assert json.loads(capsys.readouterr().out)["sample_rate_hz"] == 2560.0
