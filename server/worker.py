@@ -19,10 +19,10 @@ import time
 import uuid
 from dataclasses import dataclass
 
-from sqlalchemy import and_, or_, select, update
+from sqlalchemy import and_, bindparam, or_, select, update
 
 from server.storage import blobs
-from server.storage.packing import pack_arrays
+from server.storage.packing import max_hold, pack_arrays
 from server.storage.tables import Asset, Job, Point, Record, Result, Waveform, utcnow
 
 log = logging.getLogger("halfwatch.worker")
@@ -47,27 +47,37 @@ def default_worker_id() -> str:
     return f"{socket.gethostname()}:{os.getpid()}:{uuid.uuid4().hex[:6]}"
 
 
+_J = Job.__table__.c
+_EXPIRE = (update(Job.__table__)
+           .where(_J.state == "running", _J.lease_until < bindparam("now"),
+                  _J.attempts >= bindparam("max_attempts"))
+           .values(state="failed", finished_at=bindparam("now"), lease_until=None, error=bindparam("why")))
+_RUNNABLE = or_(and_(_J.state == "queued", _J.not_before <= bindparam("now")),
+                and_(_J.state == "running", _J.lease_until < bindparam("now")))
+_PICK = select(_J.id).where(_RUNNABLE).order_by(_J.id).limit(1)
+
+
+def _claim_statement(skip_locked: bool):
+    pick = _PICK.with_for_update(skip_locked=True) if skip_locked else _PICK
+    return (update(Job.__table__).where(_J.id == pick.scalar_subquery(), _RUNNABLE)
+            .values(state="running", attempts=_J.attempts + 1, worker_id=bindparam("wid"),
+                    lease_until=bindparam("lease_until"))
+            .returning(_J.id, _J.record_id, _J.attempts))
+
+
+_CLAIM = {False: _claim_statement(False), True: _claim_statement(True)}
+
+
 def claim(db, worker_id: str, *, lease_s: float, max_attempts: int, now: dt.datetime | None = None):
     """Claim the oldest runnable job (queued, or running with an expired lease); None if there is none."""
     now = now or utcnow()
-    with db.unit_of_work() as s:
-        s.execute(  # leases that ran out on the last allowed attempt: give up on them
-            update(Job).where(Job.state == "running", Job.lease_until < now, Job.attempts >= max_attempts)
-            .values(state="failed", finished_at=now, lease_until=None,
-                    error=f"lease expired on attempt {max_attempts} of {max_attempts}: the worker "
-                    "stopped during the analysis (crashed or killed)")
-        )
-        runnable = or_(and_(Job.state == "queued", Job.not_before <= now),
-                       and_(Job.state == "running", Job.lease_until < now))
-        pick = select(Job.id).where(runnable).order_by(Job.id).limit(1)
-        if db.dialect == "postgresql":
-            pick = pick.with_for_update(skip_locked=True)
-        row = s.execute(
-            update(Job).where(Job.id == pick.scalar_subquery(), runnable)
-            .values(state="running", attempts=Job.attempts + 1, worker_id=worker_id,
-                    lease_until=now + dt.timedelta(seconds=lease_s))
-            .returning(Job.id, Job.record_id, Job.attempts)
-        ).first()
+    why = (f"lease expired on attempt {max_attempts} of {max_attempts}: the worker stopped during the "
+           "analysis (crashed or killed)")
+    with db.write_engine.begin() as conn:
+        # leases that ran out on the last allowed attempt: give up on them
+        conn.execute(_EXPIRE, {"now": now, "max_attempts": max_attempts, "why": why})
+        row = conn.execute(_CLAIM[db.dialect == "postgresql"], {
+            "now": now, "wid": worker_id, "lease_until": now + dt.timedelta(seconds=lease_s)}).first()
     return None if row is None else Claim(row[0], row[1], row[2], worker_id)
 
 
@@ -79,12 +89,18 @@ def forcing_args(record: Record, asset: Asset) -> dict:
     return {"nominal_hz": asset.nominal_speed_hz * mult}
 
 
+_RECORD = select(Record.__table__).where(Record.__table__.c.id == bindparam("rid"))
+_WAVEFORM = select(Waveform.codec, Waveform.data).where(Waveform.record_id == bindparam("rid"))
+_ASSET = (select(Asset.__table__).join(Point, Point.asset_id == Asset.id)
+          .where(Point.id == bindparam("pid")))
+
+
 def load(db, record_id: int):
-    with db.read() as s:
-        record = s.get(Record, record_id)
-        wf = s.get(Waveform, record_id)
-        asset = s.scalar(select(Asset).join(Point, Point.asset_id == Asset.id)
-                         .where(Point.id == record.point_id))
+    """(record row, asset row, samples); rows have the tables' column names as attributes."""
+    with db.read_engine.connect() as conn:
+        record = conn.execute(_RECORD, {"rid": record_id}).one()
+        wf = conn.execute(_WAVEFORM, {"rid": record_id}).one()
+        asset = conn.execute(_ASSET, {"pid": record.point_id}).one()
     return record, asset, blobs.decode_waveform(wf.codec, wf.data)
 
 
@@ -97,8 +113,8 @@ def analyse(record: Record, asset: Asset, samples):
 
 def result_row(record: Record, analysis) -> Result:
     data = analysis.to_dict()
-    f, a = analysis.chart_spectrum(SPECTRUM_POINTS)
-    et, ev = analysis.envelope_chart(ENVELOPE_POINTS)
+    f, a = max_hold(analysis.spectrum.freqs_hz, analysis.spectrum.amplitude, SPECTRUM_POINTS)
+    et, ev = max_hold(analysis.envelope_t_s, analysis.envelope, ENVELOPE_POINTS)
     sub, growth = data.get("subharmonic", {}), data.get("growth", {})
     overall, forcing = data.get("overall", {}), data.get("forcing", {})
     return Result(
@@ -116,13 +132,18 @@ def result_row(record: Record, analysis) -> Result:
     )
 
 
+_FENCE = update(Job.__table__).where(_J.id == bindparam("jid"), _J.worker_id == bindparam("wid"),
+                                     _J.attempts == bindparam("attempt"), _J.state == "running")
+
+
 def _fence(s, c: Claim, **values) -> None:
-    done = s.execute(
-        update(Job).where(Job.id == c.job_id, Job.worker_id == c.worker_id, Job.attempts == c.attempt,
-                          Job.state == "running").values(**values)
-    )
+    done = s.execute(_FENCE.values(**values), {"jid": c.job_id, "wid": c.worker_id, "attempt": c.attempt})
     if done.rowcount != 1:
         raise LeaseLost(f"job {c.job_id} attempt {c.attempt} is no longer leased to {c.worker_id}")
+
+
+_SUPERSEDE = (update(Result.__table__).where(Result.__table__.c.record_id == bindparam("rid"),
+                                             Result.__table__.c.current.is_(True)).values(current=False))
 
 
 def store(db, c: Claim, record: Record, analysis, settings=None) -> int:
@@ -131,8 +152,7 @@ def store(db, c: Claim, record: Record, analysis, settings=None) -> int:
 
     with db.unit_of_work() as s:
         _fence(s, c, state="done", finished_at=utcnow(), lease_until=None, error=None)
-        s.execute(update(Result).where(Result.record_id == record.id, Result.current.is_(True))
-                  .values(current=False))
+        s.execute(_SUPERSEDE, {"rid": record.id})
         row = result_row(record, analysis)
         s.add(row)
         s.flush()

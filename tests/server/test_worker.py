@@ -125,3 +125,24 @@ def test_reanalysis_keeps_history_and_one_current_result(env, rng):
     with db.read() as s:
         rows = s.scalars(select(Result).where(Result.record_id == out.record_id).order_by(Result.id)).all()
     assert [r.current for r in rows] == [False, True]
+
+
+def test_concurrent_claims_take_each_job_exactly_once(env, rng):
+    import threading
+
+    db, settings, plant = env
+    x = tone_record(rng, n=1024)
+    ids = {ingest(db, plant.point_id, x, measured_at=T0 + dt.timedelta(minutes=i)).job_id for i in range(24)}
+    claimed, lock = [], threading.Lock()
+
+    def grab(name):
+        while (c := worker.claim(db, name, lease_s=60, max_attempts=3)) is not None:
+            with lock:
+                claimed.append(c.job_id)
+
+    threads = [threading.Thread(target=grab, args=(f"w{i}",)) for i in range(4)]
+    for t in threads:
+        t.start()
+    for t in threads:
+        t.join()
+    assert sorted(claimed) == sorted(ids)  # every job once, none twice
