@@ -167,7 +167,13 @@ def login(browser, site):
         ctx.close()
 
 
-def shot(page, name: str) -> Path:
+@pytest.fixture(scope="session")
+def screenshot():
+    """screenshot(page, name): a full-page PNG in test-artifacts/screenshots/."""
+    return _shot
+
+
+def _shot(page, name: str) -> Path:
     ARTIFACTS.mkdir(parents=True, exist_ok=True)
     path = ARTIFACTS / f"{name}.png"
     page.screenshot(path=str(path), full_page=True)
