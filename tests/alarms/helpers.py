@@ -60,3 +60,38 @@ class Feeder:
             s.flush()
             events = evaluate_result(s, rec, res, settings=self.settings, now=at)
             return [(e.id, e.kind, e.metric, e.from_level, e.to_level) for e in events]
+
+
+def run_senders(db, settings, *, n: int = 2, batch: int = 3) -> list[int]:
+    """Start ``n`` senders at the same moment (threads); returns how many emails each one sent."""
+    import threading
+
+    from server.alarms.mailer import claim, send_claimed
+
+    barrier, counts = threading.Barrier(n), []
+
+    def sender(name):
+        barrier.wait()
+        total = 0
+        while ids := claim(db, me=name, lease_s=30, batch=batch):
+            total += send_claimed(db, settings, ids, me=name)
+        counts.append(total)
+
+    threads = [threading.Thread(target=sender, args=(f"s{i}",)) for i in range(n)]
+    for t in threads:
+        t.start()
+    for t in threads:
+        t.join(60)
+    return counts
+
+
+def assert_audit_trail_immutable(db) -> None:
+    """UPDATE and DELETE on alarm_events fail with the trigger's message."""
+    import pytest
+    from sqlalchemy import text
+    from sqlalchemy.exc import DatabaseError
+
+    for sql in ("UPDATE alarm_events SET value = 0", "DELETE FROM alarm_events"):
+        with pytest.raises(DatabaseError, match="audit trail"):
+            with db.unit_of_work() as s:
+                s.execute(text(sql))

@@ -6,15 +6,14 @@ import datetime as dt
 import os
 import subprocess
 import sys
-import threading
 import time
 from pathlib import Path
 
-from alarms.helpers import make_result
+from alarms.helpers import make_result, run_senders
 from sqlalchemy import select
 
 from server.alarms import service
-from server.alarms.mailer import claim, run_mailer_once, send_claimed
+from server.alarms.mailer import run_mailer_once
 from server.alarms.tables import OutboxMessage
 
 ROOT = Path(__file__).resolve().parents[2]
@@ -121,24 +120,7 @@ def test_two_senders_deliver_each_email_once(feeder, plant, migrated_db, smtp, m
     subscribe(migrated_db, plant, email="PLANNER0@example.test")  # same address twice: still one email
     for v in ONSET[:4]:
         feeder.feed(plant.point_id, make_result(half_v=v))
-    barrier = threading.Barrier(2)
-    counts = []
-
-    def sender(name):
-        barrier.wait()
-        total = 0
-        while True:
-            ids = claim(migrated_db, me=name, lease_s=30, batch=3)
-            if not ids:
-                break
-            total += send_claimed(migrated_db, mail_settings, ids, me=name)
-        counts.append(total)
-
-    threads = [threading.Thread(target=sender, args=(f"s{i}",)) for i in range(2)]
-    for t in threads:
-        t.start()
-    for t in threads:
-        t.join(60)
+    counts = run_senders(migrated_db, mail_settings, batch=3)
     assert sum(counts) == 12
     to = sorted(m["to"][0] for m in smtp.messages)
     assert to == sorted(f"planner{i}@example.test" for i in range(12))
