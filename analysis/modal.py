@@ -89,9 +89,7 @@ class ModeFit:
     bins_per_bandwidth: float
     message: str
 
-    def to_dict(self) -> dict:
-        """Plain dict."""
-        return asdict(self)
+    to_dict = asdict
 
 
 def _sdof(f, d, fn, zeta, c):
@@ -142,9 +140,7 @@ class PrecursorFit:
     ratio_to_threshold_se: float
     margin_pct: float
 
-    def to_dict(self) -> dict:
-        """Plain dict."""
-        return asdict(self)
+    to_dict = asdict
 
 
 def _two_lorentz(nu, d, gm, gp, c):

@@ -71,24 +71,25 @@ def test_parametric_envelope_grows_at_floquet_rate(ratio, detune):
     )
 
 
+# methods note 4.4 tuned case: 1X 50 Hz, quiet background so only the two modes show
+TUNED_PAIR = {
+    "fs_hz": 1024.0,
+    "duration_s": 30.0,
+    "forcing_hz": 50.0,
+    "ratio": 2.0,
+    "onset_s": 2.0,
+    "noise_g": 1e-6,
+    "bearing_tone_g": 0.0,
+    "amp_2x_g": 0.0,
+    "amp_3x_g": 0.0,
+}
+
+
 def test_two_mode_exact_ode_growth_and_saturation():
     # The tuned case of our methods note 4.4 (f1 = 25, f2 = 50 Hz, zeta1 0.01, zeta2 0.02, a2/a2c = 2):
     # checked numerically against scipy: fitted growth 1.57031 1/s vs first order 1.570796 (T8),
     # saturation 1X -> a2c (T9, within 1 %), 0.5X -> a1_ss = 0.16 model units (within 2 %).
-    rec = simulate(
-        "two-mode",
-        seed=1,
-        fs_hz=1024.0,
-        duration_s=30.0,
-        forcing_hz=50.0,
-        method="ode",
-        ratio=2.0,
-        onset_s=2.0,
-        noise_g=1e-6,
-        bearing_tone_g=0.0,
-        amp_2x_g=0.0,
-        amp_3x_g=0.0,
-    )
+    rec = simulate("two-mode", seed=1, method="ode", **TUNED_PAIR)
     tm, sub = rec.truth["two_mode"], rec.truth["subharmonic"]
     assert tm["a2c"] == pytest.approx(0.04, rel=1e-9) and tm["a1_saturated"] == pytest.approx(0.16, rel=1e-9)
     # growth of the 0.5X envelope: L&L/N&M first order -mu1 + alpha1 a2 / (4 w1) = 1.570796
@@ -110,19 +111,7 @@ def test_two_mode_exact_ode_growth_and_saturation():
 
 def test_two_mode_slow_flow_agrees_with_exact_saturation():
     # first-order averaging (Nayfeh & Mook 6.5) vs the full ODE above: the same plateaus within 2 %
-    rec = simulate(
-        "two-mode",
-        seed=2,
-        fs_hz=1024.0,
-        duration_s=30.0,
-        forcing_hz=50.0,
-        ratio=2.0,
-        onset_s=2.0,
-        noise_g=1e-6,
-        bearing_tone_g=0.0,
-        amp_2x_g=0.0,
-        amp_3x_g=0.0,
-    )
+    rec = simulate("two-mode", seed=2, **TUNED_PAIR)
     n = int(8 * rec.fs_hz)
     spec = np.abs(np.fft.rfft(rec.samples[-n:])) * 2 / n
     assert spec[400] == pytest.approx(rec.truth["two_mode"]["one_x_saturated_g"], rel=0.02)  # 50 Hz bin
