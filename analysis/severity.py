@@ -6,6 +6,7 @@ import numpy as np
 
 from .errors import SignalError
 from .results import Waveform
+from .spectrum import dot
 
 ZONE_STANDARD = "ISO 10816-3:2009 / ISO 20816-3:2022 Annex A (values from memory; check against the standard)"
 
@@ -61,5 +62,5 @@ def waveform_stats(x: np.ndarray) -> Waveform:
     peak = float(np.max(np.abs(x)))
     if rms <= 0.0:
         return Waveform(rms=0.0, peak=peak, crest_factor=None, kurtosis=None)
-    kurt = float(np.dot(sq, sq)) / len(x) / (ms * ms)
+    kurt = dot(sq, sq) / len(x) / (ms * ms)
     return Waveform(rms=rms, peak=peak, crest_factor=peak / rms, kurtosis=kurt)

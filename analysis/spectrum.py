@@ -27,6 +27,12 @@ def hann(n: int) -> np.ndarray:
     return w
 
 
+def dot(a: np.ndarray, b: np.ndarray) -> float:
+    """Σ a·b without BLAS: a threaded BLAS dot of a long vector spins its threads, which costs more than the
+    arithmetic on a shared machine."""
+    return float(np.add.reduce(a * b))
+
+
 def window_figures(w: np.ndarray) -> tuple[float, float]:
     """Coherent gain Σw/N and equivalent noise bandwidth N·Σw²/(Σw)² in bins."""
     n = len(w)
@@ -41,15 +47,20 @@ def welch_nu_eff(w: np.ndarray, step: int, n_segments: int) -> float:
     if k <= 1:
         return 2.0
     n = len(w)
-    e = float(np.dot(w, w))
+    e = dot(w, w)
     acc = 0.0
     for j in range(1, k):
         lag = j * step
         if lag >= n:
             break
-        rho = float(np.dot(w[: n - lag], w[lag:])) / e
+        rho = dot(w[: n - lag], w[lag:]) / e
         acc += (1.0 - j / k) * rho * rho
     return 2.0 * k / (1.0 + 2.0 * acc)
+
+
+@lru_cache(maxsize=64)
+def _hann_nu_eff(nperseg: int, step: int, k: int) -> float:
+    return welch_nu_eff(hann(nperseg), step, k)
 
 
 def welch_psd(x: np.ndarray, fs: float, nperseg: int) -> tuple[np.ndarray, np.ndarray, int, float]:
@@ -63,7 +74,7 @@ def welch_psd(x: np.ndarray, fs: float, nperseg: int) -> tuple[np.ndarray, np.nd
     step = nperseg // 2
     k = 1 + (n - nperseg) // step
     w = hann(nperseg)
-    scale = 1.0 / (fs * float(np.dot(w, w)))
+    scale = 1.0 / (fs * dot(w, w))
     acc = np.zeros(nperseg // 2 + 1)
     segs = np.lib.stride_tricks.sliding_window_view(x, nperseg)[::step][:k]
     for i in range(0, k, _CHUNK_SEGMENTS):
@@ -77,7 +88,7 @@ def welch_psd(x: np.ndarray, fs: float, nperseg: int) -> tuple[np.ndarray, np.nd
     else:
         psd[1:] *= 2.0
     freqs = np.arange(len(psd)) * (fs / nperseg)
-    return freqs, psd, k, welch_nu_eff(w, step, k)
+    return freqs, psd, k, _hann_nu_eff(nperseg, step, k)
 
 
 def f_isf(p: float, d1: float, d2: float) -> float:
