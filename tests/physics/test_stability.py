@@ -189,3 +189,22 @@ def test_summary_margin_and_errors():
         st.floquet_growth(F0, 1.5, 50.0, 0.1)
     with pytest.raises(ValueError, match="forcing_hz"):
         st.floquet_growth(F0, 0.01, -1.0, 0.1)
+
+
+def test_cli_stability_json_and_errors(capsys):
+    import json
+
+    from server.cli import main as cli_main
+
+    args = ["stability", "--f0", "25", "--zeta", "0.01", "--forcing-hz", "50", "--modulation", "0.1"]
+    assert cli_main([*args, "--json"]) == 0
+    d = json.loads(capsys.readouterr().out)
+    # methods note T3 (checked numerically against scipy): 2.355184 1/s; L&L: h_c = 4 zeta at tuning
+    assert d["growth_rate_per_s"] == pytest.approx(2.355184, rel=1e-5)
+    assert d["threshold_modulation"] == pytest.approx(0.04, rel=1e-4)
+    assert d["margin_pct"] == pytest.approx(100 * (1 - 0.1 / d["threshold_modulation"]), rel=1e-12)
+    assert cli_main(args) == 0
+    assert "GROWING" in capsys.readouterr().out
+    bad = ["stability", "--f0", "25", "--zeta", "1.2", "--forcing-hz", "50", "--modulation", "0.1"]
+    assert cli_main(bad) == 2
+    assert "--zeta" in capsys.readouterr().err
