@@ -86,6 +86,20 @@ def _parse_float(cell: str, line: int) -> float:
         ) from None
 
 
+def _parse_rows(rows: list[list[str]], ncol: int, has_header: bool) -> np.ndarray:
+    values = np.empty((len(rows), ncol))
+    for i, r in enumerate(rows):
+        cells = [c for c in r if c.strip()]
+        if len(cells) != ncol:
+            raise SignalError(
+                f"CSV line {i + 1 + has_header} has {len(cells)} values, expected {ncol}",
+                field="file",
+            )
+        for j, c in enumerate(cells):
+            values[i, j] = _parse_float(c, i + 1 + has_header)
+    return values
+
+
 def read_csv(
     data: bytes | str | os.PathLike, *, units: str | None = None, sample_rate_hz: float | None = None
 ) -> Recording:
@@ -117,16 +131,12 @@ def read_csv(
         raise SignalError(
             f"the CSV has {ncol} columns; give one (acceleration) or two (time, acceleration)", field="file"
         )
-    values = np.empty((len(rows), ncol))
-    for i, r in enumerate(rows):
-        cells = [c for c in r if c.strip()]
-        if len(cells) != ncol:
-            raise SignalError(
-                f"CSV line {i + 1 + (header is not None)} has {len(cells)} values, expected {ncol}",
-                field="file",
-            )
-        for j, c in enumerate(cells):
-            values[i, j] = _parse_float(c, i + 1 + (header is not None))
+    try:  # fast path; the loop below finds and names the bad line
+        values = np.array([[c for c in r if c.strip()] for r in rows], dtype=np.float64)
+        if values.ndim != 2 or values.shape[1] != ncol:
+            raise ValueError
+    except ValueError:
+        values = _parse_rows(rows, ncol, header is not None)
     if units is None and header:
         units = _units_from_header(header[-1])
     meta = {"format": "csv"}

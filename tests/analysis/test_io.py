@@ -156,3 +156,16 @@ def test_validate_samples(samples, fs, field, match):
     with pytest.raises(SignalError, match=match) as exc:
         validate_samples(samples, fs)
     assert exc.value.field == field
+
+
+def test_csv_semicolon_and_tab_delimiters(tmp_path, wave_data):
+    # writer: Python's csv module with the delimiters loggers use besides the comma
+    for delim in (";", "\t"):
+        path = tmp_path / "rec.csv"
+        with path.open("w", newline="") as fh:
+            w = csv.writer(fh, delimiter=delim)
+            w.writerow(["t", "acc_g"])
+            w.writerows([f"{i / FS:.9f}", repr(float(v))] for i, v in enumerate(wave_data))
+        rec = read_csv(path)
+        assert rec.units == "g" and rec.fs_hz == pytest.approx(FS, rel=1e-6)
+        np.testing.assert_array_equal(rec.samples, wave_data)
