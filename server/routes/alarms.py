@@ -3,9 +3,9 @@
 from __future__ import annotations
 
 import datetime as dt
-from typing import Literal
+from typing import Annotated, Literal
 
-from fastapi import APIRouter, Depends, Query, Request
+from fastapi import APIRouter, Depends, Path, Query, Request
 from pydantic import BaseModel, Field
 
 from server.alarms import service
@@ -15,6 +15,10 @@ from server.security import Principal, require_role
 router = APIRouter(prefix="/api/v1/alarms", tags=["alarms"])
 
 Level = Literal["alert", "danger"]
+MAX_ID = 2**63 - 1
+Id = Annotated[int, Field(ge=1, le=MAX_ID)]
+IdQ = Annotated[int | None, Query(ge=1, le=MAX_ID)]
+AlarmId = Annotated[int, Path(ge=1, le=MAX_ID, description="id of the alarm (its state row)")]
 
 
 def call(fn, *args, **kwargs):
@@ -46,11 +50,11 @@ class ShelveIn(BaseModel):
 
 
 class RuleIn(BaseModel):
-    point_id: int | None = None
-    asset_id: int | None = None
-    metric: str
-    alert: float | None = None
-    danger: float | None = None
+    point_id: Id | None = None
+    asset_id: Id | None = None
+    metric: str = Field(max_length=40)
+    alert: float | None = Field(None, allow_inf_nan=False)
+    danger: float | None = Field(None, allow_inf_nan=False)
     direction: Literal["above", "below"] | None = None
     zone_based: bool = False
     k: int = Field(2, ge=1, le=50)
@@ -61,7 +65,7 @@ class RuleIn(BaseModel):
 
 @router.get("", summary="Open alarms (active, acknowledged, shelved or all), most severe first")
 def list_alarms(request: Request, view: Literal["active", "acknowledged", "shelved", "all"] = "active",
-                site_id: int | None = None, area_id: int | None = None, asset_id: int | None = None,
+                site_id: IdQ = None, area_id: IdQ = None, asset_id: IdQ = None,
                 level: Level | None = None, principal: Principal = Depends(require_role("viewer"))):
     alarms = call(service.list_alarms, request.app.state.db, view=view,
                   site_id=_site_scope(principal, site_id), area_id=area_id, asset_id=asset_id, level=level)
@@ -69,10 +73,10 @@ def list_alarms(request: Request, view: Literal["active", "acknowledged", "shelv
 
 
 @router.get("/history", summary="The audit trail of transitions, acknowledgements and shelving")
-def history(request: Request, site_id: int | None = None, area_id: int | None = None,
-            asset_id: int | None = None, point_id: int | None = None, level: Level | None = None,
+def history(request: Request, site_id: IdQ = None, area_id: IdQ = None,
+            asset_id: IdQ = None, point_id: IdQ = None, level: Level | None = None,
             kind: Literal["transition", "data-quality", "acknowledged", "shelved", "unshelved"] | None = None,
-            limit: int = Query(200, ge=1, le=1000), before_id: int | None = None,
+            limit: int = Query(200, ge=1, le=1000), before_id: IdQ = None,
             principal: Principal = Depends(require_role("viewer"))):
     if kind == "data-quality" and not principal.has_role("engineer"):
         raise Forbidden("data-quality events are shown to engineers; you are " + principal.role, field="kind")
@@ -85,7 +89,7 @@ def history(request: Request, site_id: int | None = None, area_id: int | None = 
 
 
 @router.get("/data-quality", summary="Points whose latest record was a data-quality problem (engineers)")
-def data_quality(request: Request, site_id: int | None = None,
+def data_quality(request: Request, site_id: IdQ = None,
                  principal: Principal = Depends(require_role("engineer"))):
     return {"ok": True, "points": service.open_data_quality(request.app.state.db,
                                                             site_id=_site_scope(principal, site_id))}
@@ -100,7 +104,7 @@ def _check_state_site(request: Request, principal: Principal, state_id: int) -> 
 
 
 @router.post("/{alarm_id}/acknowledge", summary="Acknowledge an open alarm with a comment (engineer)")
-def acknowledge(request: Request, alarm_id: int, body: AckIn,
+def acknowledge(request: Request, alarm_id: AlarmId, body: AckIn,
                 principal: Principal = Depends(require_role("engineer"))):
     _check_state_site(request, principal, alarm_id)
     event = call(service.acknowledge, request.app.state.db, alarm_id, actor=principal.name,
@@ -109,7 +113,7 @@ def acknowledge(request: Request, alarm_id: int, body: AckIn,
 
 
 @router.post("/{alarm_id}/shelve", summary="Shelve an open alarm until a date, with a reason (engineer)")
-def shelve(request: Request, alarm_id: int, body: ShelveIn,
+def shelve(request: Request, alarm_id: AlarmId, body: ShelveIn,
            principal: Principal = Depends(require_role("engineer"))):
     _check_state_site(request, principal, alarm_id)
     event = call(service.shelve, request.app.state.db, alarm_id, actor=principal.name, until=body.until,
@@ -118,13 +122,14 @@ def shelve(request: Request, alarm_id: int, body: ShelveIn,
 
 
 @router.post("/{alarm_id}/unshelve", summary="End the shelving of an alarm now (engineer)")
-def unshelve(request: Request, alarm_id: int, principal: Principal = Depends(require_role("engineer"))):
+def unshelve(request: Request, alarm_id: AlarmId, principal: Principal = Depends(require_role("engineer"))):
     _check_state_site(request, principal, alarm_id)
     return {"ok": True, "event": call(service.unshelve, request.app.state.db, alarm_id, actor=principal.name)}
 
 
 @router.get("/rules", summary="The rules in force at a measurement point (defaults included)")
-def rules(request: Request, point_id: int, principal: Principal = Depends(require_role("viewer"))):
+def rules(request: Request, point_id: Annotated[int, Query(ge=1, le=MAX_ID)],
+          principal: Principal = Depends(require_role("viewer"))):
     return {"ok": True, "rules": call(service.list_rules, request.app.state.db, point_id=point_id)}
 
 

@@ -6,14 +6,14 @@ Anyone logged in may subscribe their own address; engineers and admins may subsc
 
 from __future__ import annotations
 
-from typing import Literal
+from typing import Annotated, Literal
 
-from fastapi import APIRouter, Depends, Request
+from fastapi import APIRouter, Depends, Path, Request
 from pydantic import BaseModel, Field
 
 from server.alarms import service
 from server.errors import Forbidden
-from server.routes.alarms import call
+from server.routes.alarms import Id, call
 from server.security import Principal, require_role
 from server.storage.tables import User
 
@@ -23,7 +23,7 @@ router = APIRouter(prefix="/api/v1/alarms/subscriptions", tags=["alarms"])
 class SubscriptionIn(BaseModel):
     email: str | None = Field(None, description="address; your own when left out")
     scope: Literal["site", "area", "asset"]
-    scope_id: int
+    scope_id: Id
     min_level: Literal["alert", "danger"] = "alert"
     mode: Literal["immediate", "digest"] = "immediate"
     digest_time: str = Field("07:00", description="local time of the daily digest, HH:MM")
@@ -64,7 +64,7 @@ def create_subscription(request: Request, body: SubscriptionIn,
 
 
 @router.delete("/{sub_id}", summary="End a subscription (your own, or any for engineers)")
-def delete_subscription(request: Request, sub_id: int,
+def delete_subscription(request: Request, sub_id: Annotated[int, Path(ge=1, le=2**63 - 1)],
                         principal: Principal = Depends(require_role("viewer"))):
     db = request.app.state.db
     if not principal.has_role("engineer"):
