@@ -125,3 +125,18 @@ def test_forcing_not_found_keeps_nominal(rng):
     x = rng.standard_normal(65536)
     r = analyze_record(x, 2560.0, nominal_hz=30.0)
     assert r.forcing.source == "nominal" and r.forcing.frequency_hz == 30.0
+
+
+def test_tones_strongest_first_at_most_12_and_no_sidelobes(make_record):
+    # a very strong 1X (about 100 dB over the floor) must not leave its Hann sidelobes among the tones
+    # (Harris 1978: sidelobes fall 18 dB/octave); 16 real lines give the 12 strongest, in order
+    x = make_record(2560.0, 40.0, [(29.6, 2.0, 0)], noise=1e-5, seed=1)
+    assert analyze_record(x, 2560.0, forcing_hz=29.6).tones == ()
+    lines = [(29.6, 2.0, 0)] + [(f, 0.01 * (i + 1), 0) for i, f in enumerate(np.linspace(40, 900, 16))]
+    tones = analyze_record(
+        make_record(2560.0, 40.0, lines, noise=1e-3, seed=1), 2560.0, forcing_hz=29.6
+    ).tones
+    assert len(tones) == 12
+    amps = [t.amplitude for t in tones]
+    assert amps == sorted(amps, reverse=True)
+    assert amps[0] == pytest.approx(0.16, rel=0.01) and amps[-1] == pytest.approx(0.05, rel=0.02)
