@@ -139,7 +139,7 @@ def mathieu_precursor(
         ev, vec = np.linalg.eig(a.astype(complex))
     dt = float(t[1] - t[0])
     noise = rng.standard_normal((2, t.size)) * math.sqrt(dt)
-    w = np.linalg.solve(vec, noise.astype(complex))
+    w = np.linalg.inv(vec) @ noise  # 2 x 2 inverse applied to all samples at once
     z = np.zeros((2, t.size), dtype=complex)
     for i in range(2):
         z += np.outer(vec[:, i], _ar1_complex(np.exp(ev[i] * dt), w[i]))
