@@ -192,6 +192,9 @@ def _parse_times(values: list[str], path: str):
 
     days = []
     for i, v in enumerate(values, start=2):
+        if not v:
+            raise UsageError(f"{path} line {i}: time is empty; give ISO 8601 (2026-03-01T08:00:00) or "
+                             "unix seconds")
         try:
             days.append(float(v) / 86400.0)  # unix seconds
             continue
@@ -237,6 +240,7 @@ def _flag(v: str, line: int, path: str):
 
 def cmd_window(args: argparse.Namespace) -> int:
     import numpy as np
+
     from analysis.window import fit_operating_window
 
     h = read_history(args.history)
