@@ -33,7 +33,8 @@ class Broker:
         self.binary, self.dir, self.port = binary, workdir, free_port()
         self.dir.mkdir(parents=True, exist_ok=True)
         lines = [f"listener {self.port} 127.0.0.1", "allow_anonymous true", "log_dest stderr",
-                 "log_type error", "log_type warning", "log_type notice", "max_queued_messages 10000"]
+                 "log_type error", "log_type warning", "log_type notice", "max_queued_messages 10000",
+                 "max_inflight_messages 4"]  # so a stalled bridge leaves messages queued at the broker
         if os.geteuid() == 0:  # started as root, mosquitto would drop to its own user and then could
             lines.append("user root")  # not write into (or even reach) the test's private temp dir
         if persistent:  # save after every change: a SIGKILL then loses at most the last moment's
