@@ -80,12 +80,17 @@ def point_series(s, point_id: int, t0: dt.datetime, t1: dt.datetime, max_points:
     width = (b - a) * (1 + 1e-9) / max_points
     pos = (Result.measured_ts - a) / width
     bucket = (func.floor(pos) if dialect == "postgresql" else cast(pos, Integer)).label("k")
+    # each row's values once (JSON parsed once per row), then min/max/mean per bucket
+    inner = select(bucket, Result.measured_ts.label("ts"), cast(Result.sub_detected, Integer).label("det"),
+                   *[cast(c, Float).label(n) for n, c in cols.items()]).where(*scope) \
+        .cte("per_row").prefix_with("MATERIALIZED")
     aggregates = []
-    for col in cols.values():
-        aggregates += [func.min(col), func.max(col), func.avg(cast(col, Float))]
-    rows = s.execute(select(bucket, func.min(Result.measured_ts), func.max(Result.measured_ts), func.count(),
-                            func.max(cast(Result.sub_detected, Integer)), *aggregates)
-                     .where(*scope).group_by(bucket).order_by(bucket)).all()
+    for name in names:
+        col = inner.c[name]
+        aggregates += [func.min(col), func.max(col), func.avg(col)]
+    rows = s.execute(select(inner.c.k, func.min(inner.c.ts), func.max(inner.c.ts), func.count(),
+                            func.max(inner.c.det), *aggregates)
+                     .group_by(inner.c.k).order_by(inner.c.k)).all()
     out = {"bucketed": True, "n_source": n, "t": [_ts((r[1] + r[2]) / 2) for r in rows],
            "count": [int(r[3]) for r in rows], "detected": [bool(r[4]) for r in rows]}
     for i, name in enumerate(names):
@@ -122,7 +127,7 @@ def asset_sparks(s, points: list[Point], *, days: float = 30.0, buckets: int = 3
 
 
 def trend_forecast(s, point_id: int, t0: dt.datetime, t1: dt.datetime, limit: float | None,
-                   *, max_rows: int = 3000) -> dict:
+                   *, max_rows: int = 400) -> dict:
     """Trend fit of the half-order velocity over the period and its forecast to ``limit`` (mm/s)."""
     try:
         from analysis.trend import fit_trend
