@@ -11,10 +11,9 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-pipeline = pytest.importorskip("analysis.pipeline")
-
-from analysis.sim_scoring import growth_case, score  # noqa: E402
-from analysis.simulate import simulate  # noqa: E402
+from analysis import pipeline
+from analysis.sim_scoring import growth_case, score
+from analysis.simulate import simulate
 
 
 def _run(kind, seed, **params):
