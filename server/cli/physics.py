@@ -14,7 +14,7 @@ from pathlib import Path
 
 from server.cli import UsageError
 
-SIM_KINDS = ("healthy", "parametric", "two-mode", "half-order", "whirl", "speed-drift")
+SIM_KINDS = ("healthy", "parametric", "two-mode", "half-order", "whirl", "speed-drift", "history")
 HISTORY_COLUMNS = ("time", "speed_hz", "amp_1x", "amp_sub", "present", "growth_rate_per_s")
 
 
@@ -193,8 +193,9 @@ def _parse_times(values: list[str], path: str):
     days = []
     for i, v in enumerate(values, start=2):
         if not v:
-            raise UsageError(f"{path} line {i}: time is empty; give ISO 8601 (2026-03-01T08:00:00) or "
-                             "unix seconds")
+            raise UsageError(
+                f"{path} line {i}: time is empty; give ISO 8601 (2026-03-01T08:00:00) or unix seconds"
+            )
         try:
             days.append(float(v) / 86400.0)  # unix seconds
             continue
@@ -369,10 +370,12 @@ def cmd_simulate(args: argparse.Namespace) -> int:
             raise UsageError(f"--set takes NAME=VALUE, got {item!r}")
         params[name.strip()] = _param_value(value.strip())
     out = Path(args.out)
-    if out.suffix.lower() != ".wav":
-        raise UsageError(f"--out must name a .wav file, got {args.out}")
     if not out.parent.is_dir():
         raise UsageError(f"--out: folder {out.parent} does not exist")
+    if args.kind == "history":
+        return _simulate_history(out, args.seed, params)
+    if out.suffix.lower() != ".wav":
+        raise UsageError(f"--out must name a .wav file, got {args.out}")
     try:
         rec = simulate(
             args.kind,
@@ -399,4 +402,38 @@ def cmd_simulate(args: argparse.Namespace) -> int:
         + (f", {sub['frequency_hz']:.4g} Hz" if sub["frequency_hz"] else "")
     )
     print("Invented data from the simulator; not a measurement.")
+    return 0
+
+
+def _simulate_history(out: Path, seed: int, params: dict) -> int:
+    """Write an invented history CSV (the columns of HISTORY_COLUMNS) and its truth as JSON."""
+    import numpy as np
+
+    from analysis.sim_history import simulate_history
+
+    if out.suffix.lower() != ".csv":
+        raise UsageError(f"--out must name a .csv file for kind history, got {out}")
+    n = params.pop("n", 300)
+    if "speed_lo_hz" in params or "speed_hi_hz" in params:
+        params["speed_range_hz"] = (
+            float(params.pop("speed_lo_hz", 20.0)),
+            float(params.pop("speed_hi_hz", 30.0)),
+        )
+    try:
+        h = simulate_history(int(n), seed=seed, **params)
+    except (TypeError, ValueError) as exc:
+        raise UsageError(str(exc).replace("simulate_history() got an", "history:")) from exc
+    lines = [",".join(HISTORY_COLUMNS)]
+    for i in range(h["time_days"].size):
+        iso = str(np.datetime64(int(round(h["time_days"][i] * 86400.0)), "s"))
+        g = h["growth_rate_per_s"][i]
+        lines.append(
+            f"{iso},{h['speed_hz'][i]:.4f},{h['amp_1x'][i]:.5g},{h['amp_sub'][i]:.5g},"
+            f"{int(h['present'][i])},{'' if np.isnan(g) else f'{g:.4g}'}"
+        )
+    out.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    side = out.with_suffix(".json")
+    side.write_text(json.dumps(dict(h["truth"], csv_file=out.name), indent=2) + "\n", encoding="utf-8")
+    print(f"wrote {out} ({h['time_days'].size} records) and {side.name}")
+    print("Invented history from the simulator; not measurements.")
     return 0

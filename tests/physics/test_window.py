@@ -107,3 +107,18 @@ def test_cli_window(tmp_path, capsys):
     (tmp_path / "nolabels.csv").write_text("time,speed_hz,amp_1x\n0,25,0.2\n")
     assert cli_main(["window", str(tmp_path / "nolabels.csv")]) == 2
     assert "present" in capsys.readouterr().err
+
+
+def test_simulated_history_csv_feeds_window_and_trend(tmp_path, capsys):
+    out = tmp_path / "hist.csv"
+    assert cli_main(["simulate", "history", "--out", str(out), "--seed", "3", "--set", "n=400"]) == 0
+    truth = json.loads(out.with_suffix(".json").read_text())
+    assert truth["f0_hz"] == 12.4 and "not measurements" in truth["note"]
+    capsys.readouterr()
+    assert cli_main(["window", str(out), "--json"]) == 0
+    d = json.loads(capsys.readouterr().out)
+    assert d["n_records"] == 400 and d["f0_hz"] == pytest.approx(12.4, rel=0.01)
+    assert cli_main(["trend", str(out), "--limit", "0.05", "--json"]) == 0
+    t = json.loads(capsys.readouterr().out)
+    assert t["n_total"] == 400 and t["n_other_speed"] > 0  # like with like: other speeds left out
+    assert cli_main(["simulate", "history", "--out", str(tmp_path / "h.wav")]) == 2
