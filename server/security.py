@@ -118,7 +118,7 @@ def _principal_from_key(db, key: str) -> Principal:
     if row.revoked_at is not None:
         raise Unauthorized("this API key was revoked; ask an admin for a new one")
     if row.last_used_at is None or now - row.last_used_at > LAST_USED_RESOLUTION:
-        with db.write_engine.begin() as conn:
+        with db.write() as conn:
             conn.execute(update(ApiKey.__table__).where(ApiKey.__table__.c.id == row.id)
                          .values(last_used_at=now))
     return Principal("apikey", row.id, row.name, row.role, site_id=row.site_id)

@@ -73,7 +73,7 @@ def claim(db, worker_id: str, *, lease_s: float, max_attempts: int, now: dt.date
     now = now or utcnow()
     why = (f"lease expired on attempt {max_attempts} of {max_attempts}: the worker stopped during the "
            "analysis (crashed or killed)")
-    with db.write_engine.begin() as conn:
+    with db.write() as conn:
         # leases that ran out on the last allowed attempt: give up on them
         conn.execute(_EXPIRE, {"now": now, "max_attempts": max_attempts, "why": why})
         row = conn.execute(_CLAIM[db.dialect == "postgresql"], {
@@ -142,16 +142,25 @@ def _fence(s, c: Claim, **values) -> None:
         raise LeaseLost(f"job {c.job_id} attempt {c.attempt} is no longer leased to {c.worker_id}")
 
 
+_COMPACT = (update(Waveform.__table__)
+            .where(Waveform.__table__.c.record_id == bindparam("rid"),
+                   Waveform.__table__.c.codec == blobs.RAW_CODEC)
+            .values(codec=bindparam("codec"), data=bindparam("data")))
 _SUPERSEDE = (update(Result.__table__).where(Result.__table__.c.record_id == bindparam("rid"),
                                              Result.__table__.c.current.is_(True)).values(current=False))
 
 
-def store(db, c: Claim, record: Record, analysis, settings=None) -> int:
-    """Store the result, mark the job done and run the alarm rules, all in one transaction."""
+def store(db, c: Claim, record: Record, analysis, settings=None, samples=None) -> int:
+    """Store the result, mark the job done and run the alarm rules, all in one transaction.
+
+    With ``samples``, a waveform still stored raw is compacted in the same transaction."""
     from server.alarms import evaluate_result
 
+    packed = blobs.encode_waveform(samples) if samples is not None else None
     with db.unit_of_work() as s:
         _fence(s, c, state="done", finished_at=utcnow(), lease_until=None, error=None)
+        if packed is not None:
+            s.execute(_COMPACT, {"rid": record.id, "codec": packed[0], "data": packed[1]})
         s.execute(_SUPERSEDE, {"rid": record.id})
         row = result_row(record, analysis)
         s.add(row)
@@ -195,7 +204,7 @@ def run_once(db, settings, worker_id: str | None = None) -> bool:
         fail(db, c, f"{type(exc).__name__}: {exc}", permanent=False, settings=settings)
         return True
     try:
-        store(db, c, record, analysis, settings)
+        store(db, c, record, analysis, settings, samples=samples)
     except LeaseLost as exc:
         log.warning("%s; result discarded", exc)
     except Exception as exc:

@@ -149,7 +149,7 @@ def ingest_record(db, *, point_id: int, samples, fs_hz: float, units: str | None
 
     def _encode():
         packed_source = blobs.compress(source_bytes) if source_bytes is not None else None
-        return (*blobs.encode_waveform(x32), packed_source)
+        return (*blobs.encode_raw(x32), packed_source)  # the worker compacts it after the analysis
 
     def _store(conn, codec, data, packed_source) -> IngestOutcome:
         now = utcnow()
@@ -175,7 +175,7 @@ def ingest_record(db, *, point_id: int, samples, fs_hz: float, units: str | None
         return first
     encoded = _encode()
     try:
-        with db.write_engine.begin() as conn:
+        with db.write() as conn:
             return _store(conn, *encoded)
     except IntegrityError:
         if client_ref is None:

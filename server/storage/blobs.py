@@ -1,8 +1,10 @@
 """Compact waveform storage: float32 little-endian, byte-shuffled, the high bytes zlib-compressed.
 
-Shuffling puts the same byte of every sample together. The two high bytes (sign, exponent, top of the
-mantissa) compress well; the two low mantissa bytes of a measured signal are close to random, so they are
-stored as they are (compressing them costs time and saves almost nothing).
+Records arrive as raw float32 (``RAW_CODEC``, cheapest for the ingest path) and the worker compacts them
+after the analysis, in the same transaction that stores the result. Shuffling puts the same byte of
+every sample together. The two high bytes (sign, exponent, top of the mantissa) compress well; the two
+low mantissa bytes of a measured signal are close to random, so they are stored as they are
+(compressing them costs time and saves almost nothing).
 ``decode_waveform(*encode_waveform(x))`` returns exactly ``x.astype('<f4')``.
 """
 
@@ -14,6 +16,7 @@ import zlib
 import numpy as np
 
 CODEC = "f4le-shuffle-hi-zlib1"
+RAW_CODEC = "f4le"  # as received; the worker compacts it to CODEC after the analysis
 _OLD_CODEC = "f4le-shuffle-zlib1"
 _LEVEL = 1
 
@@ -34,7 +37,14 @@ def encode_waveform(samples: np.ndarray) -> tuple[str, bytes]:
     return CODEC, n.to_bytes(4, "little") + planes[:2].tobytes() + zlib.compress(planes[2:].tobytes(), _LEVEL)
 
 
+def encode_raw(samples: np.ndarray) -> tuple[str, bytes]:
+    """(codec, blob) without compression: the cheapest form, for the ingest path."""
+    return RAW_CODEC, as_f4(samples).tobytes()
+
+
 def decode_waveform(codec: str, data: bytes) -> np.ndarray:
+    if codec == RAW_CODEC:
+        return np.frombuffer(data, dtype="<f4").copy()
     if codec == CODEC:
         n = int.from_bytes(data[:4], "little")
         low = np.frombuffer(data, dtype=np.uint8, count=2 * n, offset=4)

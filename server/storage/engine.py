@@ -9,11 +9,12 @@ The calling code is the same for both backends.
 from __future__ import annotations
 
 import logging
+import threading
 from collections.abc import Iterator
-from contextlib import contextmanager
+from contextlib import contextmanager, nullcontext
 from pathlib import Path
 
-from sqlalchemy import Engine, create_engine, event, inspect, text
+from sqlalchemy import Connection, Engine, create_engine, event, inspect, text
 from sqlalchemy.orm import Session, sessionmaker
 
 log = logging.getLogger(__name__)
@@ -65,6 +66,9 @@ class Database:
         else:
             self.write_engine = create_engine(url, pool_pre_ping=True, pool_size=8, max_overflow=8)
             self.read_engine = self.write_engine
+        # SQLite has one writer; threads of this process queue here instead of in SQLite's busy handler,
+        # whose sleeps (up to 100 ms) would otherwise dominate latency under concurrent writes
+        self._write_lock = threading.RLock() if self.is_sqlite else nullcontext()
         self._writer = sessionmaker(self.write_engine, expire_on_commit=False)
         self._reader = sessionmaker(self.read_engine, expire_on_commit=False)
 
@@ -75,8 +79,14 @@ class Database:
     @contextmanager
     def unit_of_work(self) -> Iterator[Session]:
         """One write transaction: committed when the block ends, rolled back on any exception."""
-        with self._writer() as session, session.begin():
+        with self._write_lock, self._writer() as session, session.begin():
             yield session
+
+    @contextmanager
+    def write(self) -> Iterator[Connection]:
+        """A Core write transaction (no ORM session): for hot paths such as ingestion and job claims."""
+        with self._write_lock, self.write_engine.begin() as conn:
+            yield conn
 
     @contextmanager
     def read(self) -> Iterator[Session]:
