@@ -42,6 +42,7 @@ __all__ = [
     "stability_chart",
     "stability_summary",
     "threshold_first_order",
+    "threshold_curve",
     "threshold_floquet",
     "tongue_edges_first_order",
     "tongue_edges_floquet",
@@ -365,6 +366,42 @@ def stability_chart(
     mu = np.arccosh(np.maximum(delta, 1.0)) / math.pi
     lam = 0.5 * rr * w0 * mu - z * w0
     return StabilityChart(r, h, lam, hc, f0, z, method, n)
+
+
+def threshold_curve(
+    f0_hz: float, zeta: float, ratios, *, h_max: float = 1.0, tol: float = 1e-7, steps: int = 128
+) -> np.ndarray:
+    """Floquet threshold h_c at every ratio W/w0 at once (vectorised bisection); inf above ``h_max``.
+
+    Onset where the standard-form exponent reaches mu_c = 2 zeta / r (r = W/w0), i.e. |Delta(a, q)| =
+    cosh(pi mu_c); the trace comes from the same fixed-step half-period integration as the chart. Assumes one
+    sign change on [0, h_max], true for the principal tongue around r = 2 with h_max <= 1.
+    """
+    f0 = _check("f0_hz", f0_hz)
+    z = _check("zeta", zeta, low_ok=True, high=1.0)
+    r = np.asarray(ratios, dtype=float).ravel()
+    if r.size == 0 or np.any(~np.isfinite(r)) or np.any(r <= 0):
+        raise ValueError("ratios must be a non-empty array of positive frequency ratios W/w0")
+    del f0  # the dimensionless threshold depends on the ratio only
+    a = 4.0 * (1.0 - z * z) / r**2
+    target = np.cosh(2.0 * math.pi * z / r)
+
+    def onset(h: np.ndarray) -> np.ndarray:
+        return np.abs(_half_period_trace(a, 2.0 * h / r**2, steps)) - target
+
+    lo = np.zeros_like(r)
+    hi = np.full_like(r, float(h_max))
+    above = onset(hi) > 0
+    zero = onset(lo) >= 0
+    for _ in range(max(1, math.ceil(math.log2(h_max / tol)))):
+        mid = 0.5 * (lo + hi)
+        grow = onset(mid) > 0
+        hi = np.where(grow, mid, hi)
+        lo = np.where(grow, lo, mid)
+    out = 0.5 * (lo + hi)
+    out[~above] = math.inf
+    out[zero] = 0.0
+    return out
 
 
 @dataclass(frozen=True, slots=True)

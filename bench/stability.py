@@ -72,6 +72,14 @@ def main() -> int:
     print(f"{'  (closed form, h <= 0.1 only)':<34}{'':>10}{'':>14}{err_cf[inside].max():>16.2e}"
           f"{err_cf[inside].max() / w0:>14.1e}")
 
+    t_curve = timed(lambda: st.threshold_curve(f0, zeta, ratios), 2)
+    curve = st.threshold_curve(f0, zeta, ratios)
+    pick = np.arange(0, 200, 25)
+    ref = np.array([st.threshold_floquet(f0, zeta, ratios[j] * f0) for j in pick])
+    rel = np.max(np.abs(curve[pick] / ref - 1))
+    print(f"{'Floquet threshold curve, 200 ratios':<34}{t_curve:>10.3f}{'':>14}"
+          f"{'max rel err vs brentq ' + format(rel, '.1e'):>30}")
+
     print("\nOperating-window fit (invented histories, tongue f0 12.4 Hz, zeta 0.012, k 0.25)")
     print(f"{'records':>8}{'fit s':>10}{'1 likelihood eval s':>22}{'fit / eval':>12}{'status':>10}"
           f"{'f0 Hz':>10}"

@@ -208,3 +208,15 @@ def test_cli_stability_json_and_errors(capsys):
     bad = ["stability", "--f0", "25", "--zeta", "1.2", "--forcing-hz", "50", "--modulation", "0.1"]
     assert cli_main(bad) == 2
     assert "--zeta" in capsys.readouterr().err
+
+
+def test_vectorised_threshold_curve_matches_brentq_floquet():
+    ratios = np.array([1.8, 1.96, 2.0, 2.02, 2.1, 2.2])
+    curve = st.threshold_curve(F0, 0.01, ratios)
+    for r, hc in zip(ratios, curve, strict=True):
+        # DOP853 + brentq threshold (checked against the methods-note table 1.3 above)
+        assert hc == pytest.approx(st.threshold_floquet(F0, 0.01, r * F0), rel=1e-5)
+    # L&L section 29 at tuning: 4 zeta; checked numerically against scipy: 0.056855 at eps = 0.02 w0
+    assert curve[2] == pytest.approx(0.04, rel=1e-3)
+    assert curve[3] == pytest.approx(0.056855, abs=1e-5)
+    assert np.isinf(st.threshold_curve(1.0, 0.05, [1.2], h_max=0.5)[0])
