@@ -9,11 +9,9 @@ growth rate plus noise. Invented data, never measurements.
 
 from __future__ import annotations
 
-import math
-
 import numpy as np
 
-from analysis.window import _growth, _threshold_amp
+from analysis.window import _band, _growth, _threshold_amp
 
 __all__ = ["simulate_history"]
 
@@ -76,8 +74,3 @@ def simulate_history(
         "growth_rate_per_s": growth,
         "truth": truth,
     }
-
-
-def _band(f0, zeta, k, amp):
-    disc = (k * amp / 2.0) ** 2 - 4.0 * zeta**2
-    return None if disc <= 0 else [2 * f0 - f0 * math.sqrt(disc), 2 * f0 + f0 * math.sqrt(disc)]
