@@ -325,7 +325,8 @@ def cmd_trend(args: argparse.Namespace) -> int:
     )
     print(f"status: {d['status']}  {d['message']}")
     if d["model"] is not None:
-        print(f"model: {d['model']}  (AICc {', '.join(f'{k} {v:.1f}' for k, v in d['aicc'].items())})")
+        scores = ", ".join(f"{k} {_fmt(v, '.1f')}" for k, v in d["aicc"].items())
+        print(f"model: {d['model']}  (AICc {scores})")
     if d["growth_db_per_day"] is not None:
         print(
             f"growth {d['growth_db_per_day']:+.3g} dB/day  "
