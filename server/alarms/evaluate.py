@@ -139,13 +139,15 @@ def _evaluate(session: Session, record, result, settings, now: dt.datetime) -> l
         nominal_tolerance=getattr(settings, "alarm_nominal_speed_tolerance", 0.25),
     )
     if problem:
+        newly_open = not status.data_quality_open
         status.data_quality_open, status.data_quality_reason, status.updated_at = True, problem, now
         event = AlarmEvent(kind="data-quality", summary=problem,
                            details={"where": where, "flags": (data.get("quality") or {}).get("flags", [])},
                            **common)
         session.add(event)
         session.flush()
-        queue_for_events(session, [event], now=now)
+        if newly_open:  # one email when a point's data turn bad, not one per bad record
+            queue_for_events(session, [event], now=now)
         return [event]
 
     rules = [r for r in effective_rules(session, point, asset) if r.enabled]

@@ -325,3 +325,23 @@ def set_rule(db, body: dict, *, actor: str) -> dict:
         row.updated_by, row.updated_at = actor, utcnow()
         s.flush()
         return rule_dict(row)
+
+
+# --- outbox --------------------------------------------------------------------------------------
+
+def outbox_list(db, *, status: str | None = None, limit: int = 100) -> list[dict]:
+    """Recent emails with their delivery state (admins check failed ones here)."""
+    from .tables import OUTBOX_STATES, OutboxMessage
+
+    if status is not None and status not in OUTBOX_STATES:
+        raise AlarmInputError("status", f"status: use one of {', '.join(OUTBOX_STATES)}")
+    stmt = select(OutboxMessage).order_by(OutboxMessage.id.desc()).limit(limit)
+    if status:
+        stmt = stmt.where(OutboxMessage.status == status)
+    with db.read() as s:
+        return [{"id": m.id, "kind": m.kind, "recipient": m.recipient, "subject": m.subject,
+                 "status": m.status, "attempts": m.attempts, "last_error": m.last_error,
+                 "event_id": m.event_id,
+                 "created_at": m.created_at.isoformat(),
+                 "sent_at": m.sent_at.isoformat() if m.sent_at else None,
+                 "next_attempt_at": m.next_attempt_at.isoformat()} for m in s.scalars(stmt)]

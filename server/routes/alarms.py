@@ -103,6 +103,12 @@ def _check_state_site(request: Request, principal: Principal, state_id: int) -> 
         raise Forbidden(f"alarm {state_id} is outside the site this key is limited to", field="alarm_id")
 
 
+@router.get("/outbox", summary="Recent alert emails and their delivery state (admin)")
+def outbox(request: Request, status: Literal["pending", "sending", "sent", "failed"] | None = None,
+           limit: int = Query(100, ge=1, le=1000), principal: Principal = Depends(require_role("admin"))):
+    return {"ok": True, "emails": call(service.outbox_list, request.app.state.db, status=status, limit=limit)}
+
+
 @router.post("/{alarm_id}/acknowledge", summary="Acknowledge an open alarm with a comment (engineer)")
 def acknowledge(request: Request, alarm_id: AlarmId, body: AckIn,
                 principal: Principal = Depends(require_role("engineer"))):

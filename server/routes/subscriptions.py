@@ -74,3 +74,4 @@ def delete_subscription(request: Request, sub_id: Annotated[int, Path(ge=1, le=2
             raise Forbidden(f"subscription {sub_id} is not yours", field="sub_id")
     call(service.delete_subscription, db, sub_id)
     return {"ok": True}
+

@@ -54,8 +54,15 @@ class Feeder:
                          origin="api", uploader="test", checksum=f"{self.n:064x}")
             s.add(rec)
             s.flush()
+            sub, overall = data["subharmonic"], data["overall"]
             res = Result(record_id=rec.id, point_id=point_id, measured_ts=at.timestamp(),
-                         analysis_version="test", data=json.dumps(data), spectrum=b"")
+                         analysis_version="test", data=json.dumps(data), spectrum=b"",
+                         forcing_hz=data["forcing"]["frequency_hz"], sub_detected=sub["detected"],
+                         sub_class=sub["class"], sub_frequency_hz=sub["frequency_hz"],
+                         sub_amplitude=sub["amplitude"], sub_velocity_mm_s=sub["velocity_mm_s"],
+                         sub_snr_db=sub["snr_db"], growth_rate_per_s=data["growth"]["rate_per_s"],
+                         overall_velocity_rms_mm_s=overall["velocity_rms_mm_s"], zone=overall["zone"],
+                         quality_ok=data["quality"]["ok"])
             s.add(res)
             s.flush()
             events = evaluate_result(s, rec, res, settings=self.settings, now=at)

@@ -166,3 +166,14 @@ def test_daily_digest_lists_open_alarms_by_severity(feeder, plant, migrated_db, 
     assert any(ln.startswith("DANGER") and "half-order velocity" in ln for ln in lines)
     assert any("P1-NDE-V" in ln and "overall velocity" in ln for ln in lines)
     assert [ln.split()[0] for ln in lines] == sorted((ln.split()[0] for ln in lines), key="DANGER ALERT".find)
+
+
+def test_a_broken_sensor_emails_once_not_per_record(feeder, plant, migrated_db, smtp, mail_settings):
+    subscribe(migrated_db, plant, email="dq@example.test", include_data_quality=True)
+    for _ in range(4):
+        feeder.feed(plant.point_id, make_result(half_v=2.0, flags=("flat-line",), ok=False))
+    feeder.feed(plant.point_id, make_result(half_v=0.2))  # good again
+    feeder.feed(plant.point_id, make_result(half_v=2.0, flags=("clipping",), ok=False))  # bad again
+    run_mailer_once(migrated_db, mail_settings)
+    subjects = [m["msg"]["Subject"] for m in smtp.messages]
+    assert len(subjects) == 2 and all("data quality" in s for s in subjects)
