@@ -25,6 +25,6 @@ schema = schemathesis.pytest.from_fixture("alarm_schema").include(path_regex="^/
 
 
 @schema.parametrize()
-@settings(max_examples=8, deadline=None, suppress_health_check=list(HealthCheck))
+@settings(max_examples=5, deadline=None, suppress_health_check=list(HealthCheck))
 def test_alarm_endpoints_never_fail_with_5xx(case, app):
     case.call_and_validate(headers=app.state.fuzz_headers, checks=[not_a_server_error])
