@@ -74,15 +74,6 @@ def _result_data(result) -> dict:
     return json.loads(data) if isinstance(data, str) else dict(data)
 
 
-def _status(session: Session, point_id: int) -> AlarmPointStatus:
-    status = session.get(AlarmPointStatus, point_id)
-    if status is None:
-        status = AlarmPointStatus(point_id=point_id, speeds_hz=[], history=[], windows={}, window_fit={},
-                                  last_metrics={})
-        session.add(status)
-    return status
-
-
 def _states(session: Session, point: Point, metrics: list[str]) -> dict[str, AlarmState]:
     """The point's states by metric (one query), creating the missing ones."""
     rows = session.scalars(select(AlarmState).where(AlarmState.point_id == point.id))
@@ -95,16 +86,21 @@ def _states(session: Session, point: Point, metrics: list[str]) -> dict[str, Ala
     return states
 
 
-def _context(session: Session, point_id: int) -> tuple[Point, Asset, dict]:
-    """The point, its asset and the names up to the site, in one query."""
-    point, asset, area, site = session.execute(
-        select(Point, Asset, Area, Site).join(Asset, Asset.id == Point.asset_id)
-        .join(Area, Area.id == Asset.area_id).join(Site, Site.id == Area.site_id).where(Point.id == point_id)
+def _context(session: Session, point_id: int) -> tuple[Point, Asset, dict, AlarmPointStatus]:
+    """The point, its asset, the names up to the site and the point's alarm status, in one query."""
+    point, asset, area, site, status = session.execute(
+        select(Point, Asset, Area, Site, AlarmPointStatus).join(Asset, Asset.id == Point.asset_id)
+        .join(Area, Area.id == Asset.area_id).join(Site, Site.id == Area.site_id)
+        .outerjoin(AlarmPointStatus, AlarmPointStatus.point_id == Point.id).where(Point.id == point_id)
     ).one()
+    if status is None:
+        status = AlarmPointStatus(point_id=point_id, speeds_hz=[], history=[], windows={}, window_fit={},
+                                  last_metrics={})
+        session.add(status)
     return point, asset, {
         "point_id": point.id, "point": point.name, "asset_id": asset.id, "asset": asset.name,
         "area_id": area.id, "area": area.name, "site_id": site.id, "site": site.name,
-    }
+    }, status
 
 
 def _measured_ts(record, result) -> float:
@@ -125,9 +121,8 @@ def evaluate_result(
 
 
 def _evaluate(session: Session, record, result, settings, now: dt.datetime) -> list:
-    point, asset, where = _context(session, record.point_id)
+    point, asset, where, status = _context(session, record.point_id)
     data = _result_data(result)
-    status = _status(session, point.id)
     nominal = (asset.nominal_speed_hz or 0) * (asset.forcing_multiplier or 1.0) or None
     common = {
         "point_id": point.id, "asset_id": asset.id, "area_id": where["area_id"], "site_id": where["site_id"],
