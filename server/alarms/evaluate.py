@@ -20,7 +20,7 @@ from server.storage.tables import Area, Asset, Point, Site, utcnow
 from . import checks, margin
 from .engine import Reading, step
 from .notify import queue_for_events
-from .rules import LEVEL_RANK, RuleSpec, default_rules, result_metrics
+from .rules import LEVEL_RANK, METRICS, RuleSpec, default_rules, result_metrics
 from .tables import AlarmEvent, AlarmPointStatus, AlarmRule, AlarmState
 
 HISTORY_LEN = 30
@@ -145,11 +145,17 @@ def _evaluate(session: Session, record, result, settings, now: dt.datetime) -> l
             queue_for_events(session, [event], now=now)
         return [event]
 
-    rules = [r for r in effective_rules(session, point, asset) if r.enabled]
     metrics = result_metrics(data)
-    previous = dict(status.last_metrics or {})
     ts = _measured_ts(record, result)
-    history = [*(status.history or []), [ts, metrics["half_order_velocity"] or 0.0]][-HISTORY_LEN:]
+    old = list(status.history or [])
+    if old and ts <= old[-1][0]:
+        # A late record (route data uploaded out of order) or a re-analysis: it corrects the history
+        # the trend is fitted to, but the levels follow the newest reading only.
+        status.history = merge_history(old, ts, metrics["half_order_velocity"] or 0.0)
+        return []
+    rules = [r for r in effective_rules(session, point, asset) if r.enabled]
+    previous = dict(status.last_metrics or {})
+    history = [*old, [ts, metrics["half_order_velocity"] or 0.0]][-HISTORY_LEN:]
     danger_of = {r.metric: r.danger_level for r in rules}
     metrics["trend_db_per_day"], metrics["time_to_limit_days"] = checks.trend_and_forecast(
         history, limit=danger_of.get("half_order_velocity")
@@ -188,7 +194,8 @@ def _evaluate(session: Session, record, result, settings, now: dt.datetime) -> l
             forecast = checks.detailed_forecast(history, limit=danger_of.get("half_order_velocity"))
         state.window = windows[row.metric]
         state.last_value, state.last_record_id, state.updated_at = value, record.id, now
-        summary = f"{row.metric}: {tr.from_level} -> {tr.to_level} at {value:.4g}"
+        info = METRICS[row.metric]
+        summary = f"{info.label}: {tr.from_level} -> {tr.to_level} at {value:.3g} {info.unit}".rstrip()
         event = AlarmEvent(
             kind="transition", metric=row.metric, rule_id=row.id, from_level=tr.from_level,
             to_level=tr.to_level, value=value, threshold=tr.level_value, summary=summary,
@@ -207,6 +214,12 @@ def _evaluate(session: Session, record, result, settings, now: dt.datetime) -> l
         state.last_event_id = event.id
     queue_for_events(session, [e for e, s in events if not _shelved(s, now)], now=now)
     return [e for e, _ in events]
+
+
+def merge_history(history: list[list[float]], ts: float, value: float) -> list[list[float]]:
+    """Put one reading into the time-ordered history (a reading at the same time is replaced)."""
+    kept = [item for item in history if item[0] != ts]
+    return sorted([*kept, [ts, value]], key=lambda item: item[0])[-HISTORY_LEN:]
 
 
 def _apply_transition(state: AlarmState, new_level: str, now: dt.datetime) -> None:

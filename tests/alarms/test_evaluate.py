@@ -165,3 +165,22 @@ def test_trend_rule_on_a_steady_rise(feeder, plant, migrated_db):
     with migrated_db.read() as s:
         st = s.scalars(select(AlarmState).where(AlarmState.metric == "trend_db_per_day")).one()
         assert st.last_value == pytest.approx(2.0, rel=1e-6)  # Theil-Sen on exact data (scipy)
+
+
+def test_late_and_reanalysed_records_do_not_move_levels(feeder, plant, migrated_db):
+    for v in ONSET[:4]:
+        feeder.feed(plant.point_id, make_result(half_v=v))
+    # A reading from before the newest one (a route uploaded late) with a large line: no transition,
+    # but it joins the history the trend is fitted to, in time order.
+    late = T0 + dt.timedelta(hours=1)
+    assert feeder.feed(plant.point_id, make_result(half_v=4.0), at=late) == []
+    assert feeder.feed(plant.point_id, make_result(half_v=4.5), at=late) == []  # re-analysed: replaced
+    from server.alarms.tables import AlarmPointStatus
+
+    with migrated_db.read() as s:
+        history = s.get(AlarmPointStatus, plant.point_id).history
+    times = [h[0] for h in history]
+    assert times == sorted(times) and len(times) == 5
+    assert history[0] == [late.timestamp(), 4.5]
+    levels = {a["metric"]: a["level"] for a in service.list_alarms(migrated_db, view="all")}
+    assert levels["half_order_velocity"] == "alert"
