@@ -185,8 +185,10 @@ def fail(db, c: Claim, error: str, *, permanent: bool, settings) -> None:
         log.warning("job %s: lease lost before the failure could be recorded", c.job_id)
 
 
-def run_once(db, settings, worker_id: str | None = None) -> bool:
-    """Process one job if there is one; True if a job was claimed."""
+def run_once(db, settings, worker_id: str | None = None, heartbeat=None) -> bool:
+    """Process one job if there is one; True if a job was claimed.
+
+    ``heartbeat`` (server.ops.heartbeat.Heartbeat) collects the analysis durations for /metrics."""
     from analysis.errors import SignalError
 
     c = claim(db, worker_id or default_worker_id(), lease_s=settings.lease_s,
@@ -195,7 +197,10 @@ def run_once(db, settings, worker_id: str | None = None) -> bool:
         return False
     try:
         record, asset, samples = load(db, c.record_id)
+        t0 = time.perf_counter()
         analysis = analyse(record, asset, samples)
+        if heartbeat is not None:
+            heartbeat.observe("analysis_seconds", time.perf_counter() - t0)
     except SignalError as exc:  # the same record fails the same way every time: no retry
         fail(db, c, f"{getattr(exc, 'field', 'samples')}: {exc}", permanent=True, settings=settings)
         return True
@@ -223,13 +228,21 @@ def run_forever(db, settings, *, stop: threading.Event | None = None, max_jobs: 
     worker_id = worker_id or default_worker_id()
     handled = 0
     log.info("worker %s started", worker_id)
-    while not stop.is_set() and (max_jobs is None or handled < max_jobs):
-        try:
-            if run_once(db, settings, worker_id):
-                handled += 1
-                continue
-        except OperationalError as exc:  # database busy or unreachable: wait, then try again
-            log.warning("worker %s: database unavailable (%s)", worker_id, exc.orig)
-            time.sleep(min(5.0, settings.worker_poll_s * 10))
-        stop.wait(settings.worker_poll_s)
+    from server.ops.heartbeat import Heartbeat  # /readyz and /metrics read it
+
+    beat = Heartbeat(db, worker_id, "worker", interval_s=settings.heartbeat_s)
+    beat.prune()
+    try:
+        while not stop.is_set() and (max_jobs is None or handled < max_jobs):
+            beat.beat("running")
+            try:
+                if run_once(db, settings, worker_id, heartbeat=beat):
+                    handled += 1
+                    continue
+            except OperationalError as exc:  # database busy or unreachable: wait, then try again
+                log.warning("worker %s: database unavailable (%s)", worker_id, exc.orig)
+                time.sleep(min(5.0, settings.worker_poll_s * 10))
+            stop.wait(settings.worker_poll_s)
+    finally:
+        beat.beat("stopped", force=True)
     return handled
