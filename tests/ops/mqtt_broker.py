@@ -1,24 +1,30 @@
-"""Ops-area fixtures (shared by the MQTT and the reliability tests).
+"""MQTT test helpers: a real mosquitto broker per test on 127.0.0.1 (stopped by its own pid), a bridge
+running in this process, a plain paho listener/publisher, and the example gateway script as a module.
 
-- ``broker`` / ``durable_broker``: a real mosquitto started per test on 127.0.0.1 (see Broker).
-- ``backend``: (Database, Settings, Plant) on a migrated database, parametrised over SQLite and, when
-  HALFWATCH_TEST_POSTGRES_URL is set, PostgreSQL (a fresh schema per test).
-- ``procs``: an ``ops.helpers.Procs`` (server and worker child processes), killed by pid at the end.
+Import ``broker`` / ``durable_broker`` into a test module to use them as fixtures.
 """
 
 from __future__ import annotations
 
+import datetime as dt
+import importlib.util
+import json
 import os
 import shutil
 import socket
 import subprocess
+import threading
 import time
+from pathlib import Path
 
+import paho.mqtt.client as mqtt
 import pytest
-from ops.helpers import Procs
-from support.fixtures import settings_for
-from support.plant import make_plant
+from paho.mqtt.enums import CallbackAPIVersion
 from support.servers import free_port
+
+from server.mqtt.bridge import Bridge
+
+ROOT = Path(__file__).resolve().parents[2]
 
 
 def mosquitto_bin() -> str | None:
@@ -112,24 +118,69 @@ def wait_until(predicate, timeout_s: float = 20.0, step_s: float = 0.05) -> bool
     return bool(predicate())
 
 
-@pytest.fixture(params=["sqlite", "postgresql"])
-def backend(request, tmp_path):
-    from server.migrations import upgrade
-    from server.storage import Database
-
-    overrides = dict(retry_backoff_s=0.0, worker_poll_s=0.05)
-    if request.param == "postgresql":
-        settings = request.getfixturevalue("pg_settings").model_copy(update=overrides)
-    else:
-        settings = settings_for(tmp_path, **overrides)
-    upgrade(settings.database_url)
-    db = Database(settings.database_url)
-    yield db, settings, make_plant(db)
-    db.dispose()
+def load_gateway():
+    spec = importlib.util.spec_from_file_location("gateway_publish", ROOT / "examples" / "gateway_publish.py")
+    module = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(module)
+    return module
 
 
-@pytest.fixture
-def procs(tmp_path):
-    ps = Procs(tmp_path)
-    yield ps
-    ps.close()
+gateway = load_gateway()
+
+
+def mqtt_settings(settings, b, **extra):
+    return settings.model_copy(update={"mqtt_host": "127.0.0.1", "mqtt_port": b.port, "heartbeat_s": 0.2,
+                                       "mqtt_client_id": "hw-test-bridge", "mqtt_reconnect_max_s": 2.0,
+                                       **extra})
+
+
+class Running:
+    """A bridge started in this process; ``stop()`` is a clean stop."""
+
+    def __init__(self, db, settings, cls=Bridge):
+        self.bridge = cls(db, settings)
+        self.bridge.start()
+        assert self.bridge.subscribed.wait(15), "bridge did not subscribe"
+
+    def stop(self):
+        self.bridge.stop()
+
+
+class Listener:
+    """A plain paho client that collects replies (and can publish raw payloads)."""
+
+    def __init__(self, port: int, topic: str = "halfwatch/#"):
+        self.replies: list[dict] = []
+        self.ready = threading.Event()
+        self.c = mqtt.Client(CallbackAPIVersion.VERSION2, client_id="")
+        self.c.on_connect = lambda c, u, f, rc, p: c.subscribe(topic, qos=1)
+        self.c.on_subscribe = lambda *a: self.ready.set()
+        self.acked: set[int] = set()
+        self.c.on_publish = lambda c, u, mid, rc, p: self.acked.add(mid)
+        self.c.reconnect_delay_set(1, 2)
+        self.c.on_message = self._on_message
+        self.c.connect("127.0.0.1", port, keepalive=30)
+        self.c.loop_start()
+        assert self.ready.wait(10)
+
+    def _on_message(self, client, userdata, m):
+        if m.topic.endswith("/reply"):
+            self.replies.append({"reply_topic": m.topic, **json.loads(m.payload)})
+
+    def publish(self, topic: str, payload: bytes):
+        self.c.publish(topic, payload, qos=1).wait_for_publish(10)
+
+    def send(self, topic: str, payload: bytes) -> int:
+        """Publish without waiting; works while the broker is down (paho queues and re-sends)."""
+        return self.c.publish(topic, payload, qos=1).mid
+
+    def close(self):
+        self.c.disconnect()
+        self.c.loop_stop()
+
+
+def record_payload(x, when: dt.datetime, ref: str | None, **extra) -> bytes:
+    meta = {"fs_hz": 2560.0, "units": "m/s2", "measured_at": when.isoformat(), **extra}
+    if ref:
+        meta["client_ref"] = ref
+    return gateway.payload(x, meta, binary=False)

@@ -10,16 +10,22 @@ from __future__ import annotations
 
 import base64
 import datetime as dt
-import importlib.util
 import json
 import threading
 from pathlib import Path
 
 import numpy as np
-import paho.mqtt.client as mqtt
 import pytest
-from ops.mqtt_broker import broker, durable_broker, wait_until  # noqa: F401 (fixtures)
-from paho.mqtt.enums import CallbackAPIVersion
+from ops.mqtt_broker import (  # noqa: F401 (fixtures)
+    Listener,
+    Running,
+    broker,
+    durable_broker,
+    gateway,
+    mqtt_settings,
+    record_payload,
+    wait_until,
+)
 from sqlalchemy import func, select
 from support.fixtures import settings_for
 from support.plant import make_plant
@@ -30,74 +36,6 @@ from server.storage.tables import Job, Record, Result
 
 ROOT = Path(__file__).resolve().parents[2]
 T0 = dt.datetime(2026, 3, 2, 8, 0, tzinfo=dt.UTC)
-
-
-def load_gateway():
-    spec = importlib.util.spec_from_file_location("gateway_publish", ROOT / "examples" / "gateway_publish.py")
-    module = importlib.util.module_from_spec(spec)
-    spec.loader.exec_module(module)
-    return module
-
-
-gateway = load_gateway()
-
-
-def mqtt_settings(settings, b, **extra):
-    return settings.model_copy(update={"mqtt_host": "127.0.0.1", "mqtt_port": b.port, "heartbeat_s": 0.2,
-                                       "mqtt_client_id": "hw-test-bridge", "mqtt_reconnect_max_s": 2.0,
-                                       **extra})
-
-
-class Running:
-    """A bridge started in this process; ``stop()`` is a clean stop."""
-
-    def __init__(self, db, settings, cls=Bridge):
-        self.bridge = cls(db, settings)
-        self.bridge.start()
-        assert self.bridge.subscribed.wait(15), "bridge did not subscribe"
-
-    def stop(self):
-        self.bridge.stop()
-
-
-class Listener:
-    """A plain paho client that collects replies (and can publish raw payloads)."""
-
-    def __init__(self, port: int, topic: str = "halfwatch/#"):
-        self.replies: list[dict] = []
-        self.ready = threading.Event()
-        self.c = mqtt.Client(CallbackAPIVersion.VERSION2, client_id="")
-        self.c.on_connect = lambda c, u, f, rc, p: c.subscribe(topic, qos=1)
-        self.c.on_subscribe = lambda *a: self.ready.set()
-        self.acked: set[int] = set()
-        self.c.on_publish = lambda c, u, mid, rc, p: self.acked.add(mid)
-        self.c.reconnect_delay_set(1, 2)
-        self.c.on_message = self._on_message
-        self.c.connect("127.0.0.1", port, keepalive=30)
-        self.c.loop_start()
-        assert self.ready.wait(10)
-
-    def _on_message(self, client, userdata, m):
-        if m.topic.endswith("/reply"):
-            self.replies.append({"reply_topic": m.topic, **json.loads(m.payload)})
-
-    def publish(self, topic: str, payload: bytes):
-        self.c.publish(topic, payload, qos=1).wait_for_publish(10)
-
-    def send(self, topic: str, payload: bytes) -> int:
-        """Publish without waiting; works while the broker is down (paho queues and re-sends)."""
-        return self.c.publish(topic, payload, qos=1).mid
-
-    def close(self):
-        self.c.disconnect()
-        self.c.loop_stop()
-
-
-def record_payload(x, when: dt.datetime, ref: str | None, **extra) -> bytes:
-    meta = {"fs_hz": 2560.0, "units": "m/s2", "measured_at": when.isoformat(), **extra}
-    if ref:
-        meta["client_ref"] = ref
-    return gateway.payload(x, meta, binary=False)
 
 
 def count(db, model) -> int:
