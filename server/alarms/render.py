@@ -107,6 +107,13 @@ def _event_lines(event: dict) -> tuple[str, list[tuple[str, str]]]:
     return headline, []
 
 
+def _state_word(event: dict) -> str:
+    order = ("normal", "alert", "danger")
+    if order.index(event["to_level"]) > order.index(event["from_level"]):
+        return LEVEL_WORD[event["to_level"]]
+    return "CLEARED" if event["to_level"] == "normal" else f"down to {LEVEL_WORD[event['to_level']]}"
+
+
 def alarm_email(events: list[dict], *, base_url: str) -> tuple[str, str, str]:
     """One email for the events of one record (the first is the most severe)."""
     first = events[0]
@@ -119,7 +126,7 @@ def alarm_email(events: list[dict], *, base_url: str) -> tuple[str, str, str]:
     if dq:
         subject = f"[halfwatch] data quality: {where['asset']} / {where['point']}"
     else:
-        subject = (f"[halfwatch] {LEVEL_WORD[first['to_level']]}: {where['asset']} / {where['point']} - "
+        subject = (f"[halfwatch] {_state_word(first)}: {where['asset']} / {where['point']} - "
                    f"{METRICS[first['metric']].label}")
     facts = [
         ("Site / area", f"{where['site']} / {where['area']}"),

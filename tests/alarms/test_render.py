@@ -63,6 +63,14 @@ def test_alarm_email_parts_and_escaping():
         assert caution in text
 
 
+def test_subject_says_cleared_or_down():
+    event = _event()
+    event.update(from_level="alert", to_level="normal")
+    assert alarm_email([event], base_url="x")[0].startswith("[halfwatch] CLEARED: Pump <A&B> / DE-H")
+    event.update(from_level="danger", to_level="alert")
+    assert alarm_email([event], base_url="x")[0].startswith("[halfwatch] down to ALERT: ")
+
+
 def test_detailed_forecast_and_unstable_band_in_the_email():
     event = _event()
     event["details"]["forecast"] = {"status": "forecast", "model": "exponential", "days_to_limit": 9.4,
