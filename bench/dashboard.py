@@ -26,11 +26,12 @@ POINTS, DAYS, PER_DAY = 20, 365, 24
 
 
 def build(tmp: Path):
+    from support.fixtures import settings_for
+
     from server.migrations import upgrade
     from server.storage import Database
     from server.storage.packing import pack_arrays
     from server.storage.tables import Area, Asset, Point, Record, Result, Site
-    from support.fixtures import settings_for
 
     settings = settings_for(tmp)
     upgrade(settings.database_url)
@@ -70,7 +71,8 @@ def build(tmp: Path):
             data = {"orders": {"1X": {"amplitude": 1.0, "velocity_mm_s": 4.5}},
                     "subharmonic": {"amplitude": float(amps[i])}}
             res.append({"record_id": rec_id, "point_id": pid, "measured_ts": t.timestamp(),
-                        "analysis_version": "bench", "current": True, "data": json.dumps(data), "spectrum": blob,
+                        "analysis_version": "bench", "current": True, "data": json.dumps(data),
+                        "spectrum": blob,
                         "forcing_hz": 24.75, "sub_detected": True, "sub_class": "half-order",
                         "sub_amplitude": float(amps[i]), "sub_velocity_mm_s": float(amps[i]) * 6.4,
                         "overall_velocity_rms_mm_s": 3.0 + float(amps[i]), "growth_rate_per_s": 0.0,
@@ -110,8 +112,9 @@ def browser_times(base, asset_id, runs):
     from playwright.sync_api import sync_playwright
 
     args = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-dev-shm-usage",
-            "--disable-background-networking", "--disable-component-update", "--disable-sync", "--no-first-run",
-            "--disable-quic", "--host-resolver-rules=MAP * ~NOTFOUND, EXCLUDE 127.0.0.1, EXCLUDE localhost"]
+            "--disable-background-networking", "--disable-component-update", "--disable-sync",
+            "--no-first-run", "--disable-quic",
+            "--host-resolver-rules=MAP * ~NOTFOUND, EXCLUDE 127.0.0.1, EXCLUDE localhost"]
     out = []
     with sync_playwright() as p:
         b = p.chromium.launch(executable_path="/usr/bin/chromium", headless=True, args=args)
@@ -123,13 +126,14 @@ def browser_times(base, asset_id, runs):
         page.click("button[type=submit]")
         page.wait_for_url(base + "/")
         page.goto(f"{base}/assets/{asset_id}")  # warm the cache with plotly.js once
-        page.wait_for_function("document.body.dataset.ready === '1'", timeout=30_000)
+        page.wait_for_function("() => document.body.dataset.ready === '1'", timeout=30_000)
         for _ in range(runs):
             t = time.perf_counter()
-            page.goto(f"{base}/assets/{asset_id}")
-            page.select_option("#period", "365")  # a year of readings on every chart
-            page.wait_for_function("document.getElementById('bucket-note').textContent.includes('buckets')"
-                                   " && document.getElementById('chart-half').data.length > 0", timeout=30_000)
+            page.goto(f"{base}/assets/{asset_id}?point=1&days=365")  # a year of readings on every chart
+            page.wait_for_function("() => document.getElementById('bucket-note').textContent"
+                                   ".includes('buckets')"
+                                   " && document.getElementById('chart-half').data.length",
+                                   timeout=30_000)
             out.append((time.perf_counter() - t) * 1000)
         b.close()
     return out
@@ -139,12 +143,14 @@ def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--runs", type=int, default=25)
     ap.add_argument("--browser-runs", type=int, default=7)
+    ap.add_argument("--points", type=int, default=POINTS, help="points with a year of readings each")
     args = ap.parse_args(argv)
+    globals()["POINTS"] = args.points
     import httpx
+    from support.servers import serve_in_thread
 
     from server.app import create_app
     from server.services.users import add_user
-    from support.servers import serve_in_thread
 
     with tempfile.TemporaryDirectory() as d:
         settings, db, pids, t0, t1 = build(Path(d))
@@ -155,8 +161,8 @@ def main(argv=None) -> int:
             c = httpx.Client(base_url=base)
             c.post("/api/v1/session", json={"username": "bench1", "password": "bench password 1"})
             q = {"start": t0.isoformat(), "end": t1.isoformat()}
-            rows = {"trend endpoint (1 metric, 1000 buckets)": [], "series endpoint (6 metrics + fit, 600)": [],
-                    "bare SQL fetch of the same rows": []}
+            rows = {"trend endpoint (1 metric, 1000 buckets)": [],
+                    "series endpoint (6 metrics + fit, 600)": [], "bare SQL fetch of the same rows": []}
             for i in range(args.runs):
                 pid = pids[i % len(pids)]
                 rows["bare SQL fetch of the same rows"] += timed(lambda pid=pid: bare_sql(db, pid, t0, t1), 1)
@@ -171,7 +177,8 @@ def main(argv=None) -> int:
             answer = c.get(f"/api/v1/points/{pids[0]}/trend", params={**q, "metric": "subharmonic.amplitude"})
             n_out = len(answer.json()["t"])
             floor = statistics.median(rows["bare SQL fetch of the same rows"])
-            print(f"\none point-year: {n_rows} rows -> {n_out} buckets; medians of {args.runs} interleaved runs\n")
+            print(f"\none point-year: {n_rows} rows -> {n_out} buckets; medians of {args.runs} "
+                  "interleaved runs\n")
             print(f"| {'measurement':44} | median ms | p90 ms | vs bare SQL |")
             print(f"|{'-' * 46}|-----------|--------|-------------|")
             for name, vals in rows.items():
@@ -180,7 +187,8 @@ def main(argv=None) -> int:
                 print(f"| {name:44} | {med:9.1f} | {p90:6.1f} | {med / floor:10.2f}x |")
             asset_id = 1
             nav = browser_times(base, asset_id, args.browser_runs)
-            print(f"| {'asset page: navigation to 6 charts drawn (1 y)':44} | {statistics.median(nav):9.0f} | "
+            label = "asset page: navigation to 6 charts drawn (1 y)"
+            print(f"| {label:44} | {statistics.median(nav):9.0f} | "
                   f"{sorted(nav)[int(0.9 * (len(nav) - 1))]:6.0f} | {'':11} |")
             print("\ngoals: trend endpoint < 150 ms median and < 2x bare SQL; asset page < 1500 ms")
         db.dispose()

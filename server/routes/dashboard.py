@@ -97,11 +97,37 @@ def _asset_dict(asset: Asset, area: Area, site: Site, settings) -> dict:
             "description": asset.description}
 
 
-def _levels(rules: list[dict], metric: str) -> dict | None:
-    for r in rules:
-        if r["metric"] == metric and r["enabled"]:
-            return {"alert": r["alert"], "danger": r["danger"], "zone_based": r["zone_based"]}
-    return None
+LEVEL_METRICS = ("half_order_velocity", "half_order_ratio", "growth_rate", "overall_velocity")
+
+
+def point_levels(s, asset: Asset, point_ids: list[int]) -> dict[int, dict]:
+    """Alert/danger levels in force per point, read in one query and never written (a GET): a point's own
+    edited rule wins, then an asset rule, then the point's default rule or the default set."""
+    from server.alarms.rules import default_rules
+    from server.alarms.tables import AlarmRule
+
+    rows = list(s.scalars(select(AlarmRule).where(AlarmRule.point_id.in_(point_ids)
+                                                  | ((AlarmRule.asset_id == asset.id)
+                                                     & AlarmRule.point_id.is_(None)))))
+    defaults = {r.metric: r for r in default_rules(group=asset.machine_group or 2,
+                                                   support=asset.foundation or "rigid")}
+    asset_rules = {r.metric: r for r in rows if r.point_id is None}
+
+    def level(pid: int, metric: str) -> dict | None:
+        own = next((r for r in rows if r.point_id == pid and r.metric == metric), None)
+        if own is not None and (not own.is_default or metric not in asset_rules):
+            r = own
+        elif metric in asset_rules:
+            r = asset_rules[metric]
+        else:
+            spec = defaults.get(metric)
+            return None if spec is None else {"alert": spec.alert, "danger": spec.danger,
+                                              "zone_based": spec.zone_based}
+        if not r.enabled:
+            return None
+        return {"alert": r.alert_level, "danger": r.danger_level, "zone_based": r.zone_based}
+
+    return {pid: {m: level(pid, m) for m in LEVEL_METRICS} for pid in point_ids}
 
 
 @router.get("/assets/{asset_id}", summary="An asset with its points, ISO zone limits and alarm levels")
@@ -112,12 +138,12 @@ def asset_detail(request: Request, asset_id: int, principal: Principal = Depends
     with db.read() as s:
         asset, area, site = _asset_context(s, principal, asset_id)
         tree = tree_queries.tree(s, site.id)
-    pts = next(a["points"] for ar in tree["sites"][0]["areas"] for a in ar["assets"] if a["id"] == asset_id)
+        pts = next(a["points"] for ar in tree["sites"][0]["areas"] for a in ar["assets"]
+                   if a["id"] == asset_id)
+        levels = point_levels(s, asset, [p["id"] for p in pts])
     limits = zone_limits({}, group=asset.machine_group, support=asset.foundation)
     for p in pts:
-        rules = service.list_rules(db, point_id=p["id"])
-        p["levels"] = {m: _levels(rules, m) for m in ("half_order_velocity", "half_order_ratio",
-                                                       "growth_rate", "overall_velocity")}
+        p["levels"] = levels[p["id"]]
     alarms = service.list_alarms(db, view="all", asset_id=asset_id)
     return {"ok": True, "asset": _asset_dict(asset, area, site, settings), "points": pts,
             "zone_limits_mm_s": list(limits) if limits else None, "alarms": alarms,
@@ -143,7 +169,7 @@ def point_series(request: Request, point_id: int,
     with request.app.state.db.read() as s:
         check_point(s, principal, point_id)
         data = series.point_series(s, point_id, start, end, max_points)
-        fit = series.trend_forecast(s, point_id, start, end, limit)
+    fit = series.trend_forecast(data, limit)
     return {"ok": True, "point_id": point_id, "start": queries.iso(start), "end": queries.iso(end),
             "max_points": max_points, **data, "trend": fit}
 

@@ -126,28 +126,40 @@ def asset_sparks(s, points: list[Point], *, days: float = 30.0, buckets: int = 3
     return out
 
 
-def trend_forecast(s, point_id: int, t0: dt.datetime, t1: dt.datetime, limit: float | None,
-                   *, max_rows: int = 400) -> dict:
-    """Trend fit of the half-order velocity over the period and its forecast to ``limit`` (mm/s)."""
+def _fit_input(data: dict, max_points: int) -> tuple[list[float], list[float], list[float]]:
+    """(unix days, half-order velocity, forcing Hz) of the detected readings or buckets, thinned to at most
+    ``max_points`` by geometric means of neighbours (the trend model is exponential)."""
+    mean = data["half_velocity"]["mean"]
+    forcing = data["forcing"]["mean"]
+    rows = [(dt.datetime.fromisoformat(t.replace("Z", "+00:00")).timestamp() / 86400.0, v, f)
+            for t, v, f, det in zip(data["t"], mean, forcing, data["detected"], strict=True)
+            if det and v is not None and v > 0]
+    step = max(1, -(-len(rows) // max_points))
+    out = ([], [], [])
+    for i in range(0, len(rows), step):
+        chunk = rows[i:i + step]
+        out[0].append(sum(r[0] for r in chunk) / len(chunk))
+        out[1].append(math.exp(sum(math.log(r[1]) for r in chunk) / len(chunk)))
+        fs = [r[2] for r in chunk if r[2] is not None]
+        out[2].append(sum(fs) / len(fs) if fs else math.nan)
+    return out
+
+
+def trend_forecast(data: dict, limit: float | None, *, max_points: int = 120) -> dict:
+    """Trend fit of the half-order velocity of a series (from :func:`point_series`) and its forecast to
+    ``limit`` (mm/s). Long series are thinned to ``max_points`` so the fit stays quick."""
     try:
         from analysis.trend import fit_trend
     except ImportError:  # the trend module is part of the analysis package; guard for partial installs
         return {"status": "unavailable", "message": "the trend fit is not installed"}
-    rows = s.execute(select(Result.measured_ts, Result.sub_velocity_mm_s, Result.forcing_hz)
-                     .where(Result.point_id == point_id, Result.current.is_(True),
-                            Result.measured_ts >= t0.timestamp(), Result.measured_ts <= t1.timestamp(),
-                            Result.sub_detected.is_(True))
-                     .order_by(Result.measured_ts.desc()).limit(max_rows)).all()
-    rows.reverse()
-    days = [r[0] / 86400.0 for r in rows]
-    amps = [math.nan if r[1] is None else r[1] for r in rows]
-    speeds = [math.nan if r[2] is None else r[2] for r in rows]
+    days, amps, speeds = _fit_input(data, max_points)
     fit = fit_trend(days, amps, limit=limit, speed_hz=speeds if any(map(math.isfinite, speeds)) else None)
     d = fit.to_dict()
     out = {k: d.get(k) for k in ("status", "message", "model", "n_used", "n_total", "growth_db_per_day",
                                  "growth_db_per_day_lo", "growth_db_per_day_hi", "doubling_days",
                                  "days_to_limit", "days_to_limit_lo", "days_to_limit_hi", "limit",
                                  "onset_iso", "limit_iso")}
+    out["thinned"] = len(days) < sum(1 for x in data["detected"] if x)
     band = d.get("band") or {}
     if band.get("days"):
         out["band"] = {"t": [_ts(x * 86400.0) for x in band["days"]], "fit": band["fit"], "lo": band["lo"],

@@ -16,7 +16,7 @@ pytestmark = pytest.mark.browser
 
 
 def ready(page, timeout=15_000):
-    page.wait_for_function("document.body.dataset.ready === '1'", timeout=timeout)
+    page.wait_for_function("() => document.body.dataset.ready === '1'", timeout=timeout)
 
 
 def no_js_errors(page):
@@ -129,7 +129,7 @@ def test_record_page_marks_half_order_at_half_the_forcing_frequency(login, site,
         return [r.left + xa._offset + xa.l2p(12.375), r.top + ya._offset + ya.l2p(ya.range[1] * 0.3)]; }""")
     page.mouse.move(x - 30, y)
     page.mouse.move(x, y, steps=4)
-    page.wait_for_function("document.getElementById('readout').textContent.includes('X')", timeout=5000)
+    page.wait_for_function("() => document.getElementById('readout').textContent.includes('X')", timeout=5000)
     readout = page.locator("#readout").inner_text()
     hz = float(readout.split("Hz")[0])
     order = float(readout.split("=")[1].split("X")[0])

@@ -173,7 +173,9 @@
     links.replaceChildren();
     if (l) links.append(el("a", { href: `/records/${l.record_id}` }, "latest reading"), " · ");
     links.append(el("a", { href: `/points/${point.id}/window` }, "operating window"));
-    history.replaceState(null, "", `?point=${point.id}`);
+    const q = new URLSearchParams({ point: point.id });
+    if ($("#period").value !== "custom") q.set("days", $("#period").value);
+    history.replaceState(null, "", `?${q}`);
     return loadSeries();
   }
 
@@ -187,6 +189,8 @@
     $("#asset-name").textContent = a.name;
     $("#asset-level").replaceChildren(HW.levelBadge(asset.alarm_summary.level));
     $("#asset-where").textContent = `${a.site} › ${a.area} · ${a.kind.replace(/_/g, " ")} · nominal ${a.nominal_speed_hz} Hz (${Math.round(a.nominal_speed_hz * 60)} rpm) · forcing ${a.forcing_kind} × ${a.forcing_multiplier} · ISO group ${a.machine_group}, ${a.foundation} · times in ${tz}`;
+    const days = HW.param("days");
+    if (days && [...$("#period").options].some((o) => o.value === days)) $("#period").value = days;
     const sel = $("#point-select");
     sel.replaceChildren(...asset.points.map((p) => el("option", { value: p.id }, `${p.name} (${p.state.replace(/-/g, " ")})`)));
     const wanted = Number(HW.param("point")) || (asset.points.find((p) => p.records > 0) || asset.points[0] || {}).id;
@@ -201,7 +205,7 @@
     $("#period").addEventListener("change", (e) => {
       const custom = e.target.value === "custom";
       $("#start").disabled = !custom; $("#end").disabled = !custom;
-      if (!custom) loadSeries();
+      if (!custom) selectPoint(point.id);
     });
     $("#apply").addEventListener("click", () => loadSeries());
     load();
