@@ -35,8 +35,11 @@ def rule_spec(row: AlarmRule) -> RuleSpec:
 
 
 def ensure_default_rules(session: Session, point: Point, asset: Asset | None = None,
-                         rows: list[AlarmRule] | None = None) -> list[AlarmRule]:
-    """Create the default rules of a point that has none (the server may call this on point creation)."""
+                         rows: list[AlarmRule] | None = None, *, persist: bool = True) -> list[AlarmRule]:
+    """Create the default rules of a point that has none (the server may call this on point creation).
+
+    With ``persist=False`` the defaults are returned without being added (for reads).
+    """
     if rows is None:
         rows = list(session.scalars(select(AlarmRule).where(AlarmRule.point_id == point.id)))
     if rows:
@@ -50,17 +53,20 @@ def ensure_default_rules(session: Session, point: Point, asset: Asset | None = N
                 hysteresis=spec.hysteresis, enabled=True, is_default=True, updated_by="defaults",
             )
         )
-    session.add_all(rows)
-    session.flush()
+    if persist:
+        session.add_all(rows)
+        session.flush()
     return rows
 
 
-def effective_rules(session: Session, point: Point, asset: Asset | None = None) -> list[AlarmRule]:
+def effective_rules(session: Session, point: Point, asset: Asset | None = None, *,
+                    persist: bool = True) -> list[AlarmRule]:
     """Point rules, with asset rules for any metric the point does not set itself (one query)."""
     rows = session.scalars(select(AlarmRule).where(
         (AlarmRule.point_id == point.id)
         | ((AlarmRule.asset_id == point.asset_id) & AlarmRule.point_id.is_(None)))).all()
-    point_rules = ensure_default_rules(session, point, asset, [r for r in rows if r.point_id == point.id])
+    point_rules = ensure_default_rules(session, point, asset, [r for r in rows if r.point_id == point.id],
+                                       persist=persist)
     by_metric = {r.metric: r for r in rows if r.point_id is None}
     # A point's own rule that an engineer edited wins; a default point rule yields to an asset rule.
     for r in point_rules:

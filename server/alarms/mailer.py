@@ -90,16 +90,22 @@ def build_message(row_id: int, recipient: str, message_id: str, subject: str, te
     return msg
 
 
+def tls_context(settings) -> ssl.SSLContext:
+    """Certificate checks always on; ``smtp_ca_file`` adds a site CA (an internal mail relay)."""
+    ca_file = getattr(settings, "smtp_ca_file", "") or None
+    return ssl.create_default_context(cafile=ca_file)
+
+
 def connect(settings) -> smtplib.SMTP:
     """An authenticated SMTP connection as the settings describe."""
     timeout = settings.smtp_timeout_s
     if settings.smtp_security == "ssl":
         smtp: smtplib.SMTP = smtplib.SMTP_SSL(settings.smtp_host, settings.smtp_port, timeout=timeout,
-                                              context=ssl.create_default_context())
+                                              context=tls_context(settings))
     else:
         smtp = smtplib.SMTP(settings.smtp_host, settings.smtp_port, timeout=timeout)
         if settings.smtp_security == "starttls":
-            smtp.starttls(context=ssl.create_default_context())
+            smtp.starttls(context=tls_context(settings))
     if settings.smtp_user:
         smtp.login(settings.smtp_user, settings.smtp_password.get_secret_value())
     return smtp

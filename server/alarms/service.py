@@ -282,11 +282,11 @@ def rule_dict(r: AlarmRule) -> dict:
 def list_rules(db, *, point_id: int) -> list[dict]:
     from .evaluate import effective_rules
 
-    with db.unit_of_work() as s:
+    with db.read() as s:  # a read: defaults not stored yet are shown, not written
         point = s.get(Point, point_id)
         if point is None:
             raise AlarmNotFound(f"point {point_id}")
-        return [rule_dict(r) for r in effective_rules(s, point)]
+        return [rule_dict(r) for r in effective_rules(s, point, persist=False)]
 
 
 def set_rule(db, body: dict, *, actor: str) -> dict:

@@ -2,59 +2,9 @@
 
 from __future__ import annotations
 
-import asyncio
-import threading
-
 import pytest
-from aiosmtpd.controller import Controller
-from alarms.helpers import Feeder
+from alarms.helpers import Feeder, SmtpServer
 from support.fixtures import settings_for
-from support.servers import free_port
-
-
-class RecordingHandler:
-    """Keeps every message; ``hold`` makes RCPT wait (a server that stalls mid-exchange)."""
-
-    def __init__(self):
-        self.messages: list[dict] = []
-        self.hold = threading.Event()
-        self.rcpt_seen = threading.Event()
-        self.lock = threading.Lock()
-
-    async def handle_RCPT(self, server, session, envelope, address, rcpt_options):
-        self.rcpt_seen.set()
-        while self.hold.is_set():
-            await asyncio.sleep(0.02)
-        envelope.rcpt_tos.append(address)
-        return "250 OK"
-
-    async def handle_DATA(self, server, session, envelope):
-        from email import message_from_bytes, policy
-
-        msg = message_from_bytes(envelope.content, policy=policy.default)
-        with self.lock:
-            self.messages.append({"to": list(envelope.rcpt_tos), "msg": msg})
-        return "250 Message accepted for delivery"
-
-
-class SmtpServer:
-    def __init__(self):
-        self.port = free_port()
-        self.handler = RecordingHandler()
-        self.controller = None
-
-    def start(self):
-        self.controller = Controller(self.handler, hostname="127.0.0.1", port=self.port, ready_timeout=10)
-        self.controller.start()
-
-    def stop(self):
-        if self.controller is not None:
-            self.controller.stop()
-            self.controller = None
-
-    @property
-    def messages(self):
-        return self.handler.messages
 
 
 @pytest.fixture

@@ -2,8 +2,13 @@
 
 from __future__ import annotations
 
+import asyncio
 import datetime as dt
 import json
+import threading
+
+from aiosmtpd.controller import Controller
+from support.servers import free_port
 
 
 def make_result(*, half_v: float = 0.0, f1x: float = 24.75, one_x_v: float = 20.0, overall: float = 1.0,
@@ -102,3 +107,50 @@ def assert_audit_trail_immutable(db) -> None:
         with pytest.raises(DatabaseError, match="audit trail"):
             with db.unit_of_work() as s:
                 s.execute(text(sql))
+
+
+class RecordingHandler:
+    """Keeps every message; ``hold`` makes RCPT wait (a server that stalls mid-exchange)."""
+
+    def __init__(self):
+        self.messages: list[dict] = []
+        self.hold = threading.Event()
+        self.rcpt_seen = threading.Event()
+        self.lock = threading.Lock()
+
+    async def handle_RCPT(self, server, session, envelope, address, rcpt_options):
+        self.rcpt_seen.set()
+        while self.hold.is_set():
+            await asyncio.sleep(0.02)
+        envelope.rcpt_tos.append(address)
+        return "250 OK"
+
+    async def handle_DATA(self, server, session, envelope):
+        from email import message_from_bytes, policy
+
+        msg = message_from_bytes(envelope.content, policy=policy.default)
+        with self.lock:
+            self.messages.append({"to": list(envelope.rcpt_tos), "msg": msg})
+        return "250 Message accepted for delivery"
+
+
+class SmtpServer:
+    def __init__(self, **options):
+        self.port = free_port()
+        self.handler = RecordingHandler()
+        self.controller = None
+        self.options = options  # passed to aiosmtpd (TLS contexts, authenticator)
+
+    def start(self):
+        self.controller = Controller(self.handler, hostname="127.0.0.1", port=self.port, ready_timeout=10,
+                                     **self.options)
+        self.controller.start()
+
+    def stop(self):
+        if self.controller is not None:
+            self.controller.stop()
+            self.controller = None
+
+    @property
+    def messages(self):
+        return self.handler.messages
