@@ -1,11 +1,11 @@
 """Backfill the demo's history: simulate -> ingest service -> analysis -> stored result + alarm rules.
 
 Each reading goes the way a real one goes: :func:`server.services.ingest.ingest_record` stores it with
-its analysis job, the job is claimed like a worker claims it, the analysis is the worker's own
-(:func:`server.worker.analyse`) and the result is stored with the alarm rules evaluated in the same
-transaction. Two things differ, both for speed and realism of the replay: the simulation and the
-analysis run in a small process pool (``jobs``), and the alarm rules are evaluated with the record's
-own time as their clock, so alarm histories and emails carry the backfilled dates.
+its analysis job, the job is claimed and loaded like the worker does, the analysis is the worker's own
+(:func:`server.worker.analyse`) and :func:`server.worker.store` stores the result and runs the alarm
+rules in the same transaction. Only the simulation and the analysis run ahead in a small process pool
+(``jobs``), which is what makes 90 days take minutes. When ``store`` takes a ``now`` clock, the alarm
+rules run at the record's own time, so alarm histories and emails carry the backfilled dates.
 
 Records carry a ``client_ref`` made from the point and the time, so an interrupted backfill resumes
 where it stopped and a second run stores nothing twice.
@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import collections
 import datetime as dt
+import functools
 import logging
 import os
 import signal
@@ -101,36 +102,40 @@ def existing_refs(db, point_ids) -> set[str]:
                                                              Record.client_ref.like("demo:%"))))
 
 
+@functools.cache
+def _store_accepts_clock() -> bool:
+    import inspect
+
+    from server.worker import store
+
+    return "now" in inspect.signature(store).parameters
+
+
 def store_one(db, settings, task: Task, x, analysis, error) -> bool:
-    """Ingest one reading and store its analysis with the alarm rules run at the reading's own time.
+    """Ingest one reading, then claim, load and store it the way ``server.worker.run_once`` does.
 
-    One transaction: the record, its waveform, its job (marked done by ``demo-backfill``), the result
-    and the alarm states, events and outbox rows. Returns False when the reading was already stored.
+    The analysis was made in the pool on the same float32 samples the worker would load. Returns
+    False when the reading was already stored.
     """
-    from server.alarms import evaluate_result
     from server.services.ingest import Limits, ingest_record
-    from server.storage.tables import Job, Record, utcnow
-    from server.worker import result_row
+    from server.worker import claim, fail, load, store
 
-    with db.unit_of_work() as s:
-        out = ingest_record(db, point_id=task.point_id, samples=x, fs_hz=task.fs_hz, units="g",
-                            measured_at=task.when, speed_hz=task.speed_hz,
-                            speed_source="drive" if task.online else "strobe",
-                            origin="api" if task.online else "route", uploader="demo simulator",
-                            client_ref=task.client_ref, limits=Limits.from_settings(settings), session=s)
-        if not out.created:
-            return False
-        job = s.get(Job, out.job_id)
-        job.attempts, job.worker_id, job.finished_at = 1, "demo-backfill", utcnow()
-        if error is not None:  # the worker marks a bad signal failed at once, without retries
-            job.state, job.error = "failed", error
-            return True
-        job.state = "done"
-        record = s.get(Record, out.record_id)
-        row = result_row(record, analysis)
-        s.add(row)
-        s.flush()
-        evaluate_result(s, record, row, settings=settings, now=task.when)
+    out = ingest_record(db, point_id=task.point_id, samples=x, fs_hz=task.fs_hz, units="g",
+                        measured_at=task.when, speed_hz=task.speed_hz,
+                        speed_source="drive" if task.online else "strobe",
+                        origin="api" if task.online else "route", uploader="demo simulator",
+                        client_ref=task.client_ref, limits=Limits.from_settings(settings))
+    if not out.created:
+        return False
+    c = claim(db, "demo-backfill", lease_s=settings.lease_s, max_attempts=settings.max_attempts)
+    if c is None or c.record_id != out.record_id:
+        raise RuntimeError(f"backfill expected the job of record {out.record_id}, claimed {c}")
+    if error is not None:  # the worker marks a bad signal failed at once, without retries
+        fail(db, c, error, permanent=True, settings=settings)
+        return True
+    record, _asset, samples = load(db, c.record_id)
+    clock = {"now": task.when} if _store_accepts_clock() else {}  # alarm times follow the record
+    store(db, c, record, analysis, settings, samples=samples, **clock)
     return True
 
 

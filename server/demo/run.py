@@ -204,7 +204,9 @@ def serve(settings, state: DemoState, db, point_ids: dict[str, int], mail_dir: P
     mail.start()
     threading.Thread(target=announce, name="halfwatch-demo-announce", daemon=True).start()
     try:
-        server.run()  # handles Ctrl-C (SIGINT) and SIGTERM: finishes requests, then returns
+        server.run()  # handles Ctrl-C (SIGINT) and SIGTERM: finishes requests, then shuts down
+    except KeyboardInterrupt:  # uvicorn re-raises the captured Ctrl-C after its clean shutdown
+        pass
     finally:
         stop.set()
         for t in (sensors, mail):
