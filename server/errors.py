@@ -145,7 +145,14 @@ def install_error_handlers(app: FastAPI) -> None:
             field = {"sample_rate_hz": "fs_hz"}.get(field, field)  # the API's name for it
             return _respond(request, 422, error_body(422, "bad_signal", str(exc), field))
 
-    from sqlalchemy.exc import OperationalError
+    from sqlalchemy.exc import DataError, OperationalError
+
+    @app.exception_handler(DataError)
+    async def _data_error(request: Request, exc: DataError):
+        # e.g. an id beyond the database's integer range (PostgreSQL refuses it; SQLite just finds nothing)
+        log.info("value refused by the database on %s %s: %s", request.method, request.url.path, exc.orig)
+        return _respond(request, 400, error_body(400, "bad_request",
+                        "a value in the request is out of range (ids are whole numbers below 2147483648)"))
 
     @app.exception_handler(OperationalError)
     async def _db_error(request: Request, exc: OperationalError):

@@ -18,8 +18,9 @@ import threading
 import time
 import uuid
 from dataclasses import dataclass
+from types import SimpleNamespace
 
-from sqlalchemy import and_, bindparam, or_, select, update
+from sqlalchemy import and_, bindparam, insert, or_, select, update
 
 from server.storage import blobs
 from server.storage.packing import max_hold, pack_arrays
@@ -111,15 +112,17 @@ def analyse(record: Record, asset: Asset, samples):
                           foundation=asset.foundation, **forcing_args(record, asset))
 
 
-def result_row(record: Record, analysis) -> Result:
+def result_values(record, analysis) -> tuple[dict, dict]:
+    """(column values of the ``results`` row, the analysis as a dict)."""
     data = analysis.to_dict()
     f, a = max_hold(analysis.spectrum.freqs_hz, analysis.spectrum.amplitude, SPECTRUM_POINTS)
     et, ev = max_hold(analysis.envelope_t_s, analysis.envelope, ENVELOPE_POINTS)
     sub, growth = data.get("subharmonic", {}), data.get("growth", {})
     overall, forcing = data.get("overall", {}), data.get("forcing", {})
-    return Result(
+    values = dict(
         record_id=record.id, point_id=record.point_id, measured_ts=record.measured_at.timestamp(),
-        analysis_version=str(data.get("version", "")), current=True, data=json.dumps(data),
+        analysis_version=str(data.get("version", "")), current=True, created_at=utcnow(),
+        data=json.dumps(data),
         spectrum=pack_arrays({"units": record.units, "amplitude": "peak"}, freqs_hz=f, amplitude=a,
                              envelope_t_s=et, envelope=ev),
         forcing_hz=forcing.get("frequency_hz"), sub_detected=bool(sub.get("detected")),
@@ -130,14 +133,21 @@ def result_row(record: Record, analysis) -> Result:
         overall_velocity_rms_mm_s=overall.get("velocity_rms_mm_s"),
         zone=overall.get("zone"), quality_ok=bool((data.get("quality") or {}).get("ok", True)),
     )
+    return values, data
 
 
 _FENCE = update(Job.__table__).where(_J.id == bindparam("jid"), _J.worker_id == bindparam("wid"),
                                      _J.attempts == bindparam("attempt"), _J.state == "running")
+_DONE = _FENCE.values(state="done", finished_at=bindparam("t"), lease_until=None, error=None)
 
 
-def _fence(s, c: Claim, **values) -> None:
-    done = s.execute(_FENCE.values(**values), {"jid": c.job_id, "wid": c.worker_id, "attempt": c.attempt})
+def _fence(conn, c: Claim, statement=None, **values) -> None:
+    params = {"jid": c.job_id, "wid": c.worker_id, "attempt": c.attempt}
+    if statement is None:
+        statement = _FENCE.values(**values)
+    else:
+        params["t"] = utcnow()
+    done = conn.execute(statement, params)
     if done.rowcount != 1:
         raise LeaseLost(f"job {c.job_id} attempt {c.attempt} is no longer leased to {c.worker_id}")
 
@@ -148,25 +158,28 @@ _COMPACT = (update(Waveform.__table__)
             .values(codec=bindparam("codec"), data=bindparam("data")))
 _SUPERSEDE = (update(Result.__table__).where(Result.__table__.c.record_id == bindparam("rid"),
                                              Result.__table__.c.current.is_(True)).values(current=False))
+_INSERT_RESULT = insert(Result.__table__).returning(Result.__table__.c.id)
 
 
-def store(db, c: Claim, record: Record, analysis, settings=None, samples=None) -> int:
+def store(db, c: Claim, record, analysis, settings=None, samples=None) -> int:
     """Store the result, mark the job done and run the alarm rules, all in one transaction.
 
-    With ``samples``, a waveform still stored raw is compacted in the same transaction."""
+    With ``samples``, a waveform still stored raw is compacted in the same transaction. The alarm rules get
+    ``record`` and a ``result`` object with the ``results`` columns as attributes (``data`` as a dict)."""
     from server.alarms import evaluate_result
 
     packed = blobs.encode_waveform(samples) if samples is not None else None
+    values, data = result_values(record, analysis)
     with db.unit_of_work() as s:
-        _fence(s, c, state="done", finished_at=utcnow(), lease_until=None, error=None)
+        conn = s.connection()
+        _fence(conn, c, _DONE)
         if packed is not None:
-            s.execute(_COMPACT, {"rid": record.id, "codec": packed[0], "data": packed[1]})
-        s.execute(_SUPERSEDE, {"rid": record.id})
-        row = result_row(record, analysis)
-        s.add(row)
-        s.flush()
-        evaluate_result(s, s.get(Record, record.id), row, settings=settings)
-        return row.id
+            conn.execute(_COMPACT, {"rid": record.id, "codec": packed[0], "data": packed[1]})
+        conn.execute(_SUPERSEDE, {"rid": record.id})
+        result_id = conn.execute(_INSERT_RESULT, values).scalar_one()
+        evaluate_result(s, record, SimpleNamespace(**{**values, "id": result_id, "data": data}),
+                        settings=settings)
+        return result_id
 
 
 def fail(db, c: Claim, error: str, *, permanent: bool, settings) -> None:
@@ -179,8 +192,8 @@ def fail(db, c: Claim, error: str, *, permanent: bool, settings) -> None:
         wait = dt.timedelta(seconds=settings.retry_backoff_s * c.attempt)
         values.update(state="queued", not_before=now + wait)
     try:
-        with db.unit_of_work() as s:
-            _fence(s, c, **values)
+        with db.write() as conn:
+            _fence(conn, c, **values)
     except LeaseLost:
         log.warning("job %s: lease lost before the failure could be recorded", c.job_id)
 

@@ -1,4 +1,7 @@
-"""Chart arrays in one compressed blob: a JSON header line, then float32 arrays back to back."""
+"""Chart arrays in one blob: a JSON header line, then float32 arrays back to back.
+
+Not compressed: decimated spectra hardly compress and compressing them cost more than the rest of storing
+a result. ``unpack_arrays`` also reads the zlib-compressed form of earlier versions."""
 
 from __future__ import annotations
 
@@ -15,11 +18,11 @@ def pack_arrays(meta: dict, **arrays: np.ndarray) -> bytes:
         names.append([name, int(a.size)])
         parts.append(a.tobytes())
     header = json.dumps({"meta": meta, "arrays": names}).encode()
-    return zlib.compress(header + b"\n" + b"".join(parts), 1)
+    return header + b"\n" + b"".join(parts)
 
 
 def unpack_arrays(blob: bytes) -> tuple[dict, dict[str, np.ndarray]]:
-    raw = zlib.decompress(blob)
+    raw = blob if blob[:1] == b"{" else zlib.decompress(blob)
     head, _, body = raw.partition(b"\n")
     header = json.loads(head)
     out, offset = {}, 0

@@ -199,3 +199,11 @@ def test_locked_database_is_a_503_with_retry_after_and_nothing_lost(tmp_path, mi
         retry = post_raw(c, plant.point_id, x, {"X-API-Key": key}, client_ref="r1")
         assert retry.status_code == 201  # the retry stores it once
     blocker.close()
+
+
+@pytest.mark.parametrize("path", ["/api/v1/records/99999999999", "/api/v1/jobs/99999999999",
+                                  "/api/v1/points/99999999999/trend", "/api/v1/records/-1/spectrum"])
+def test_absurd_ids_are_a_4xx_never_a_500(client, plant_key_headers, path):
+    r = client.get(path, headers=plant_key_headers)
+    assert 400 <= r.status_code < 500, r.text
+    assert r.json()["ok"] is False
