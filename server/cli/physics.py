@@ -43,6 +43,12 @@ def register(subparsers) -> None:
     p.add_argument("history", metavar="HISTORY.csv")
     p.add_argument("--speed-hz", type=float, help="today's 1X frequency (default: the latest record)")
     p.add_argument("--amp-1x", type=float, help="today's 1X amplitude (default: the latest record)")
+    p.add_argument(
+        "--present-above",
+        type=float,
+        metavar="VALUE",
+        help="without a present column: a record counts as present when amp_sub > VALUE",
+    )
     p.add_argument("--json", action="store_true", help="print the facts as JSON")
     p.set_defaults(func=cmd_window)
 
@@ -245,10 +251,16 @@ def cmd_window(args: argparse.Namespace) -> int:
     from analysis.window import fit_operating_window
 
     h = read_history(args.history)
+    if "present" not in h and args.present_above is not None and h.get("amp_sub") is not None:
+        import numpy as np
+
+        sub = h["amp_sub"]
+        h["present"] = np.where(np.isfinite(sub), (sub > args.present_above).astype(float), np.nan)
     for need in ("speed_hz", "amp_1x", "present"):
         if need not in h:
             raise UsageError(
-                f"{args.history}: the window fit needs column {need!r} (columns: {','.join(HISTORY_COLUMNS)})"
+                f"{args.history}: the window fit needs column {need!r} (columns: {','.join(HISTORY_COLUMNS)}"
+                + ("; or give --present-above with an amp_sub column)" if need == "present" else ")")
             )
     growth = h.get("growth_rate_per_s")
     last = int(np.argmax(h["time_days"]))

@@ -107,6 +107,13 @@ def test_cli_window(tmp_path, capsys):
     (tmp_path / "nolabels.csv").write_text("time,speed_hz,amp_1x\n0,25,0.2\n")
     assert cli_main(["window", str(tmp_path / "nolabels.csv")]) == 2
     assert "present" in capsys.readouterr().err
+    # labels derived from the subharmonic amplitude instead of a present column
+    unlabelled = tmp_path / "amp_only.csv"
+    unlabelled.write_text("\n".join(",".join(r.split(",")[:4]) for r in rows) + "\n")
+    assert cli_main(["window", str(unlabelled), "--json", "--present-above", "0.004"]) == 0
+    d2 = json.loads(capsys.readouterr().out)
+    assert d2["n_present"] == d["n_present"] and d2["n_growth"] == 0  # no growth column in this file
+    assert d2["f0_hz"] == pytest.approx(d["f0_hz"], rel=0.01)
 
 
 def test_simulated_history_csv_feeds_window_and_trend(tmp_path, capsys):
