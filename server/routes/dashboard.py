@@ -10,6 +10,7 @@ from __future__ import annotations
 import datetime as dt
 
 from fastapi import APIRouter, Depends, Query, Request
+from fastapi.responses import JSONResponse
 from pydantic import AwareDatetime
 from sqlalchemy import select
 
@@ -170,8 +171,9 @@ def point_series(request: Request, point_id: int,
         check_point(s, principal, point_id)
         data = series.point_series(s, point_id, start, end, max_points)
     fit = series.trend_forecast(data, limit)
-    return {"ok": True, "point_id": point_id, "start": queries.iso(start), "end": queries.iso(end),
-            "max_points": max_points, **data, "trend": fit}
+    # a plain JSONResponse: thousands of floats need no jsonable_encoder walk
+    return JSONResponse({"ok": True, "point_id": point_id, "start": queries.iso(start),
+                         "end": queries.iso(end), "max_points": max_points, **data, "trend": fit})
 
 
 @router.get("/records/{record_id}", summary="One record with its point, asset, site time zone and result")
@@ -216,5 +218,5 @@ def operating_window(request: Request, point_id: int,
                                              Result.measured_ts <= end.timestamp())
                          .order_by(Result.measured_ts.desc()).limit(max_readings)).all()
     rows.reverse()
-    return {"ok": True, "point": {"id": point.id, "name": point.name, "units": point.units},
-            "asset": _asset_dict(asset, area, site, settings), **window_answer(rows)}
+    return JSONResponse({"ok": True, "point": {"id": point.id, "name": point.name, "units": point.units},
+                         "asset": _asset_dict(asset, area, site, settings), **window_answer(rows)})

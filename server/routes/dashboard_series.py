@@ -10,9 +10,10 @@
 from __future__ import annotations
 
 import datetime as dt
+import functools
 import math
 
-from sqlalchemy import Float, Integer, cast, func, literal_column, select
+from sqlalchemy import Float, Integer, Text, cast, func, literal, select
 
 from server.storage.queries import iso
 from server.storage.tables import Point, Result
@@ -31,9 +32,9 @@ SERIES = {
 def json_number(dialect: str, *path: str):
     """A number inside the result JSON (``data``), read in SQL."""
     if dialect == "postgresql":
-        from sqlalchemy.dialects.postgresql import JSONB
+        from sqlalchemy.dialects.postgresql import JSONB, array
 
-        arr = literal_column("'{" + ",".join(path) + "}'")
+        arr = array([literal(p, Text) for p in path], type_=Text)  # bound parameters, never SQL text
         return cast(cast(Result.data, JSONB).op("#>>")(arr), Float)
     return func.json_extract(Result.data, "$." + ".".join(f'"{p}"' for p in path))
 
@@ -145,16 +146,14 @@ def _fit_input(data: dict, max_points: int) -> tuple[list[float], list[float], l
     return out
 
 
-def trend_forecast(data: dict, limit: float | None, *, max_points: int = 120) -> dict:
+def trend_forecast(data: dict, limit: float | None, *, max_points: int = 60) -> dict:
     """Trend fit of the half-order velocity of a series (from :func:`point_series`) and its forecast to
-    ``limit`` (mm/s). Long series are thinned to ``max_points`` so the fit stays quick."""
-    try:
-        from analysis.trend import fit_trend
-    except ImportError:  # the trend module is part of the analysis package; guard for partial installs
-        return {"status": "unavailable", "message": "the trend fit is not installed"}
+    ``limit`` (mm/s). Long series are thinned to ``max_points`` so the fit stays quick; the same input
+    gives the cached answer."""
     days, amps, speeds = _fit_input(data, max_points)
-    fit = fit_trend(days, amps, limit=limit, speed_hz=speeds if any(map(math.isfinite, speeds)) else None)
-    d = fit.to_dict()
+    d = _fit(tuple(days), tuple(amps), tuple(speeds), limit)
+    if d is None:
+        return {"status": "unavailable", "message": "the trend fit is not installed"}
     out = {k: d.get(k) for k in ("status", "message", "model", "n_used", "n_total", "growth_db_per_day",
                                  "growth_db_per_day_lo", "growth_db_per_day_hi", "doubling_days",
                                  "days_to_limit", "days_to_limit_lo", "days_to_limit_hi", "limit",
@@ -166,6 +165,16 @@ def trend_forecast(data: dict, limit: float | None, *, max_points: int = 120) ->
                        "hi": band["hi"]}
         out["forecast"] = _forecast_line(d, band)
     return out
+
+
+@functools.lru_cache(maxsize=256)
+def _fit(days: tuple, amps: tuple, speeds: tuple, limit: float | None) -> dict | None:
+    try:
+        from analysis.trend import fit_trend
+    except ImportError:  # the trend module is part of the analysis package; guard for partial installs
+        return None
+    fit = fit_trend(days, amps, limit=limit, speed_hz=speeds if any(map(math.isfinite, speeds)) else None)
+    return fit.to_dict()
 
 
 def _forecast_line(d: dict, band: dict) -> dict | None:

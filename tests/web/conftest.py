@@ -63,7 +63,7 @@ def seed(db, settings, *, days: int = 12, now: dt.datetime | None = None) -> See
         for day in range(days):
             t = now - dt.timedelta(days=days - day, hours=-2)
             if name == "P1-DE-H":
-                half = 0.01 * 1.4 ** day  # m/s2; grows 40 % a day (invented for the test)
+                half = 0.012 * 1.3 ** day  # m/s2; grows 30 % a day (invented for the test)
                 x = tone_record(rng, fs_hz=FS_HZ, n=2 * N, forcing_hz=PUMP_HZ, amp_1x=0.3, amp_half=half,
                                 growth_per_s=0.03)
                 speed = PUMP_HZ
