@@ -35,10 +35,11 @@ def mosquitto_bin() -> str | None:
 class Broker:
     """mosquitto with a temp config; ``persistent`` keeps sessions and queued QoS 1 messages on disk."""
 
-    def __init__(self, binary: str, workdir, *, persistent: bool):
+    def __init__(self, binary: str, workdir, *, persistent: bool, listener: list[str] | None = None):
         self.binary, self.dir, self.port = binary, workdir, free_port()
         self.dir.mkdir(parents=True, exist_ok=True)
-        lines = [f"listener {self.port} 127.0.0.1", "allow_anonymous true", "log_dest stderr",
+        listener = listener or ["allow_anonymous true"]  # or TLS and password lines (test_mqtt_tls.py)
+        lines = [f"listener {self.port} 127.0.0.1", *listener, "log_dest stderr",
                  "log_type error", "log_type warning", "log_type notice", "max_queued_messages 10000",
                  "max_inflight_messages 4"]  # so a stalled bridge leaves messages queued at the broker
         if os.geteuid() == 0:  # started as root, mosquitto would drop to its own user and then could
@@ -84,13 +85,18 @@ class Broker:
                 self.proc.wait(10)
 
 
-def _broker(tmp_path, name: str, persistent: bool):
-    binary = mosquitto_bin()
-    if binary is None:
+def require(tool: str | None, what: str) -> str:
+    """The tool's path; skip locally when it is missing, fail under CI=true."""
+    if tool is None:
         if os.environ.get("CI") == "true":
-            pytest.fail("mosquitto is not installed; CI must provide it (apt-get install mosquitto)")
-        pytest.skip("mosquitto not found (install it, or set HALFWATCH_TEST_MOSQUITTO_BIN)")
-    broker = Broker(binary, tmp_path / name, persistent=persistent)
+            pytest.fail(f"{what} is not installed; CI must provide it (apt-get install mosquitto openssl)")
+        pytest.skip(f"{what} not found (install it, or set HALFWATCH_TEST_MOSQUITTO_BIN)")
+    return tool
+
+
+def _broker(tmp_path, name: str, persistent: bool, listener: list[str] | None = None):
+    binary = require(mosquitto_bin(), "mosquitto")
+    broker = Broker(binary, tmp_path / name, persistent=persistent, listener=listener)
     broker.start()
     return broker
 
