@@ -169,7 +169,7 @@ def test_unsupported_content_type_and_missing_query(client, plant, plant_key_hea
 
 def test_unknown_path_and_healthz(client):
     assert_error_shape(client.get("/api/v1/nothing-here"), 404)
-    assert client.get("/healthz").json() == {"ok": True, "database": "sqlite"}
+    assert client.get("/healthz").json() == {"ok": True, "database": client.app.state.db.dialect}
 
 
 def test_locked_database_is_a_503_with_retry_after_and_nothing_lost(tmp_path, migrated_template, rng):
