@@ -22,3 +22,16 @@ def rng() -> np.random.Generator:
     return np.random.default_rng(20261201)
 
 pytest_plugins = ["support.fixtures"]
+
+# Areas whose database tests also run on PostgreSQL when HALFWATCH_TEST_POSTGRES_URL is set.
+BOTH_BACKENDS = ("server", "alarms", "ops")
+
+
+def pytest_generate_tests(metafunc):
+    """Run every test that uses a database (via ``db_backend``) on SQLite and on PostgreSQL."""
+    if "db_backend" not in metafunc.fixturenames or not os.environ.get("HALFWATCH_TEST_POSTGRES_URL"):
+        return
+    parts = metafunc.definition.path.parts
+    area = parts[parts.index("tests") + 1] if "tests" in parts else ""
+    if area in BOTH_BACKENDS:
+        metafunc.parametrize("db_backend", ["sqlite", "postgresql"], indirect=True)

@@ -8,12 +8,17 @@
 - ``api_key``: a technician key limited to the plant's site (``plant_key_headers`` for requests).
 - ``live_server``: the same app served by a real uvicorn on 127.0.0.1; yields the base URL.
 - ``pg_settings``: Settings on a fresh PostgreSQL schema if HALFWATCH_TEST_POSTGRES_URL is set, else skip.
+- ``db_backend``: "sqlite" (default) or "postgresql". tests/conftest.py parametrises it over both for the
+  server, alarms and ops areas when HALFWATCH_TEST_POSTGRES_URL is set; on "postgresql" every
+  ``settings_for(tmp_path)`` of that test (so ``hw_settings`` and the area fixtures) points at one
+  fresh schema.
 """
 
 from __future__ import annotations
 
 import os
 import uuid
+from contextlib import contextmanager
 
 import pytest
 
@@ -22,6 +27,9 @@ from support.servers import serve_in_thread
 
 PASSWORD = "correct horse 42"
 ROLES = ("viewer", "technician", "engineer", "admin")
+PG_ENV = "HALFWATCH_TEST_POSTGRES_URL"
+
+_BACKEND_URLS: dict[str, str] = {}  # str(tmp_path) -> database URL of that test (db_backend fixture)
 
 
 def settings_for(tmp_path, **overrides):
@@ -29,12 +37,49 @@ def settings_for(tmp_path, **overrides):
 
     base = dict(data_dir=tmp_path / "data", secret_key="test-secret", argon2_time_cost=1,
                 argon2_memory_cost_kib=1024, argon2_parallelism=1, worker_poll_s=0.05, lease_s=30.0)
+    if str(tmp_path) in _BACKEND_URLS:
+        base["database_url"] = _BACKEND_URLS[str(tmp_path)]
     base.update(overrides)
     return Settings(**base)
 
 
+@contextmanager
+def pg_schema():
+    """A fresh schema on the test PostgreSQL; yields a database URL whose search_path is that schema."""
+    url = os.environ.get(PG_ENV)
+    if not url:
+        pytest.skip(f"{PG_ENV} is not set")
+    from sqlalchemy import create_engine, text
+
+    schema = f"t_{uuid.uuid4().hex[:12]}"
+    admin = create_engine(url)
+    with admin.begin() as conn:
+        conn.execute(text(f'CREATE SCHEMA "{schema}"'))
+    sep = "&" if "?" in url else "?"
+    try:
+        yield f"{url}{sep}options=-csearch_path%3D{schema}"
+    finally:
+        with admin.begin() as conn:
+            conn.execute(text(f'DROP SCHEMA "{schema}" CASCADE'))
+        admin.dispose()
+
+
 @pytest.fixture
-def hw_settings(tmp_path):
+def db_backend(request, tmp_path):
+    backend = getattr(request, "param", "sqlite")
+    if backend != "postgresql":
+        yield backend
+        return
+    with pg_schema() as url:
+        _BACKEND_URLS[str(tmp_path)] = url
+        try:
+            yield backend
+        finally:
+            _BACKEND_URLS.pop(str(tmp_path), None)
+
+
+@pytest.fixture
+def hw_settings(tmp_path, db_backend):
     return settings_for(tmp_path)
 
 
@@ -149,19 +194,5 @@ def live_server(app):
 @pytest.fixture
 def pg_settings(tmp_path):
     """Settings on a fresh schema of the test PostgreSQL (dropped afterwards)."""
-    url = os.environ.get("HALFWATCH_TEST_POSTGRES_URL")
-    if not url:
-        pytest.skip("HALFWATCH_TEST_POSTGRES_URL is not set")
-    from sqlalchemy import create_engine, text
-
-    schema = f"t_{uuid.uuid4().hex[:12]}"
-    admin = create_engine(url)
-    with admin.begin() as conn:
-        conn.execute(text(f'CREATE SCHEMA "{schema}"'))
-    sep = "&" if "?" in url else "?"
-    try:
-        yield settings_for(tmp_path, database_url=f"{url}{sep}options=-csearch_path%3D{schema}")
-    finally:
-        with admin.begin() as conn:
-            conn.execute(text(f'DROP SCHEMA "{schema}" CASCADE'))
-        admin.dispose()
+    with pg_schema() as url:
+        yield settings_for(tmp_path, database_url=url)
