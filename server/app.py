@@ -108,6 +108,11 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     for router in discover():
         app.include_router(router)
     app.add_middleware(BodyLimit, settings=settings)
+    from server.hardening import IngestAdmission, LoginThrottle, SecurityHeaders
+
+    app.state.login_throttle = LoginThrottle(settings.login_max_failures, settings.login_window_s)
+    app.add_middleware(IngestAdmission, settings=settings)  # before the body is read: cheap refusal
+    app.add_middleware(SecurityHeaders, settings=settings)
     from server.metrics import install_metrics
 
     install_metrics(app, db, settings)  # outermost: times every request, /metrics renders it

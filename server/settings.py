@@ -43,6 +43,12 @@ class Settings(BaseSettings):
     max_upload_bytes: int = Field(default=256 * 1024 * 1024, gt=0, description="route ZIP, unpacked")
     max_upload_ratio: float = Field(default=200.0, gt=1, description="route ZIP: largest compression ratio")
     max_manifest_rows: int = Field(default=5000, gt=0)
+    max_inflight_ingests: int = Field(default=32, ge=1, description="ingest requests at once; more get 503")
+    ingest_retry_after_s: int = Field(default=2, ge=1, description="Retry-After of an overload 503")
+
+    # login throttling (per user name and per client address)
+    login_max_failures: int = Field(default=5, ge=1, description="failed logins allowed per window")
+    login_window_s: float = Field(default=900.0, gt=0)
 
     # worker
     worker_poll_s: float = Field(default=0.5, gt=0)

@@ -8,6 +8,7 @@ from fastapi.responses import JSONResponse
 from pydantic import ValidationError
 from starlette.concurrency import run_in_threadpool
 
+from server.errors import Unauthorized
 from server.schemas import LoginBody
 from server.security import CSRF_COOKIE, SESSION_COOKIE, Principal, optional_principal, require_role
 from server.services import users
@@ -34,8 +35,16 @@ async def login(request: Request):
     except ValidationError as exc:
         raise RequestValidationError([{**e, "loc": ("body", *e["loc"])} for e in exc.errors()]) from None
     app = request.app
-    token, csrf, user = await run_in_threadpool(users.login, app.state.db, app.state.passwords,
-                                                app.state.settings, body.username, body.password)
+    throttle = app.state.login_throttle
+    keys = (f"user:{body.username.strip().lower()}", f"addr:{request.client.host if request.client else '-'}")
+    throttle.check(*keys)  # 429 + Retry-After once the failures are used up; the password is not checked
+    try:
+        token, csrf, user = await run_in_threadpool(users.login, app.state.db, app.state.passwords,
+                                                    app.state.settings, body.username, body.password)
+    except Unauthorized:
+        throttle.failed(*keys)
+        raise
+    throttle.succeeded(keys[0])
     settings = app.state.settings
     resp = JSONResponse({"ok": True, "user": user, "csrf_token": csrf})
     max_age = int(settings.session_ttl_h * 3600)
