@@ -93,12 +93,14 @@ class Procs:
                 self.kill(p)
 
 
-def wait_for(predicate, *, timeout_s: float = 60.0, every_s: float = 0.05, what: str = "condition"):
+def wait_for(predicate, *, timeout_s: float = 60.0, every_s: float = 0.05, what: str = "condition",
+             detail=None):
     t0 = time.monotonic()
     while True:
         value = predicate()
         if value:
             return value
         if time.monotonic() - t0 > timeout_s:
-            raise AssertionError(f"timed out after {timeout_s:.0f} s waiting for {what}")
+            extra = f"\n{detail()}" if detail is not None else ""
+            raise AssertionError(f"timed out after {timeout_s:.0f} s waiting for {what}{extra}")
         time.sleep(every_s)
