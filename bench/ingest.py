@@ -122,7 +122,7 @@ def main() -> int:
     ap.add_argument("--count", type=int, default=400, help="requests per round and phase")
     ap.add_argument("--conns", type=int, default=8)
     ap.add_argument("--jobs", type=int, default=100, help="worker / bare analyses per round")
-    ap.add_argument("--max-seconds", type=float, default=30.0, help="bound per phase and round")
+    ap.add_argument("--max-seconds", dest="max_s", type=float, default=30.0, help="bound per phase and round")
     args = ap.parse_args()
 
     sys.path.insert(0, str(REPO))
@@ -192,7 +192,7 @@ def main() -> int:
                 phases.reverse()
             for name, port, path_of in phases:
                 headers = {"Content-Type": "application/octet-stream", "X-API-Key": key}
-                secs, lat, st = load(port, path_of, body, headers, args.count, args.conns, args.max_seconds)
+                secs, lat, st = load(port, path_of, body, headers, args.count, args.conns, args.max_s)
                 ok = st.get(201, 0)
                 rows[name].append((ok / secs, pct(lat, 50), pct(lat, 99), st))
             counter["i"] += args.count
@@ -200,12 +200,10 @@ def main() -> int:
             order = ["bare", "worker"] if rnd % 2 == 0 else ["worker", "bare"]
             for name in order:
                 start_t, done = time.perf_counter(), 0
-                while done < args.jobs and time.perf_counter() - start_t < args.max_seconds:
-                    if name == "bare":
-                        analyze_record(x, FS, units="m/s2", nominal_hz=24.75, machine_group=2,
-                                       foundation="rigid")
-                    elif not worker.run_once(db, settings, "bench"):
-                        break
+                if name == "worker":  # the real loop: batched claims, heartbeat, store + alarm rules
+                    done = worker.run_forever(db, settings, max_jobs=args.jobs, worker_id="bench")
+                while name == "bare" and done < args.jobs and time.perf_counter() - start_t < args.max_s:
+                    analyze_record(x, FS, units="m/s2", nominal_hz=24.75, machine_group=2, foundation="rigid")
                     done += 1
                 secs = time.perf_counter() - start_t
                 rows[name].append((done / secs, float("nan"), float("nan"), {"done": done}))

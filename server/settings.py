@@ -54,6 +54,7 @@ class Settings(BaseSettings):
     worker_poll_s: float = Field(default=0.5, gt=0)
     lease_s: float = Field(default=60.0, gt=0)
     max_attempts: int = Field(default=3, ge=1)
+    worker_batch: int = Field(default=4, ge=1, le=100, description="jobs claimed per claim transaction")
     retry_backoff_s: float = Field(default=5.0, ge=0, description="wait before retry n is n times this")
 
     # alarms and alert emails (server/alarms)

@@ -17,6 +17,7 @@ import socket
 import threading
 import time
 import uuid
+from collections import deque
 from dataclasses import dataclass
 from types import SimpleNamespace
 
@@ -55,31 +56,53 @@ _EXPIRE = (update(Job.__table__)
            .values(state="failed", finished_at=bindparam("now"), lease_until=None, error=bindparam("why")))
 _RUNNABLE = or_(and_(_J.state == "queued", _J.not_before <= bindparam("now")),
                 and_(_J.state == "running", _J.lease_until < bindparam("now")))
-_PICK = select(_J.id).where(_RUNNABLE).order_by(_J.id).limit(1)
+_CLAIMS: dict[tuple[bool, int], object] = {}
 
 
-def _claim_statement(skip_locked: bool):
-    pick = _PICK.with_for_update(skip_locked=True) if skip_locked else _PICK
-    return (update(Job.__table__).where(_J.id == pick.scalar_subquery(), _RUNNABLE)
-            .values(state="running", attempts=_J.attempts + 1, worker_id=bindparam("wid"),
-                    lease_until=bindparam("lease_until"))
-            .returning(_J.id, _J.record_id, _J.attempts))
+def _claim_statement(skip_locked: bool, n: int):
+    """UPDATE the n oldest runnable jobs ... RETURNING, built once per (backend, n).
+
+    One job: ``WHERE id = (SELECT ... LIMIT 1 [FOR UPDATE SKIP LOCKED])``. Several on PostgreSQL: the locked
+    pick goes into a CTE joined with ``UPDATE ... FROM`` (an ``IN (SELECT ... SKIP LOCKED)`` form let
+    concurrent claimers come back empty-handed while jobs were still queued). Several on SQLite (one writer
+    at a time): ``WHERE id IN (SELECT ... LIMIT n)``."""
+    key = (skip_locked, n)
+    if key not in _CLAIMS:
+        pick = select(_J.id).where(_RUNNABLE).order_by(_J.id).limit(n)
+        if skip_locked:
+            pick = pick.with_for_update(skip_locked=True)
+        if n == 1:
+            target = _J.id == pick.scalar_subquery()
+        elif skip_locked:
+            picked = pick.cte("picked")
+            target = _J.id == picked.c.id
+        else:
+            target = _J.id.in_(pick.scalar_subquery())
+        _CLAIMS[key] = (update(Job.__table__).where(target, _RUNNABLE)
+                        .values(state="running", attempts=_J.attempts + 1, worker_id=bindparam("wid"),
+                                lease_until=bindparam("lease_until"))
+                        .returning(_J.id, _J.record_id, _J.attempts))
+    return _CLAIMS[key]
 
 
-_CLAIM = {False: _claim_statement(False), True: _claim_statement(True)}
-
-
-def claim(db, worker_id: str, *, lease_s: float, max_attempts: int, now: dt.datetime | None = None):
-    """Claim the oldest runnable job (queued, or running with an expired lease); None if there is none."""
+def claim_batch(db, worker_id: str, *, lease_s: float, max_attempts: int, n: int = 1,
+                now: dt.datetime | None = None) -> list[Claim]:
+    """Claim up to n of the oldest runnable jobs (queued, or running with an expired lease), oldest first."""
     now = now or utcnow()
     why = (f"lease expired on attempt {max_attempts} of {max_attempts}: the worker stopped during the "
            "analysis (crashed or killed)")
     with db.write() as conn:
         # leases that ran out on the last allowed attempt: give up on them
         conn.execute(_EXPIRE, {"now": now, "max_attempts": max_attempts, "why": why})
-        row = conn.execute(_CLAIM[db.dialect == "postgresql"], {
-            "now": now, "wid": worker_id, "lease_until": now + dt.timedelta(seconds=lease_s)}).first()
-    return None if row is None else Claim(row[0], row[1], row[2], worker_id)
+        rows = conn.execute(_claim_statement(db.dialect == "postgresql", max(1, int(n))), {
+            "now": now, "wid": worker_id, "lease_until": now + dt.timedelta(seconds=lease_s)}).all()
+    return sorted((Claim(r[0], r[1], r[2], worker_id) for r in rows), key=lambda c: c.job_id)
+
+
+def claim(db, worker_id: str, *, lease_s: float, max_attempts: int, now: dt.datetime | None = None):
+    """Claim the oldest runnable job; None if there is none."""
+    got = claim_batch(db, worker_id, lease_s=lease_s, max_attempts=max_attempts, n=1, now=now)
+    return got[0] if got else None
 
 
 def forcing_args(record: Record, asset: Asset) -> dict:
@@ -202,12 +225,18 @@ def run_once(db, settings, worker_id: str | None = None, heartbeat=None) -> bool
     """Process one job if there is one; True if a job was claimed.
 
     ``heartbeat`` (server.ops.heartbeat.Heartbeat) collects the analysis durations for /metrics."""
-    from analysis.errors import SignalError
-
     c = claim(db, worker_id or default_worker_id(), lease_s=settings.lease_s,
               max_attempts=settings.max_attempts)
     if c is None:
         return False
+    process(db, settings, c, heartbeat)
+    return True
+
+
+def process(db, settings, c: Claim, heartbeat=None) -> None:
+    """Analyse one claimed job and store the result (or record the failure)."""
+    from analysis.errors import SignalError
+
     try:
         record, asset, samples = load(db, c.record_id)
         t0 = time.perf_counter()
@@ -216,11 +245,11 @@ def run_once(db, settings, worker_id: str | None = None, heartbeat=None) -> bool
             heartbeat.observe("analysis_seconds", time.perf_counter() - t0)
     except SignalError as exc:  # the same record fails the same way every time: no retry
         fail(db, c, f"{getattr(exc, 'field', 'samples')}: {exc}", permanent=True, settings=settings)
-        return True
+        return
     except Exception as exc:
         log.exception("job %s attempt %s failed", c.job_id, c.attempt)
         fail(db, c, f"{type(exc).__name__}: {exc}", permanent=False, settings=settings)
-        return True
+        return
     try:
         store(db, c, record, analysis, settings, samples=samples)
     except LeaseLost as exc:
@@ -229,17 +258,19 @@ def run_once(db, settings, worker_id: str | None = None, heartbeat=None) -> bool
         log.exception("job %s: storing the result failed", c.job_id)
         fail(db, c, f"storing the result failed: {type(exc).__name__}: {exc}", permanent=False,
              settings=settings)
-    return True
 
 
 def run_forever(db, settings, *, stop: threading.Event | None = None, max_jobs: int | None = None,
                 worker_id: str | None = None) -> int:
-    """Work until ``stop`` is set (or ``max_jobs`` jobs are done); returns the number of jobs handled."""
+    """Work until ``stop`` is set (or ``max_jobs`` jobs are done); returns the number of jobs handled.
+
+    Jobs are claimed ``settings.worker_batch`` at a time (one claim transaction for several records)."""
     from sqlalchemy.exc import OperationalError
 
     stop = stop or threading.Event()
     worker_id = worker_id or default_worker_id()
     handled = 0
+    pending: deque[Claim] = deque()
     log.info("worker %s started", worker_id)
     from server.ops.heartbeat import Heartbeat  # /readyz and /metrics read it
 
@@ -249,7 +280,13 @@ def run_forever(db, settings, *, stop: threading.Event | None = None, max_jobs: 
         while not stop.is_set() and (max_jobs is None or handled < max_jobs):
             beat.beat("running")
             try:
-                if run_once(db, settings, worker_id, heartbeat=beat):
+                if not pending:
+                    want = settings.worker_batch if max_jobs is None else min(settings.worker_batch,
+                                                                              max_jobs - handled)
+                    pending.extend(claim_batch(db, worker_id, lease_s=settings.lease_s,
+                                               max_attempts=settings.max_attempts, n=want))
+                if pending:
+                    process(db, settings, pending.popleft(), beat)
                     handled += 1
                     continue
             except OperationalError as exc:  # database busy or unreachable: wait, then try again

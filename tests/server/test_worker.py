@@ -146,3 +146,42 @@ def test_concurrent_claims_take_each_job_exactly_once(env, rng):
     for t in threads:
         t.join()
     assert sorted(claimed) == sorted(ids)  # every job once, none twice
+
+
+def test_batch_claim_and_the_worker_loop(env, rng):
+    db, settings, plant = env
+    x = tone_record(rng, n=8192)  # 3.2 s: long enough for the analysis core's resolution check
+    ids = [ingest(db, plant.point_id, x, measured_at=T0 + dt.timedelta(minutes=i)).job_id for i in range(3)]
+    got = worker.claim_batch(db, "b", lease_s=60, max_attempts=3, n=5)
+    assert [c.job_id for c in got] == ids and all(c.attempt == 1 for c in got)
+    later = dt.datetime.now(dt.UTC) + dt.timedelta(seconds=61)
+    for c in worker.claim_batch(db, "b2", lease_s=60, max_attempts=3, n=5, now=later):  # leases ran out
+        worker.process(db, settings, c)
+    with db.read() as s:
+        assert [(s.get(Job, i).state, s.get(Job, i).error) for i in ids] == [("done", None)] * 3
+    more = [ingest(db, plant.point_id, x, measured_at=T0 + dt.timedelta(hours=1, minutes=i)).job_id
+            for i in range(5)]
+    assert worker.run_forever(db, settings.model_copy(update={"worker_batch": 2}), max_jobs=5) == 5
+    with db.read() as s:
+        assert [s.get(Job, i).state for i in more] == ["done"] * 5
+
+
+def test_concurrent_batch_claims_take_each_job_exactly_once(env, rng):
+    import threading
+
+    db, settings, plant = env
+    x = tone_record(rng, n=1024)
+    ids = {ingest(db, plant.point_id, x, measured_at=T0 + dt.timedelta(minutes=i)).job_id for i in range(30)}
+    claimed, lock = [], threading.Lock()
+
+    def grab(name):
+        while got := worker.claim_batch(db, name, lease_s=60, max_attempts=3, n=4):
+            with lock:
+                claimed.extend(c.job_id for c in got)
+
+    threads = [threading.Thread(target=grab, args=(f"w{i}",)) for i in range(4)]
+    for t in threads:
+        t.start()
+    for t in threads:
+        t.join()
+    assert sorted(claimed) == sorted(ids)
