@@ -112,7 +112,7 @@ def _onset(asset: AssetSpec, point: PointSpec, t_days: float, hour: int, seed: i
     v = onset_velocity_mm_s(ratio) * _jitter(seed, 3, 0.05) * (1.0 if point.online else 0.8)
     sub = g_peak(v, 0.5 * speed)
     if point.online and hour == RESTART_HOUR:  # the morning restart: growth from the noise in the record
-        p.update(f0_hz=ONSET_MODE_HZ, zeta=0.02, ratio=ratio, onset_s=0.3, sub_amp_g=sub, floor_g=0.001)
+        p.update(f0_hz=ONSET_MODE_HZ, zeta=0.02, ratio=ratio, onset_s=0.3, sub_amp_g=sub, floor_g=sub / 6)
         return Condition("parametric", speed, p, f"restart, h/h_c {ratio:.2f}")
     p.update(sub_amp_g=sub, amp_1p5x_g=0.25 * sub, amp_2p5x_g=0.08 * sub)
     return Condition("half-order", speed, p, f"limit cycle, h/h_c {ratio:.2f}")
