@@ -98,6 +98,22 @@ def bare_sql(db, pid, t0, t1):
         con.close()
 
 
+def bare_buckets(db, pid, t0, t1, buckets=1000):
+    """A second floor: the same min/max/mean bucketing of one metric, straight from SQLite."""
+    import sqlite3
+
+    a, b = t0.timestamp(), t1.timestamp()
+    con = sqlite3.connect(db.url.split("///", 1)[1])
+    try:
+        return con.execute("SELECT CAST((measured_ts - ?) / ? AS INTEGER) AS k, min(sub_amplitude), "
+                           "max(sub_amplitude), avg(sub_amplitude), count(*), min(measured_ts), "
+                           "max(measured_ts) "
+                           "FROM results WHERE point_id=? AND current=1 AND measured_ts BETWEEN ? AND ? "
+                           "GROUP BY k ORDER BY k", (a, (b - a) * (1 + 1e-9) / buckets, pid, a, b)).fetchall()
+    finally:
+        con.close()
+
+
 def timed(fn, runs):
     out = []
     for _ in range(runs):
@@ -162,10 +178,16 @@ def main(argv=None) -> int:
             c.post("/api/v1/session", json={"username": "bench1", "password": "bench password 1"})
             q = {"start": t0.isoformat(), "end": t1.isoformat()}
             rows = {"trend endpoint (1 metric, 1000 buckets)": [],
-                    "series endpoint (6 metrics + fit, 600)": [], "bare SQL fetch of the same rows": []}
+                    "series endpoint (6 metrics + fit, 600)": [], "bare SQL fetch of the same rows": [],
+                    "bare SQL buckets of the same rows (1 metric)": [],
+                    "GET /api/v1/me (HTTP + session check only)": []}
             for i in range(args.runs):
                 pid = pids[i % len(pids)]
                 rows["bare SQL fetch of the same rows"] += timed(lambda pid=pid: bare_sql(db, pid, t0, t1), 1)
+                rows["bare SQL buckets of the same rows (1 metric)"] += timed(
+                    lambda pid=pid: bare_buckets(db, pid, t0, t1), 1)
+                rows["GET /api/v1/me (HTTP + session check only)"] += timed(
+                    lambda: c.get("/api/v1/me").raise_for_status(), 1)
                 rows["trend endpoint (1 metric, 1000 buckets)"] += timed(
                     lambda pid=pid: c.get(f"/api/v1/points/{pid}/trend",
                                           params={**q, "metric": "subharmonic.amplitude",

@@ -34,6 +34,7 @@ CHROMIUM_ARGS = [
 FS_HZ = 2560.0
 N = 16384
 PUMP_HZ = 24.75
+WINDOW_READINGS = 30
 
 
 @dataclass
@@ -58,29 +59,29 @@ def seed(db, settings, *, days: int = 12, now: dt.datetime | None = None) -> See
     now = now or dt.datetime.now(dt.UTC)
     rng = np.random.default_rng(20261201)
     out = Seeded(plant)
-    for name, pid in plant.point_ids.items():
-        ids = []
-        for day in range(days):
-            t = now - dt.timedelta(days=days - day, hours=-2)
-            if name == "P1-DE-H":
-                half = 0.012 * 1.3 ** day  # m/s2; grows 30 % a day (invented for the test)
-                x = tone_record(rng, fs_hz=FS_HZ, n=2 * N, forcing_hz=PUMP_HZ, amp_1x=0.3, amp_half=half,
-                                growth_per_s=0.03)
-                speed = PUMP_HZ
-            elif name == "C2-CYL-A":
-                x = tone_record(rng, fs_hz=FS_HZ * 2, n=N, forcing_hz=25.0, amp_1x=0.8)
-                speed = 12.5
-            else:
-                scale = 9.80665 if name.endswith("-V") else 1.0  # that point records in g
-                x = tone_record(rng, fs_hz=FS_HZ, n=N, forcing_hz=PUMP_HZ, amp_1x=0.25) / scale
-                speed = PUMP_HZ
-            fs = FS_HZ * 2 if name == "C2-CYL-A" else FS_HZ
-            units = "g" if name.endswith("-V") else "m/s2"
-            o = ingest_record(db, point_id=pid, samples=x, fs_hz=fs, units=units, measured_at=t,
-                              speed_hz=speed,
-                              speed_source="tachometer", origin="api", uploader="test:seed")
-            ids.append(o.record_id)
-        out.record_ids[name] = ids
+    def store(name, x, fs, units, t, speed):
+        o = ingest_record(db, point_id=plant.point_ids[name], samples=x, fs_hz=fs, units=units, measured_at=t,
+                          speed_hz=speed, speed_source="tachometer", origin="api", uploader="test:seed")
+        out.record_ids.setdefault(name, []).append(o.record_id)
+
+    for day in range(days):
+        t = now - dt.timedelta(days=days - day, hours=-2)
+        half = 0.008 * 1.3 ** day  # m/s2; grows 30 % a day (invented for the test)
+        store("P1-DE-H", tone_record(rng, fs_hz=FS_HZ, n=2 * N, forcing_hz=PUMP_HZ, amp_1x=0.3,
+                                     amp_half=half, growth_per_s=0.03), FS_HZ, "m/s2", t, PUMP_HZ)
+        x = tone_record(rng, fs_hz=FS_HZ, n=N, forcing_hz=PUMP_HZ, amp_1x=0.25) / 9.80665  # in g
+        store("P1-NDE-V", x, FS_HZ, "g", t, PUMP_HZ)
+    # The compressor runs at varied speeds and 1X levels; a half-order line appears inside an invented
+    # instability tongue (f0 12.5 Hz, zeta 0.03, k 0.24 per m/s2), so the operating window has both labels.
+    for i in range(WINDOW_READINGS):
+        t = now - dt.timedelta(hours=(WINDOW_READINGS - i) * 9.5)
+        speed = 11.0 + 3.0 * ((i * 7) % WINDOW_READINGS) / (WINDOW_READINGS - 1)
+        forcing = 2.0 * speed
+        a1 = 0.4 + 0.8 * ((i * 11) % 13) / 12
+        inside = a1 > 2.0 * np.sqrt(((forcing - 25.0) / 12.5) ** 2 + 4 * 0.03**2) / 0.24
+        x = tone_record(rng, fs_hz=FS_HZ * 2, n=N, forcing_hz=forcing, amp_1x=a1,
+                        amp_half=0.15 if inside else 0.0)
+        store("C2-CYL-A", x, FS_HZ * 2, "m/s2", t, speed)
     while run_once(db, settings):
         pass
     return out
@@ -169,7 +170,7 @@ def login(browser, site):
 
 @pytest.fixture(scope="session")
 def screenshot():
-    """screenshot(page, name): a full-page PNG in test-artifacts/screenshots/."""
+    """screenshot(page, name): full-page and first-screen PNGs in test-artifacts/screenshots/."""
     return _shot
 
 
@@ -177,4 +178,5 @@ def _shot(page, name: str) -> Path:
     ARTIFACTS.mkdir(parents=True, exist_ok=True)
     path = ARTIFACTS / f"{name}.png"
     page.screenshot(path=str(path), full_page=True)
+    page.screenshot(path=str(ARTIFACTS / f"{name}-top.png"))  # the first screen, for the README
     return path

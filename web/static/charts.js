@@ -23,7 +23,8 @@
       hovermode: "closest", showlegend: true,
       legend: { orientation: "h", y: -0.22, x: 0 },
     };
-    const merged = Object.assign(base, layout);
+    const merged = Object.assign({}, base, layout);
+    merged.margin = Object.assign({}, base.margin, layout.margin || {});
     for (const k of Object.keys(merged)) {
       if (/^[xy]axis\d*$/.test(k)) merged[k] = Object.assign({ gridcolor: "#e6e2d8", zeroline: false, automargin: true }, merged[k]);
     }
