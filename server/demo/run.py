@@ -31,7 +31,6 @@ SUBSCRIBERS = (  # invented addresses on a reserved example domain
      "min_level": "danger", "mode": "immediate"},
     {"email": "reliability.lead@sallowmere.example", "scope": "site", "min_level": "alert", "mode": "digest"},
 )
-HOUSEKEEPING_S = 60.0
 GAP_FILL_DAYS = 3.0  # on a later run, online points are filled in for at most this many missed days
 
 
@@ -143,24 +142,6 @@ def send_mail_now(db, settings) -> int:
     return run_mailer_once(db, settings)
 
 
-def housekeeping(db, settings, stop: threading.Event) -> None:
-    """The demo's mail loop: send the outbox, refresh the operating-window fits now and then."""
-    import time
-
-    from server.alarms import run_mailer_once
-    from server.alarms.margin import refresh_window_fits
-
-    last_fit = time.monotonic()
-    while not stop.wait(settings.mail_poll_s):
-        try:
-            run_mailer_once(db, settings)
-            if time.monotonic() - last_fit > HOUSEKEEPING_S:
-                refresh_window_fits(db)
-                last_fit = time.monotonic()
-        except Exception:  # keep the demo running; the next pass retries
-            log.exception("demo mail/housekeeping pass failed")
-
-
 def banner(settings, state: DemoState, mail_dir: Path) -> str:
     base = settings.public_base_url
     logins = "\n".join(f"    {role:<11} {DEMO_USERS[role]:<6} password {state.passwords[role]}"
@@ -189,7 +170,10 @@ def serve(settings, state: DemoState, db, point_ids: dict[str, int], mail_dir: P
     app.include_router(mail_router(mail_dir))
     server = uvicorn.Server(uvicorn.Config(app, host=settings.host, port=settings.port, log_level="warning"))
     stop = threading.Event()
-    mail = threading.Thread(target=housekeeping, args=(db, settings, stop), name="halfwatch-demo-mail",
+    from server.alarms import run_mailer_forever
+
+    # the mailer's loop: sends the outbox and refreshes the operating-window fits behind the margin rule
+    mail = threading.Thread(target=run_mailer_forever, args=(db, settings, stop), name="halfwatch-demo-mail",
                             daemon=True)
     sensors = LiveSensors(settings.public_base_url, state.api_key, point_ids, state.anchor_time,
                           interval_s=interval_s, stop=stop)

@@ -1,0 +1,93 @@
+"""README and DEVELOPERS.md kept honest: the configuration table, links, words, paths and cautions.
+
+The configuration table must be exactly what ``halfwatch config-table`` generates from the Settings
+class; every image and relative link must point at a file in the repository; the usual cautions of
+the trade (condition monitoring, not protection; site rules first; lockout and qualified people) must
+appear (common practice); and no committed document may carry an absolute machine path.
+"""
+
+from __future__ import annotations
+
+import re
+import subprocess
+import sys
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parents[2]
+README = (ROOT / "README.md").read_text()
+DEVELOPERS = (ROOT / "DEVELOPERS.md").read_text()
+
+
+def test_configuration_table_matches_the_settings_class():
+    from server.cli.docs import BEGIN, END, config_table
+
+    assert README.count(BEGIN) == 1 and README.count(END) == 1
+    inside = README.split(BEGIN, 1)[1].split(END, 1)[0].strip("\n")
+    assert inside == config_table().strip("\n"), "README is stale: run `halfwatch config-table --write README.md`"
+
+
+def test_every_setting_is_in_the_table_with_its_default():
+    from server.settings import Settings
+
+    rows = {m.group(1): m.group(2) for m in re.finditer(r"^\| `(HALFWATCH_[A-Z0-9_]+)` \| ([^|]*) \|", README,
+                                                         re.M)}
+    for name, field in Settings.model_fields.items():
+        assert f"HALFWATCH_{name.upper()}" in rows, name
+    assert rows["HALFWATCH_PORT"].strip() == "`8000`"
+    assert rows["HALFWATCH_SMTP_PASSWORD"].strip() == "(secret, empty)"
+
+
+def test_config_table_command_prints_the_table():
+    out = subprocess.run([sys.executable, "-m", "server", "config-table"], cwd=ROOT, capture_output=True,
+                         text=True, check=True).stdout
+    from server.cli.docs import config_table
+
+    assert out == config_table()
+
+
+def test_write_refuses_a_file_without_markers(tmp_path):
+    target = tmp_path / "notes.md"
+    target.write_text("# no table here\n")
+    r = subprocess.run([sys.executable, "-m", "server", "config-table", "--write", str(target)], cwd=ROOT,
+                       capture_output=True, text=True)
+    assert r.returncode == 2 and "markers" in r.stderr
+    assert target.read_text() == "# no table here\n"
+
+
+def test_images_and_relative_links_exist():
+    for doc in (README, DEVELOPERS):
+        for target in re.findall(r"\]\(([^)#\s]+)(?:#[^)]*)?\)", doc):
+            if target.startswith(("http://", "https://", "mailto:")):
+                continue
+            assert (ROOT / target).exists(), target
+    assert re.search(r"!\[[^\]]*\]\(docs/screenshots/[^)]+\.png\)", README)
+
+
+def test_sections_a_new_team_needs():
+    for heading in ("## Quick start", "## Screenshots", "## Concepts for the trade", "## Sending data",
+                    "## Configuration", "## Deployment", "## Cautions", "## Sources"):
+        assert re.search(rf"^{re.escape(heading)}", README, re.M), heading
+    for words in ("make demo", "make test", "curl ", "import httpx", "manifest.csv", "pg_dump", "proxy_pass",
+                  "HALFWATCH_SESSION_COOKIE_SECURE=true", "docker compose up"):
+        assert words in README, words
+    for heading in ("## Architecture", "## From ingest to email", "## Running parts alone",
+                    "## Adding an analysis feature", "## Adding an alarm rule", "## Tests and benchmarks"):
+        assert re.search(rf"^{re.escape(heading)}", DEVELOPERS, re.M), heading
+
+
+def test_cautions_of_the_trade_are_stated():
+    text = " ".join(README.split()).lower()
+    assert "not a machine protection or trip system" in text  # common practice
+    assert "local codes take precedence" in text
+    assert "lockout" in text and "qualified people" in text
+
+
+def test_no_absolute_machine_paths_or_forbidden_words_in_the_docs_and_demo():
+    files = [ROOT / "README.md", ROOT / "DEVELOPERS.md", ROOT / "docker-compose.yml", ROOT / "Dockerfile",
+             ROOT / ".env.example", *sorted((ROOT / "server" / "demo").glob("*.py"))]
+    absolute = re.compile(r"(?<![\w.])/(work|root|tmp|home)/")
+    for path in files:
+        text = path.read_text()
+        assert not absolute.search(text), path
+        for word in ("transcript", "lecture", "video"):
+            assert word not in text.lower(), (path, word)
