@@ -17,6 +17,7 @@ import socket
 import threading
 import time
 import uuid
+import zlib
 from collections import deque
 from dataclasses import dataclass
 from types import SimpleNamespace
@@ -31,6 +32,10 @@ log = logging.getLogger("halfwatch.worker")
 
 SPECTRUM_POINTS = 2048
 ENVELOPE_POINTS = 1000
+
+
+class DamagedWaveform(RuntimeError):
+    """The stored samples of a record are unreadable or differ from the checksum taken at ingest."""
 
 
 class LeaseLost(RuntimeError):
@@ -54,8 +59,13 @@ _EXPIRE = (update(Job.__table__)
            .where(_J.state == "running", _J.lease_until < bindparam("now"),
                   _J.attempts >= bindparam("max_attempts"))
            .values(state="failed", finished_at=bindparam("now"), lease_until=None, error=bindparam("why")))
-_RUNNABLE = or_(and_(_J.state == "queued", _J.not_before <= bindparam("now")),
-                and_(_J.state == "running", _J.lease_until < bindparam("now")))
+# A time further ahead than any worker could have set it (``horizon`` = now + lease + CLOCK_SLACK) means
+# the clock was stepped back: such a job is due now instead of parked for the size of the step.
+CLOCK_SLACK = dt.timedelta(minutes=10)
+_RUNNABLE = or_(and_(_J.state == "queued", or_(_J.not_before <= bindparam("now"),
+                                               _J.not_before > bindparam("horizon"))),
+                and_(_J.state == "running", or_(_J.lease_until < bindparam("now"),
+                                                _J.lease_until > bindparam("horizon"))))
 _CLAIMS: dict[tuple[bool, int], object] = {}
 
 
@@ -94,8 +104,10 @@ def claim_batch(db, worker_id: str, *, lease_s: float, max_attempts: int, n: int
     with db.write() as conn:
         # leases that ran out on the last allowed attempt: give up on them
         conn.execute(_EXPIRE, {"now": now, "max_attempts": max_attempts, "why": why})
+        lease_until = now + dt.timedelta(seconds=lease_s)
         rows = conn.execute(_claim_statement(db.dialect == "postgresql", max(1, int(n))), {
-            "now": now, "wid": worker_id, "lease_until": now + dt.timedelta(seconds=lease_s)}).all()
+            "now": now, "horizon": lease_until + CLOCK_SLACK, "wid": worker_id,
+            "lease_until": lease_until}).all()
     return sorted((Claim(r[0], r[1], r[2], worker_id) for r in rows), key=lambda c: c.job_id)
 
 
@@ -120,12 +132,24 @@ _ASSET = (select(Asset.__table__).join(Point, Point.asset_id == Asset.id)
 
 
 def load(db, record_id: int):
-    """(record row, asset row, samples); rows have the tables' column names as attributes."""
+    """(record row, asset row, samples); rows have the tables' column names as attributes.
+
+    The samples are checked against the checksum taken at ingest: a damaged blob raises DamagedWaveform
+    instead of being analysed as if it were a measurement."""
     with db.read_engine.connect() as conn:
         record = conn.execute(_RECORD, {"rid": record_id}).one()
         wf = conn.execute(_WAVEFORM, {"rid": record_id}).one()
         asset = conn.execute(_ASSET, {"pid": record.point_id}).one()
-    return record, asset, blobs.decode_waveform(wf.codec, wf.data)
+    try:
+        samples = blobs.decode_waveform(wf.codec, wf.data)
+    except (ValueError, zlib.error) as exc:
+        if str(exc).startswith("unknown waveform codec"):
+            raise  # written by a newer version, perhaps: retried, another worker may know the codec
+        raise DamagedWaveform(f"record {record_id}: the stored waveform cannot be decoded ({exc})") from None
+    if record.checksum and blobs.checksum(samples) != record.checksum:
+        raise DamagedWaveform(f"record {record_id}: the stored waveform does not match its ingest checksum "
+                              "(damaged in storage); re-send the record or restore it from a backup")
+    return record, asset, samples
 
 
 def analyse(record: Record, asset: Asset, samples):
@@ -243,6 +267,10 @@ def process(db, settings, c: Claim, heartbeat=None) -> None:
         analysis = analyse(record, asset, samples)
         if heartbeat is not None:
             heartbeat.observe("analysis_seconds", time.perf_counter() - t0)
+    except DamagedWaveform as exc:  # damage does not heal: no retry, the job keeps the reason
+        log.error("job %s: %s", c.job_id, exc)
+        fail(db, c, str(exc), permanent=True, settings=settings)
+        return
     except SignalError as exc:  # the same record fails the same way every time: no retry
         fail(db, c, f"{getattr(exc, 'field', 'samples')}: {exc}", permanent=True, settings=settings)
         return
