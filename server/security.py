@@ -158,6 +158,42 @@ async def _csrf_ok(request: Request, principal: Principal) -> bool:
                                                                                    principal.csrf_token)
 
 
+_NO_CREDENTIALS = ("log in (POST /api/v1/session) or send an API key "
+                   "(Authorization: Bearer <key> or X-API-Key)")
+
+
+def _csrf_refused() -> Forbidden:
+    return Forbidden(f"missing or wrong CSRF token; send the {CSRF_HEADER} header with the token from "
+                     f"GET /api/v1/me (or the {CSRF_COOKIE} cookie)", field=CSRF_HEADER)
+
+
+def _role_refused(role: str, principal: Principal) -> Forbidden:
+    return Forbidden(f"this needs the {role} role; you are {principal.role}")
+
+
+def has_credentials(request: Request) -> bool:
+    """Cheap (no database): does the request carry a key or a session cookie at all?"""
+    return bool(_api_key_from(request) or request.cookies.get(SESSION_COOKIE))
+
+
+def authorize(request: Request, role: str) -> Principal:
+    """Blocking form of ``require_role`` for handlers that already run in the threadpool (one thread hop
+    for authentication and work). The CSRF token must come in the header here, not in a form field."""
+    if not has_credentials(request):
+        raise Unauthorized(_NO_CREDENTIALS)
+    principal = optional_principal(request)
+    if principal is None:
+        raise Unauthorized(_NO_CREDENTIALS)
+    if principal.via_cookie and request.method not in SAFE_METHODS:
+        sent = request.headers.get(CSRF_HEADER.lower())
+        if not sent or not hmac.compare_digest(sent, principal.csrf_token or ""):
+            raise _csrf_refused()
+    if not principal.has_role(role):
+        raise _role_refused(role, principal)
+    request.state.principal = principal
+    return principal
+
+
 def require_role(role: str):
     """A dependency: the caller must be authenticated with at least ``role``; returns the Principal."""
     if role not in ROLES:
@@ -168,14 +204,12 @@ def require_role(role: str):
 
         principal = await run_in_threadpool(optional_principal, request)
         if principal is None:
-            raise Unauthorized("log in (POST /api/v1/session) or send an API key "
-                               "(Authorization: Bearer <key> or X-API-Key)")
+            raise Unauthorized(_NO_CREDENTIALS)
         if principal.via_cookie and request.method not in SAFE_METHODS and not await _csrf_ok(request,
                                                                                                principal):
-            raise Forbidden(f"missing or wrong CSRF token; send the {CSRF_HEADER} header with the token from "
-                            f"GET /api/v1/me (or the {CSRF_COOKIE} cookie)", field=CSRF_HEADER)
+            raise _csrf_refused()
         if not principal.has_role(role):
-            raise Forbidden(f"this needs the {role} role; you are {principal.role}")
+            raise _role_refused(role, principal)
         request.state.principal = principal
         return principal
 

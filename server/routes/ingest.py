@@ -12,9 +12,9 @@ from fastapi.responses import JSONResponse
 from pydantic import AwareDatetime, ValidationError
 from starlette.concurrency import run_in_threadpool
 
-from server.errors import AppError
+from server.errors import AppError, Unauthorized
 from server.schemas import RecordJson
-from server.security import Principal, require_role
+from server.security import _NO_CREDENTIALS, Principal, authorize, has_credentials, require_role
 from server.services.ingest import IngestOutcome, Limits, ingest_record
 from server.services.ingest_files import ingest_file
 
@@ -56,11 +56,12 @@ async def post_record(
     speed_hz: float | None = Query(None, description="shaft speed during the record, rev/s"),
     speed_source: str | None = Query(None, max_length=32),
     client_ref: str | None = Query(None, max_length=200, description="your id for safe retries"),
-    principal: Principal = Depends(require_role("technician")),
 ):
-    """Raw little-endian float32 body with metadata in the query, or JSON (``RecordJson``).
+    """Raw little-endian float32 body with metadata in the query, or JSON (``RecordJson``); technician role.
     201 with the record id once the record and its analysis job are committed; 200 for a repeat of a
     ``client_ref`` already stored."""
+    if not has_credentials(request):  # before reading a large body
+        raise Unauthorized(_NO_CREDENTIALS)
     ctype = request.headers.get("content-type", "").split(";")[0].strip().lower()
     body = await request.body()
     if ctype == "application/json":
@@ -86,10 +87,13 @@ async def post_record(
         raise AppError(f"content type {ctype!r} is not accepted here; send application/octet-stream "
                        "(float32) or application/json, or use .../records/file for files",
                        status=415, code="unsupported_media_type", field="content-type")
-    outcome = await run_in_threadpool(
-        ingest_record, request.app.state.db, point_id=point_id, samples=samples, origin="api",
-        uploader=principal.label, limits=_limits(request), site_scope=principal.site_id, **meta)
-    return _answer(request, outcome)
+    def work() -> IngestOutcome:  # authentication and storage in one thread hop
+        principal = authorize(request, "technician")
+        return ingest_record(request.app.state.db, point_id=point_id, samples=samples, origin="api",
+                             uploader=principal.label, limits=_limits(request), site_scope=principal.site_id,
+                             **meta)
+
+    return _answer(request, await run_in_threadpool(work))
 
 
 def _json_samples(doc: RecordJson) -> np.ndarray:
