@@ -64,12 +64,15 @@ class Settings(BaseSettings):
     smtp_user: str = ""
     smtp_password: SecretStr = SecretStr("")
     smtp_from: str = "halfwatch@localhost"
+    smtp_ca_file: str = Field(default="", description="extra CA certificates (PEM) for an internal relay")
     smtp_timeout_s: float = Field(default=20.0, gt=0)
     mail_poll_s: float = Field(default=5.0, gt=0, description="how often the sender looks at the outbox")
     mail_lease_s: float = Field(default=120.0, gt=0, description="a claimed email is retried after this")
     mail_max_attempts: int = Field(default=12, ge=1)
     mail_backoff_s: float = Field(default=30.0, gt=0, description="first retry delay; doubles per attempt")
     mail_backoff_max_s: float = Field(default=3600.0, gt=0)
+    worker_alarm_background: bool = Field(default=True, description="the worker also sends the alert "
+                                          "emails and refreshes window fits, in a thread")
     alarm_speed_tolerance: float = Field(default=0.10, gt=0, lt=1, description="vs the point's usual speed")
     alarm_nominal_speed_tolerance: float = Field(default=0.25, gt=0, lt=1, description="vs asset nominal")
 

@@ -304,6 +304,7 @@ def run_forever(db, settings, *, stop: threading.Event | None = None, max_jobs: 
 
     beat = Heartbeat(db, worker_id, "worker", interval_s=settings.heartbeat_s)
     beat.prune()
+    alarm_stop, alarm_thread = _start_alarm_background(db, settings)
     try:
         while not stop.is_set() and (max_jobs is None or handled < max_jobs):
             beat.beat("running")
@@ -322,5 +323,23 @@ def run_forever(db, settings, *, stop: threading.Event | None = None, max_jobs: 
                 time.sleep(min(5.0, settings.worker_poll_s * 10))
             stop.wait(settings.worker_poll_s)
     finally:
+        if alarm_thread is not None:
+            alarm_stop.set()
+            alarm_thread.join(settings.smtp_timeout_s + 5.0)
         beat.beat("stopped", force=True)
     return handled
+
+
+def _start_alarm_background(db, settings):
+    """Alert emails and operating-window fits run beside the job loop in their own thread, so a slow SMTP
+    server never holds up an analysis (server.alarms.run_mailer_forever; the outbox leases make a separate
+    ``halfwatch mailer`` safe as well). Off with HALFWATCH_WORKER_ALARM_BACKGROUND=false."""
+    if not settings.worker_alarm_background:
+        return None, None
+    from server.alarms import run_mailer_forever
+
+    alarm_stop = threading.Event()
+    thread = threading.Thread(target=run_mailer_forever, args=(db, settings, alarm_stop),
+                              name="alarm-background", daemon=True)
+    thread.start()
+    return alarm_stop, thread
