@@ -23,7 +23,8 @@ def test_configuration_table_matches_the_settings_class():
 
     assert README.count(BEGIN) == 1 and README.count(END) == 1
     inside = README.split(BEGIN, 1)[1].split(END, 1)[0].strip("\n")
-    assert inside == config_table().strip("\n"), "README is stale: run `halfwatch config-table --write README.md`"
+    stale = "README is stale: run `halfwatch config-table --write README.md`"
+    assert inside == config_table().strip("\n"), stale
 
 
 def test_every_setting_is_in_the_table_with_its_default():
@@ -31,7 +32,7 @@ def test_every_setting_is_in_the_table_with_its_default():
 
     rows = {m.group(1): m.group(2) for m in re.finditer(r"^\| `(HALFWATCH_[A-Z0-9_]+)` \| ([^|]*) \|", README,
                                                          re.M)}
-    for name, field in Settings.model_fields.items():
+    for name in Settings.model_fields:
         assert f"HALFWATCH_{name.upper()}" in rows, name
     assert rows["HALFWATCH_PORT"].strip() == "`8000`"
     assert rows["HALFWATCH_SMTP_PASSWORD"].strip() == "(secret, empty)"
