@@ -300,3 +300,70 @@ def test_broker_killed_and_restarted_mid_stream_loses_and_doubles_nothing(
         times = list(s.scalars(select(Record.measured_at).order_by(Record.measured_at)))
     assert times == [T0 + dt.timedelta(minutes=i) for i in range(n)]  # each record once
     assert count(migrated_db, Job) == n
+
+
+def _bridge_process(settings, log_path):
+    import os
+    import subprocess
+    import sys
+
+    env = {k: v for k, v in os.environ.items() if not k.startswith("HALFWATCH_")}
+    env.update({"HALFWATCH_DATABASE_URL": settings.database_url,
+                "HALFWATCH_MQTT_PORT": str(settings.mqtt_port),
+                "HALFWATCH_MQTT_CLIENT_ID": settings.mqtt_client_id, "HALFWATCH_HEARTBEAT_S": "0.2",
+                "HALFWATCH_MQTT_RECONNECT_MAX_S": "2", "PYTHONPATH": str(ROOT), "PYTHONUNBUFFERED": "1"})
+    with open(log_path, "ab") as log:
+        return subprocess.Popen([sys.executable, "-m", "server", "mqtt-bridge"], env=env, cwd=ROOT,
+                                stdout=log, stderr=subprocess.STDOUT)
+
+
+def connected(db) -> bool:
+    from server.ops.tables import ServiceHeartbeat
+
+    with db.read() as s:
+        return s.scalar(select(func.count()).select_from(ServiceHeartbeat)
+                        .where(ServiceHeartbeat.status == "connected")) > 0
+
+
+@pytest.mark.slow
+def test_bridge_process_killed_mid_stream_then_restarted_stores_each_record_once(
+        migrated_db, plant, hw_settings, broker, rng, tmp_path):  # noqa: F811
+    """`halfwatch mqtt-bridge` as its own process: SIGKILL while records stream in, start it again."""
+    from server.ops.tables import ServiceHeartbeat
+
+    settings = mqtt_settings(hw_settings, broker, mqtt_client_id="hw-proc-bridge")
+    log = tmp_path / "bridge.log"
+    n = 24
+    topic = f"halfwatch/{plant.site_id}/{plant.point_id}/records"
+    gw = Listener(broker.port)
+    proc = _bridge_process(settings, log)
+    try:
+        assert wait_until(lambda: connected(migrated_db), timeout_s=30), log.read_text()  # subscribed
+        payloads = [record_payload(tone_record(rng, n=4096), T0 + dt.timedelta(minutes=i), f"p{i}")
+                    for i in range(n)]
+        mids = [gw.send(topic, p) for p in payloads[:8]]
+        assert wait_until(lambda: count(migrated_db, Record) >= 4, timeout_s=30), log.read_text()
+        proc.kill()  # SIGKILL: no clean shutdown, whatever was in hand is not acknowledged
+        proc.wait(10)
+        at_kill = count(migrated_db, Record)
+        mids += [gw.send(topic, p) for p in payloads[8:]]  # queued by the broker for the session
+        proc = _bridge_process(settings, log)
+        assert wait_until(lambda: log.read_text().count("connected to") == 2, timeout_s=30), log.read_text()
+        assert wait_until(lambda: set(mids) <= gw.acked, timeout_s=30)
+        assert wait_until(lambda: count(migrated_db, Record) == n, timeout_s=30), log.read_text()[-3000:]
+        assert not wait_until(lambda: count(migrated_db, Record) > n, timeout_s=1.0)
+        proc.terminate()  # SIGTERM: a clean stop
+        assert proc.wait(20) == 0, log.read_text()[-3000:]
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+            proc.wait(10)
+        gw.close()
+    assert at_kill < n, "the bridge was killed too late to test anything"
+    with migrated_db.read() as s:
+        refs = list(s.scalars(select(Record.client_ref).order_by(Record.measured_at)))
+        stopped = s.scalar(select(func.count()).select_from(ServiceHeartbeat)
+                           .where(ServiceHeartbeat.status == "stopped"))
+    assert refs == [f"p{i}" for i in range(n)]
+    assert count(migrated_db, Job) == n
+    assert stopped == 1  # the killed one never said goodbye; the terminated one did
