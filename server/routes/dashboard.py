@@ -25,7 +25,7 @@ from server.storage.tables import Area, Asset, Point, Record, Result, Site
 
 router = APIRouter(prefix="/api/v1/dashboard", tags=["dashboard"])
 viewer = require_role("viewer")
-ZONES = "ABCD"
+ZONES = ("A", "B", "C", "D")
 
 
 def site_zone(settings, site_name: str) -> str:
