@@ -140,11 +140,14 @@ def ingest_record(db, *, point_id: int, samples, fs_hz: float, units: str | None
     speed = check_speed(speed_hz)
     digest = blobs.checksum(x32)
 
-    def _check(conn) -> IngestOutcome | None:
+    def _scope(conn) -> None:
         _, site_id = point_site(conn, point_id)
         if site_scope is not None and site_scope != site_id:
             raise Forbidden(f"this API key is limited to site {site_scope}; point {point_id} is elsewhere",
                             field="point_id")
+
+    def _check(conn) -> IngestOutcome | None:
+        _scope(conn)
         return _existing(conn, point_id, client_ref, digest) if client_ref is not None else None
 
     def _encode():
@@ -169,13 +172,10 @@ def ingest_record(db, *, point_id: int, samples, fs_hz: float, units: str | None
         conn = session.connection()
         first = _check(conn)
         return first if first is not None else _store(conn, *_encode())
-    with db.read_engine.connect() as conn:  # lookups outside the write lock
-        first = _check(conn)
-    if first is not None:
-        return first
     encoded = _encode()
-    try:
+    try:  # one transaction; a repeated client_ref trips the unique constraint and is answered below
         with db.write() as conn:
+            _scope(conn)
             return _store(conn, *encoded)
     except IntegrityError:
         if client_ref is None:
