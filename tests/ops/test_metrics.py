@@ -176,3 +176,37 @@ def test_readyz_follows_the_worker_heartbeat(client, migrated_db, hw_settings):
     r = client.get("/readyz")
     assert r.status_code == 503 and "no analysis worker beat" in r.json()["reason"]
     assert client.get("/healthz").status_code == 200  # alive, though not ready
+
+
+def test_bridge_worker_and_scrape_on_each_backend(backend, broker, rng):  # noqa: F811
+    """The same path on SQLite and on PostgreSQL (when HALFWATCH_TEST_POSTGRES_URL is set)."""
+    from prometheus_client.parser import text_string_to_metric_families as parse
+
+    from server.metrics import Metrics
+
+    db, settings, plant = backend
+    settings = mqtt_settings(settings, broker)
+    listen = Listener(broker.port)
+    run = Running(db, settings)
+    try:
+        topic = f"halfwatch/{plant.site_id}/{plant.point_id}/records"
+        xs = [tone_record(rng) for _ in range(3)]
+        for i, x in enumerate(xs):
+            listen.publish(topic, record_payload(x, T0 + dt.timedelta(hours=i), None))
+        listen.publish(topic, record_payload(xs[0], T0, None))  # a repeat: the derived reference matches
+        assert wait_until(lambda: len(listen.replies) == 4)
+    finally:
+        run.stop()
+        listen.close()
+    assert [r["created"] for r in listen.replies] == [True, True, True, False]
+    assert run_forever(db, settings, max_jobs=3) == 3
+    metrics = Metrics(db, settings)
+    for _ in range(2):  # the second scrape reads incrementally and must not count twice
+        body, _ = metrics.render(None)
+        got = {(s.name, tuple(sorted(s.labels.items()))): s.value
+               for f in parse(body.decode()) for s in f.samples}
+        assert got[("halfwatch_records_ingested_total", (("origin", "mqtt"),))] == 3
+        assert got[("halfwatch_mqtt_messages_total", (("outcome", "duplicate"),))] == 1
+        assert got[("halfwatch_analysis_duration_seconds_count", ())] == 3
+        assert got[("halfwatch_jobs", (("state", "queued"),))] == 0
+        assert got[("halfwatch_database_up", ())] == 1
