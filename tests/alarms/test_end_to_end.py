@@ -70,3 +70,30 @@ def test_simulated_onset_alerts_emails_survives_outage_and_is_acknowledged(
     assert r.status_code == 200
     active = engineer.get("/api/v1/alarms", params={"asset_id": plant.asset_ids["pump"]}).json()["alarms"]
     assert alarm["id"] not in [a["id"] for a in active]
+
+
+def test_the_worker_loop_sends_the_emails_itself(migrated_db, plant, smtp, mail_settings, rng):
+    import threading
+    import time
+
+    db = migrated_db
+    settings = mail_settings.model_copy(update={"mail_poll_s": 0.1, "worker_alarm_background": True})
+    service.create_subscription(db, {"email": "planner@example.test", "scope": "site",
+                                     "scope_id": plant.site_id}, actor="admin1")
+    for i, v in enumerate(ONSET_MM_S[:4], start=1):
+        x = tone_record(rng, amp_1x=0.4, amp_half=accel_peak_for(v), n=16384)
+        ingest_record(db, point_id=plant.point_id, samples=x, fs_hz=2560.0, units="m/s2",
+                      measured_at=T0 + dt.timedelta(hours=6 * i), origin="api", uploader="test")
+    stop = threading.Event()
+    thread = threading.Thread(target=worker.run_forever, args=(db, settings), kwargs={"stop": stop})
+    thread.start()
+    try:
+        deadline = time.monotonic() + 60
+        while not smtp.messages and time.monotonic() < deadline:
+            time.sleep(0.05)
+    finally:
+        stop.set()
+        thread.join(30)
+    assert not thread.is_alive()
+    assert any("half-order velocity: normal -> ALERT" in m["msg"].get_body(preferencelist=("plain",))
+               .get_content() for m in smtp.messages)
