@@ -159,7 +159,7 @@ def banner(settings, state: DemoState, mail_dir: Path) -> str:
 
 def serve(settings, state: DemoState, db, point_ids: dict[str, int], mail_dir: Path, *,
           interval_s: float, say=print) -> None:
-    """Run the API with its worker, the mail loop and the live sensors until Ctrl-C."""
+    """Run the API with its worker (which also sends the alert emails) and the live sensors until Ctrl-C."""
     import uvicorn
 
     from server.app import create_app
@@ -170,11 +170,6 @@ def serve(settings, state: DemoState, db, point_ids: dict[str, int], mail_dir: P
     app.include_router(mail_router(mail_dir))
     server = uvicorn.Server(uvicorn.Config(app, host=settings.host, port=settings.port, log_level="warning"))
     stop = threading.Event()
-    from server.alarms import run_mailer_forever
-
-    # the mailer's loop: sends the outbox and refreshes the operating-window fits behind the margin rule
-    mail = threading.Thread(target=run_mailer_forever, args=(db, settings, stop), name="halfwatch-demo-mail",
-                            daemon=True)
     sensors = LiveSensors(settings.public_base_url, state.api_key, point_ids, state.anchor_time,
                           interval_s=interval_s, stop=stop)
 
@@ -185,7 +180,6 @@ def serve(settings, state: DemoState, db, point_ids: dict[str, int], mail_dir: P
             say(banner(settings, state, mail_dir))
             sensors.start()
 
-    mail.start()
     threading.Thread(target=announce, name="halfwatch-demo-announce", daemon=True).start()
     try:
         server.run()  # handles Ctrl-C (SIGINT) and SIGTERM: finishes requests, then shuts down
@@ -193,8 +187,7 @@ def serve(settings, state: DemoState, db, point_ids: dict[str, int], mail_dir: P
         pass
     finally:
         stop.set()
-        for t in (sensors, mail):
-            if t.is_alive():
-                t.join(timeout=20)
+        if sensors.is_alive():
+            sensors.join(timeout=20)
         say(f"halfwatch demo stopped ({sensors.sent} live readings sent this run); the data stay in "
             f"{settings.data_dir}")

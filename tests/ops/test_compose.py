@@ -19,7 +19,7 @@ import pytest
 import yaml  # PyYAML is in the test extras
 
 ROOT = Path(__file__).resolve().parents[2]
-LONG_RUNNING = ("api", "worker-1", "worker-2", "mailer", "mail-sink", "db")
+LONG_RUNNING = ("api", "worker-1", "worker-2", "mail-sink", "db")
 VAR = re.compile(r"\$\{([A-Z0-9_]+)(?::?[-?][^}]*)?\}")
 
 
@@ -56,7 +56,7 @@ def test_every_halfwatch_command_parses_with_the_real_cli(compose):
         args = parser.parse_args(cmd[1:])  # SystemExit (a failure) for an unknown command or option
         assert callable(args.func), name
         seen.append(cmd[1])
-    assert sorted(set(seen)) == ["db", "mail-sink", "mailer", "serve", "worker"]
+    assert sorted(set(seen)) == ["db", "mail-sink", "serve", "worker"]
 
 
 def test_services_the_issue_asks_for(compose):
@@ -65,7 +65,7 @@ def test_services_the_issue_asks_for(compose):
     assert len(workers) == 2
     assert services["db"]["image"].startswith("postgres:")
     assert services["migrate"]["command"] == ["halfwatch", "db", "upgrade"]
-    for name in ("api", *workers, "mailer"):
+    for name in ("api", *workers):
         assert services[name]["depends_on"]["migrate"]["condition"] == "service_completed_successfully"
     assert services["migrate"]["depends_on"]["db"]["condition"] == "service_healthy"
     # the database lives in a named volume
@@ -92,7 +92,7 @@ def test_python_health_checks_compile_and_import_real_modules(compose):
                 for alias in node.names:
                     assert importlib.util.find_spec(alias.name) is not None, (name, alias.name)
         checked += 1
-    assert checked >= 4
+    assert checked >= 3
 
 
 def test_every_halfwatch_variable_is_a_setting(compose, env_example):
