@@ -88,7 +88,8 @@ def register(sub: argparse._SubParsersAction) -> None:
                    "(default ./demo-data)")
     p.add_argument("--days", type=float, default=90.0, help="days of history to backfill (default 90)")
     p.add_argument("--port", type=int, default=8000, help="HTTP port on 127.0.0.1 (default 8000)")
-    p.add_argument("--jobs", type=int, default=None, help="analysis processes for the backfill (default 2)")
+    p.add_argument("--jobs", type=int, default=None,
+                   help="analysis processes for the backfill (default: cores - 1, at most 3)")
     p.add_argument("--interval", type=float, default=3.0, help="seconds between live readings (default 3)")
     p.add_argument("--no-serve", action="store_true", help="set up and backfill only, then exit")
     p.set_defaults(func=cmd_demo)

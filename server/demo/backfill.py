@@ -175,7 +175,8 @@ def run_backfill(db, settings, point_ids: dict[str, int], *, anchor: dt.datetime
     if not tasks:
         report.seconds = time.perf_counter() - t0
         return report
-    jobs = max(1, jobs or min(2, os.cpu_count() or 1))
+    # the store loop in this process is the slower half, so one analysis process per spare core
+    jobs = max(1, jobs or min(3, (os.cpu_count() or 2) - 1))
     say(f"backfill: {len(tasks)} simulated readings to analyse ({report.skipped} already stored), "
         f"{jobs} analysis process(es)")
     next_fit = tasks[0].when + WINDOW_FIT_EVERY

@@ -1,0 +1,93 @@
+"""The demo's story, checked through the real analysis: what the simulated machines show and when.
+
+Outside references: ISO 20816-3 zone boundaries for group 2 on a flexible support, A/B 2.3 and B/C
+4.5 mm/s r.m.s. (from memory, as entered in server/alarms/rules.py); oil whirl at 0.40-0.48X and a
+looseness-type half-order with a 1.5X line (common practice); a weekly route visit is overdue once a
+quarter of its 168 h interval has passed after the due time (the rule the routes page applies).
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import math
+
+import pytest
+
+from server.demo import plant, scenario, schedule
+
+ANCHOR = dt.datetime(2026, 3, 4, 12, 0, tzinfo=dt.UTC)
+FLEX_AB, FLEX_BC = 2.3, 4.5  # ISO 20816-3 group 2, flexible, mm/s r.m.s. (from memory)
+
+
+def _asset(tag: str) -> plant.AssetSpec:
+    return next(a for a in plant.ASSETS if plant.tag(a) == tag)
+
+
+def analyse(tag: str, t_days: float, hour: int = 3, *, online: bool = True) -> dict:
+    from analysis import analyze_record
+    from analysis.simulate import simulate
+
+    asset = _asset(tag)
+    point = next(p for p in asset.points if p.online == online)
+    c = scenario.condition(asset, point, t_days, hour, seed=1234)
+    rec = simulate(c.kind, seed=7, fs_hz=point.fs_hz, duration_s=point.n_samples / point.fs_hz, **c.params)
+    return analyze_record(rec.samples.astype("<f4"), point.fs_hz, units="g", machine_group=asset.group,
+                          foundation=asset.foundation, forcing_hz=c.speed_hz * asset.multiplier).to_dict()
+
+
+def half_order_rms(result: dict) -> float:
+    sub = result["subharmonic"]
+    return sub["velocity_mm_s"] / math.sqrt(2.0) if sub["detected"] else 0.0
+
+
+def test_vp102_is_clean_before_the_speed_change_then_crosses_alert_and_danger():
+    before = analyse("VP-102", -40.0)
+    assert not before["subharmonic"]["detected"]
+    mid, late = analyse("VP-102", -20.0), analyse("VP-102", -3.0)
+    for r in (mid, late):
+        assert r["subharmonic"]["class"] == "half-order"
+        assert r["subharmonic"]["order"] == pytest.approx(0.5, abs=0.01)
+    assert FLEX_AB < half_order_rms(mid) < FLEX_BC  # alert, not yet danger
+    assert half_order_rms(late) > FLEX_BC  # danger
+    # the mode sits at half the new speed: the speed change is what brought 0.5X onto it
+    assert scenario.ONSET_SPEEDS_HZ[1] / 2 == pytest.approx(scenario.ONSET_MODE_HZ, rel=0.01)
+    assert abs(scenario.ONSET_SPEEDS_HZ[0] / 2 - scenario.ONSET_MODE_HZ) / scenario.ONSET_MODE_HZ > 0.05
+
+
+def test_feed_pump_whirls_and_vp103_shows_steady_looseness():
+    whirl = analyse("BFP-2", -10.0)
+    assert whirl["subharmonic"]["class"] == "sub-synchronous"
+    assert 0.40 <= whirl["subharmonic"]["order"] <= 0.48  # common practice
+    loose = analyse("VP-103", -10.0, online=False)
+    assert loose["subharmonic"]["class"] == "half-order"
+    assert loose["subharmonic"]["family"].get("1.5X")  # the half-order family (common practice)
+    assert FLEX_AB < half_order_rms(loose) < FLEX_BC
+    healthy = analyse("AC-2", -10.0, online=False)
+    assert not healthy["subharmonic"]["detected"] and healthy["overall"]["zone"] in ("A", "B")
+
+
+def test_variable_speed_fan_stays_within_the_usual_speed_band():
+    asset = _asset("CT-3")
+    speeds = [scenario.condition(asset, asset.points[0], -1.0, h, seed=h).speed_hz for h in range(24)]
+    median = sorted(speeds)[12]
+    spread = (max(speeds) - min(speeds)) / median
+    assert 0.08 < spread  # it really varies over the day
+    assert all(abs(s - median) / median < 0.10 for s in speeds)  # within the data-quality speed tolerance
+
+
+def test_schedule_hourly_online_weekly_walks_a_missed_week_and_overdue_stops():
+    start = ANCHOR - dt.timedelta(days=90)
+    slots = schedule.backfill_slots(start, ANCHOR)
+    online = [s for s in slots if s.point.endswith(("VP-102 motor top H", "BFP-2 pump drive end H"))]
+    assert len(online) == 2 * 90 * 24
+    intake = {s.when.date() for s in slots if s.point.startswith("VP-103")}
+    weeks = sorted(intake)
+    gaps = [(b - a).days for a, b in zip(weeks, weeks[1:], strict=False)]
+    assert gaps.count(14) == 1 and set(gaps) == {7, 14}  # one missed week
+    last = {}
+    for s in slots:
+        last[s.point] = s.when
+    due = dt.timedelta(hours=plant.ROUTE_INTERVAL_H * 1.25)
+    overdue = sorted(p for p, t in last.items() if ANCHOR - t > due)
+    skipped = [p.name for a in plant.ASSETS if plant.tag(a) in ("CHW-1", "PW-4") for p in a.points]
+    assert overdue == sorted(skipped)
