@@ -127,18 +127,19 @@ def test_reanalysis_keeps_history_and_one_current_result(env, rng):
     assert [r.current for r in rows] == [False, True]
 
 
-def test_concurrent_claims_take_each_job_exactly_once(env, rng):
+@pytest.mark.parametrize("batch", [1, 4])
+def test_concurrent_claims_take_each_job_exactly_once(env, rng, batch):
     import threading
 
     db, settings, plant = env
     x = tone_record(rng, n=1024)
-    ids = {ingest(db, plant.point_id, x, measured_at=T0 + dt.timedelta(minutes=i)).job_id for i in range(24)}
+    ids = {ingest(db, plant.point_id, x, measured_at=T0 + dt.timedelta(minutes=i)).job_id for i in range(30)}
     claimed, lock = [], threading.Lock()
 
     def grab(name):
-        while (c := worker.claim(db, name, lease_s=60, max_attempts=3)) is not None:
+        while got := worker.claim_batch(db, name, lease_s=60, max_attempts=3, n=batch):
             with lock:
-                claimed.append(c.job_id)
+                claimed.extend(c.job_id for c in got)
 
     threads = [threading.Thread(target=grab, args=(f"w{i}",)) for i in range(4)]
     for t in threads:
@@ -164,24 +165,3 @@ def test_batch_claim_and_the_worker_loop(env, rng):
     assert worker.run_forever(db, settings.model_copy(update={"worker_batch": 2}), max_jobs=5) == 5
     with db.read() as s:
         assert [s.get(Job, i).state for i in more] == ["done"] * 5
-
-
-def test_concurrent_batch_claims_take_each_job_exactly_once(env, rng):
-    import threading
-
-    db, settings, plant = env
-    x = tone_record(rng, n=1024)
-    ids = {ingest(db, plant.point_id, x, measured_at=T0 + dt.timedelta(minutes=i)).job_id for i in range(30)}
-    claimed, lock = [], threading.Lock()
-
-    def grab(name):
-        while got := worker.claim_batch(db, name, lease_s=60, max_attempts=3, n=4):
-            with lock:
-                claimed.extend(c.job_id for c in got)
-
-    threads = [threading.Thread(target=grab, args=(f"w{i}",)) for i in range(4)]
-    for t in threads:
-        t.start()
-    for t in threads:
-        t.join()
-    assert sorted(claimed) == sorted(ids)
