@@ -2,11 +2,13 @@
 
 from __future__ import annotations
 
+from collections.abc import Callable
+
 import numpy as np
 
 from .conditioning import velocity_mm_s
 from .forcing import line_near
-from .results import Spectrum, Subharmonic, Tone
+from .results import Precursor, Spectrum, Subharmonic, Tone
 from .spectrum import cfar_threshold, grandke, local_peaks, power
 
 SEARCH_BAND = (0.30, 0.70)  # orders searched for a subharmonic
@@ -79,7 +81,12 @@ def significant_lines(
 
 
 def detect_subharmonic(
-    spec: Spectrum, f1x: float, units: str, pfa: float, min_velocity_mm_s: float = MIN_VELOCITY_MM_S
+    spec: Spectrum,
+    f1x: float,
+    units: str,
+    pfa: float,
+    min_velocity_mm_s: float = MIN_VELOCITY_MM_S,
+    bump_test: Callable[[int, float], Precursor | None] | None = None,
 ) -> Subharmonic:
     """Half-order / sub-synchronous detection.
 
@@ -88,10 +95,14 @@ def detect_subharmonic(
     0.5X makes the record "half-order"; failing that, the strongest in the whirl band 0.38-0.48X makes it
     "sub-synchronous"; other lines (0.31X, 0.62X, ...) are no subharmonic and are listed as tones. With no
     detection the line nearest 0.5X is still measured (for trends), with class "none".
+
+    ``bump_test(bin, frequency)`` (analysis.precursor) returns a Precursor when the half-order candidate is
+    a noise-excited resonance bump rather than a line: the record is then not "half-order" (the next
+    candidate class is still tried) and the bump is reported in ``precursor``.
     """
     tau, cands = significant_lines(spec, f1x, pfa)
-    best: dict[str, tuple[float, float, float, float]] = {}
-    for _k, f, a, ratio in cands:
+    best: dict[str, tuple[float, float, float, float, int]] = {}
+    for k, f, a, ratio in cands:
         order = f / f1x
         if abs(order - 0.5) <= HALF_ORDER_TOL:
             klass = "half-order"
@@ -101,14 +112,19 @@ def detect_subharmonic(
             continue
         v = velocity_mm_s(a, f, units)
         if v >= min_velocity_mm_s and (klass not in best or a > best[klass][1]):
-            best[klass] = (f, a, ratio, v)
+            best[klass] = (f, a, ratio, v, k)
+    precursor = None
+    if bump_test is not None and "half-order" in best:
+        precursor = bump_test(best["half-order"][4], best["half-order"][0])
+        if precursor is not None:
+            del best["half-order"]
     pw = power(spec)
     floor = _floor_power(spec)
     df = spec.df_hz
     family_tau = threshold(spec, pfa, 5)
     for klass in ("half-order", "sub-synchronous"):
         if klass in best:
-            f, a, ratio, v = best[klass]
+            f, a, ratio, v, _k = best[klass]
             family = {}
             for name, mult in (("1.5X", 1.5), ("2.5X", 2.5)):
                 hit = line_near(spec, pw, mult * f1x)
@@ -125,6 +141,7 @@ def detect_subharmonic(
                 threshold_db=10 * np.log10(tau),
                 pfa=pfa,
                 family=family,
+                precursor=precursor,
             )
     hit = line_near(spec, pw, 0.5 * f1x, half_bins=max(1, int(round(HALF_ORDER_TOL * f1x / df))))
     if hit is None:
@@ -139,6 +156,7 @@ def detect_subharmonic(
             threshold_db=10 * np.log10(tau),
             pfa=pfa,
             family={"1.5X": None, "2.5X": None},
+            precursor=precursor,
         )
     k, f, a = hit
     return Subharmonic(
@@ -152,6 +170,7 @@ def detect_subharmonic(
         threshold_db=10 * np.log10(tau),
         pfa=pfa,
         family={"1.5X": None, "2.5X": None},
+        precursor=precursor,
     )
 
 

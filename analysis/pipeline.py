@@ -9,6 +9,7 @@ from .detect import detect_subharmonic, other_tones
 from .errors import SignalError
 from .forcing import line_near, refine_forcing
 from .growth import band_signal, chart_envelope, estimate_growth, growth_band, not_estimated
+from .precursor import bump_test
 from .quality import quality_flags
 from .results import Forcing, OrderLine, Overall, Quality, RecordAnalysis
 from .severity import ZONE_STANDARD, iso_band, waveform_stats, zone, zone_limits
@@ -88,7 +89,9 @@ def analyze_record(
         forcing = refine_forcing(spec, speed)
     f1 = forcing.frequency_hz
 
-    sub = detect_subharmonic(spec, f1, units, pfa)
+    sub = detect_subharmonic(
+        spec, f1, units, pfa, bump_test=lambda k, f: bump_test(x, fs, spec, k, f, f1)
+    )
     pw = power(spec)
     orders = {}
     for name, mult in (("1X", 1.0), ("2X", 2.0)):

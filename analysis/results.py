@@ -84,6 +84,46 @@ class Tone:
 
 
 @dataclass(frozen=True)
+class Precursor:
+    """A noise-excited resonance bump near 0.5X (below threshold): not a line, but the early warning.
+
+    ``width_hz`` is the half-power width (window main lobe removed when resolved), ``narrow_rate_per_s`` the
+    narrow decay rate γ− = π·width (or the two-Lorentzian fit's), ``ratio_to_threshold`` h/h_c from the
+    two-Lorentzian fit when the bump is resolved. ``coherence`` is the phase coherence of the component
+    across the record and ``line_coherence`` what a steady line would give in the same noise.
+    """
+
+    frequency_hz: float
+    order: float
+    width_hz: float | None
+    narrow_rate_per_s: float | None
+    ratio_to_threshold: float | None
+    ratio_to_threshold_se: float | None
+    coherence: float
+    line_coherence: float
+    resolved: bool
+    evidence: str  # "width" | "coherence"
+    note: str = ""
+
+    def to_dict(self) -> dict:
+        r = self.ratio_to_threshold
+        return {
+            "frequency_hz": _num(self.frequency_hz),
+            "order": _num(self.order),
+            "width_hz": _num(self.width_hz),
+            "narrow_rate_per_s": _num(self.narrow_rate_per_s),
+            "ratio_to_threshold": _num(r),
+            "ratio_to_threshold_se": _num(self.ratio_to_threshold_se),
+            "threshold_pct": _num(None if r is None else 100.0 * r),
+            "coherence": _num(self.coherence),
+            "line_coherence": _num(self.line_coherence),
+            "resolved": bool(self.resolved),
+            "evidence": self.evidence,
+            "note": self.note,
+        }
+
+
+@dataclass(frozen=True)
 class Subharmonic:
     detected: bool
     klass: str  # "half-order" | "sub-synchronous" | "none"
@@ -95,6 +135,8 @@ class Subharmonic:
     threshold_db: float
     pfa: float
     family: dict[str, float | None] = field(default_factory=dict)
+    precursor: Precursor | None = None  # a noise-excited bump at 0.5X that was not taken for a line
+    spectrum: str = "average"  # which spectrum detected the line: "average" | "last-segments"
 
     def to_dict(self) -> dict:
         return {
@@ -108,6 +150,8 @@ class Subharmonic:
             "threshold_db": _num(self.threshold_db),
             "pfa": _num(self.pfa),
             "family": {k: _num(v) for k, v in self.family.items()},
+            "precursor": None if self.precursor is None else self.precursor.to_dict(),
+            "spectrum": self.spectrum,
         }
 
 
