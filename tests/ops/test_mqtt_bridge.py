@@ -258,13 +258,41 @@ def test_records_published_while_the_bridge_is_down_are_stored_when_it_returns(
     assert refs == [f"off{i}" for i in range(5)]  # in publication order (MQTT 3.1.1 §4.6)
 
 
+class RecordsLock:
+    """Another connection that holds the records table, so the bridge's insert waits (both backends)."""
+
+    def __init__(self, db):
+        self.db, self.conn, self.tx = db, None, None
+
+    def hold(self):
+        if self.db.dialect == "sqlite":
+            import sqlite3
+
+            self.conn = sqlite3.connect(self.db.url.split("///", 1)[1], isolation_level=None, timeout=10)
+            self.conn.execute("BEGIN IMMEDIATE")
+        else:
+            from sqlalchemy import text
+
+            self.conn = self.db.write_engine.connect()
+            self.tx = self.conn.begin()
+            self.conn.execute(text("LOCK TABLE records IN EXCLUSIVE MODE"))  # reads still pass
+
+    def release(self):
+        if self.conn is None:
+            return
+        if self.tx is not None:
+            self.tx.commit()
+        else:
+            self.conn.execute("COMMIT")
+        self.conn.close()
+        self.conn = self.tx = None
+
+
 @pytest.mark.slow
 def test_broker_killed_and_restarted_mid_stream_loses_and_doubles_nothing(
         migrated_db, plant, hw_settings, durable_broker, rng, tmp_path):  # noqa: F811
     """SIGKILL of the broker while the bridge holds unacknowledged messages (its database is locked)
     and the broker holds queued ones; the gateway keeps publishing through the outage."""
-    import sqlite3
-
     n = 30
     settings = mqtt_settings(hw_settings, durable_broker)
     topic = f"halfwatch/{plant.site_id}/{plant.point_id}/records"
@@ -272,11 +300,11 @@ def test_broker_killed_and_restarted_mid_stream_loses_and_doubles_nothing(
                                f"s{i}" if i % 2 else None) for i in range(n)]  # half without client_ref
     run = Running(migrated_db, settings)
     gw = Listener(durable_broker.port)
-    lock = sqlite3.connect(settings.database_url.split("///", 1)[1], isolation_level=None, timeout=10)
+    lock = RecordsLock(migrated_db)
     try:
         mids = [gw.send(topic, p) for p in payloads[:10]]
         assert wait_until(lambda: count(migrated_db, Record) >= 3)
-        lock.execute("BEGIN IMMEDIATE")  # the bridge blocks inside a commit, holding its acks back
+        lock.hold()  # the bridge blocks inside its insert, holding its acks back
         mids += [gw.send(topic, p) for p in payloads[10:20]]
         assert wait_until(lambda: set(mids) <= gw.acked)  # the broker has taken all twenty
         threading.Event().wait(0.5)  # ... and saved them (autosave_on_changes)
@@ -284,13 +312,13 @@ def test_broker_killed_and_restarted_mid_stream_loses_and_doubles_nothing(
         mids += [gw.send(topic, p) for p in payloads[20:]]  # published while the broker is down
         durable_broker.start()
         threading.Event().wait(0.5)
-        lock.execute("COMMIT")
+        lock.release()
         assert wait_until(lambda: set(mids) <= gw.acked, timeout_s=30)
         assert wait_until(lambda: count(migrated_db, Record) == n, timeout_s=30), count(migrated_db, Record)
         assert not wait_until(lambda: count(migrated_db, Record) > n, timeout_s=1.0)
         stats = run.bridge.heartbeat.snapshot()["counters"]
     finally:
-        lock.close()
+        lock.release()
         run.stop()
         gw.close()
     # the message held in the locked commit was stored, then delivered again by the restarted broker
