@@ -1,8 +1,9 @@
 """Simulated online sensors: every few seconds one new reading goes through the HTTP API with an API key.
 
-The sensors take turns (one point per tick), follow the same scenario as the backfill (the onset on
-VP-102 keeps its level, the feed pump keeps whirling) and post raw float32 samples exactly as a gateway
-would: ``POST /api/v1/points/{id}/records`` with ``Authorization: Bearer <key>``.
+The sensors take turns (one point per tick; every 20th reading is a long diagnostic record), follow the
+same scenario as the backfill (the onset on VP-102 keeps its level, the feed pump keeps whirling) and post
+raw float32 samples exactly as a gateway would: ``POST /api/v1/points/{id}/records`` with
+``Authorization: Bearer <key>``.
 """
 
 from __future__ import annotations
@@ -18,7 +19,10 @@ from server.demo.scenario import condition, seed_for
 log = logging.getLogger("halfwatch.demo")
 
 
-def reading(asset, point, when: dt.datetime, anchor: dt.datetime):
+DIAGNOSTIC_EVERY = 20  # every 20th live reading is a long diagnostic record, the others short trend records
+
+
+def reading(asset, point, when: dt.datetime, anchor: dt.datetime, *, diagnostic: bool = False):
     """(float32 samples, query parameters) of one simulated reading at ``when``."""
     from analysis.simulate import simulate
     from server.storage.blobs import as_f4
@@ -26,7 +30,8 @@ def reading(asset, point, when: dt.datetime, anchor: dt.datetime):
     iso = when.strftime("%Y%m%dT%H%M%S.%f")
     seed = seed_for(point.name, iso)
     c = condition(asset, point, (when - anchor).total_seconds() / 86400.0, when.hour, seed)
-    rec = simulate(c.kind, seed=seed, fs_hz=point.fs_hz, duration_s=point.n_samples / point.fs_hz, **c.params)
+    n = demo_plant.record_samples(asset, point, live=diagnostic)
+    rec = simulate(c.kind, seed=seed, fs_hz=point.fs_hz, duration_s=n / point.fs_hz, **c.params)
     params = {"fs_hz": point.fs_hz, "units": "g", "measured_at": when.isoformat(),
               "speed_hz": round(c.speed_hz, 4), "speed_source": "drive",
               "client_ref": f"live:{point.name}:{iso}"}
@@ -56,7 +61,8 @@ class LiveSensors(threading.Thread):
             while not self.stop.wait(self.interval_s):
                 asset, point, pid = self.points[i % len(self.points)]
                 i += 1
-                x, params = reading(asset, point, dt.datetime.now(dt.UTC), self.anchor)
+                x, params = reading(asset, point, dt.datetime.now(dt.UTC), self.anchor,
+                                    diagnostic=i % DIAGNOSTIC_EVERY == 1)
                 try:
                     r = client.post(f"/api/v1/points/{pid}/records", params=params, content=x.tobytes())
                     ok = r.status_code in (200, 201)

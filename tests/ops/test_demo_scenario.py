@@ -30,7 +30,8 @@ def analyse(tag: str, t_days: float, hour: int = 3, *, online: bool = True) -> d
     asset = _asset(tag)
     point = next(p for p in asset.points if p.online == online)
     c = scenario.condition(asset, point, t_days, hour, seed=1234)
-    rec = simulate(c.kind, seed=7, fs_hz=point.fs_hz, duration_s=point.n_samples / point.fs_hz, **c.params)
+    n = plant.record_samples(asset, point)
+    rec = simulate(c.kind, seed=7, fs_hz=point.fs_hz, duration_s=n / point.fs_hz, **c.params)
     return analyze_record(rec.samples.astype("<f4"), point.fs_hz, units="g", machine_group=asset.group,
                           foundation=asset.foundation, forcing_hz=c.speed_hz * asset.multiplier).to_dict()
 
