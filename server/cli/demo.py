@@ -23,7 +23,7 @@ def cmd_demo(args) -> int:
     import logging
     import time
 
-    from server.demo.mailsink import free_port, start_sink
+    from server.demo.mailsink import free_port, shown, start_sink
     from server.demo.run import prepare, send_mail_now, serve
 
     if args.days <= 0 or args.days > 400:
@@ -39,8 +39,8 @@ def cmd_demo(args) -> int:
     sink = start_sink(mail_dir, port=free_port())
     db = None
     try:
-        print(f"halfwatch demo: data folder {folder} (delete it to start over)")
-        print(f"halfwatch demo: alert emails are written as .eml files to {mail_dir}")
+        print(f"halfwatch demo: data folder {shown(folder)} (delete it to start over)")
+        print(f"halfwatch demo: alert emails are written as .eml files to {shown(mail_dir)}")
         t0 = time.perf_counter()
         settings, state, db, point_ids, report = prepare(
             folder, days=args.days, port=port, smtp_port=sink.port, jobs=args.jobs)

@@ -12,7 +12,7 @@ from pathlib import Path
 from fastapi import APIRouter
 from fastapi.responses import HTMLResponse
 
-from server.demo.mailsink import list_messages, message_text
+from server.demo.mailsink import list_messages, message_text, shown
 
 CAUTION = ("Simulated plant. halfwatch is condition monitoring, not a protection or trip system; site rules, "
            "the manufacturer's limits and local codes take precedence; work on machines follows the site's "
@@ -44,7 +44,7 @@ def mail_router(folder: Path) -> APIRouter:
             f"<td><a href='/demo/mail/{html.escape(m['name'])}'>{html.escape(m['subject'])}</a></td></tr>"
             for m in rows)
         return _page("Outgoing mail", f"<p>{len(rows)} message(s), also as .eml files in "
-                     f"<code>{html.escape(str(folder))}</code>.</p><table><tr><th>date</th><th>to</th>"
+                     f"<code>{html.escape(shown(folder))}</code>.</p><table><tr><th>date</th><th>to</th>"
                      f"<th>subject</th></tr>{cells}</table>")
 
     @router.get("/demo/mail/{name}", response_class=HTMLResponse)

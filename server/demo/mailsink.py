@@ -38,6 +38,14 @@ class EmlWriter:
         return "250 Message accepted for delivery"
 
 
+def shown(path: Path) -> str:
+    """A folder as people read it: relative to the working directory when it lies below it."""
+    try:
+        return str(Path(path).resolve().relative_to(Path.cwd().resolve())) or "."
+    except ValueError:
+        return str(path)
+
+
 def free_port(host: str = "127.0.0.1") -> int:
     with socket.socket() as s:
         s.bind((host, 0))

@@ -143,13 +143,15 @@ def send_mail_now(db, settings) -> int:
 
 
 def banner(settings, state: DemoState, mail_dir: Path) -> str:
+    from server.demo.mailsink import shown
+
     base = settings.public_base_url
     logins = "\n".join(f"    {role:<11} {DEMO_USERS[role]:<6} password {state.passwords[role]}"
                        for role in ROLES)
     return (
         f"\nhalfwatch demo: {demo_plant.SITE_NAME} (an invented plant; every reading is simulated)\n"
         f"  dashboard      {base}/\n"
-        f"  outgoing mail  {base}/demo/mail   (.eml files in {mail_dir})\n"
+        f"  outgoing mail  {base}/demo/mail   (.eml files in {shown(mail_dir)})\n"
         f"  API docs       {base}/docs\n"
         f"  logins (one per role):\n{logins}\n"
         f"  live sensors post a reading every few seconds with an API key (kept in {STATE_FILE}).\n"
@@ -189,5 +191,7 @@ def serve(settings, state: DemoState, db, point_ids: dict[str, int], mail_dir: P
         stop.set()
         if sensors.is_alive():
             sensors.join(timeout=20)
+        from server.demo.mailsink import shown
+
         say(f"halfwatch demo stopped ({sensors.sent} live readings sent this run); the data stay in "
-            f"{settings.data_dir}")
+            f"{shown(settings.data_dir)}")
