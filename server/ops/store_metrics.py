@@ -3,12 +3,13 @@
 Records, jobs, alarms and the email outbox live in the database, and workers and MQTT bridges write
 their counters into ``service_heartbeats``; reading them here means a worker or bridge in another
 process (or on another host) is counted without a metrics port of its own. Counters that only grow
-(records ingested, alarm transitions) are read incrementally by primary key, so a scrape costs a
-few indexed queries however large the tables get.
+(records ingested, alarm transitions) are read incrementally by primary key (see ``_Tally``), so a
+scrape costs a few indexed queries however large the tables get.
 """
 
 from __future__ import annotations
 
+import datetime as dt
 import logging
 import threading
 from collections import defaultdict
@@ -22,22 +23,36 @@ log = logging.getLogger("halfwatch.metrics")
 
 PREFIX = "halfwatch_"
 OPEN_OUTBOX = ("pending", "sending", "failed")
+SETTLE_S = 300.0  # far longer than any write transaction (see _Tally)
 
 
 class _Tally:
-    """A running count per label of rows with id > the last id seen (rows are never renumbered)."""
+    """A running count per label of rows that only ever get added, read by primary key ranges.
+
+    Ids are handed out when a row is inserted, not when it is committed: on PostgreSQL a transaction
+    holding id 100 can commit after one holding id 101. So the settled part (ids up to ``last_id``)
+    only advances over rows older than ``SETTLE_S``, which every transaction has long committed, and
+    the younger rows above it are counted afresh at each scrape (a short primary-key range).
+    """
 
     def __init__(self):
         self.last_id = 0
-        self.counts: dict[str, int] = defaultdict(int)
+        self.settled: dict[str, int] = defaultdict(int)
 
-    def update(self, session, id_col, label_col, *where) -> dict[str, int]:
-        rows = session.execute(select(label_col, func.count(), func.max(id_col))
-                               .where(id_col > self.last_id, *where).group_by(label_col)).all()
-        for label, n, top in rows:
-            self.counts[str(label)] += n
-            self.last_id = max(self.last_id, top)
-        return self.counts
+    def update(self, session, id_col, label_col, time_col, *where) -> dict[str, int]:
+        cutoff = utcnow() - dt.timedelta(seconds=SETTLE_S)
+        top = session.scalar(select(func.max(id_col)).where(id_col > self.last_id, time_col < cutoff, *where))
+        if top is not None:
+            for label, n in session.execute(select(label_col, func.count()).where(
+                    id_col > self.last_id, id_col <= top, *where).group_by(label_col)):
+                self.settled[str(label)] += n
+            self.last_id = top
+        fresh = session.execute(select(label_col, func.count()).where(id_col > self.last_id, *where)
+                                .group_by(label_col)).all()
+        counts = dict(self.settled)
+        for label, n in fresh:
+            counts[str(label)] = counts.get(str(label), 0) + n
+        return counts
 
 
 class StoreCollector:
@@ -70,7 +85,7 @@ class StoreCollector:
         yield from self._heartbeats(s)
 
     def _records_jobs(self, s):
-        counts = self._records.update(s, Record.id, Record.origin)
+        counts = self._records.update(s, Record.id, Record.origin, Record.received_at)
         fam = CounterMetricFamily(PREFIX + "records_ingested", "records stored, by origin", labels=["origin"])
         for origin in dict.fromkeys([*ORIGINS, *counts]):
             fam.add_metric([origin], counts.get(origin, 0))
@@ -101,7 +116,7 @@ class StoreCollector:
         for level in LEVELS:
             fam.add_metric([level], levels.get(level, 0))
         yield fam
-        counts = self._transitions.update(s, AlarmEvent.id, AlarmEvent.to_level,
+        counts = self._transitions.update(s, AlarmEvent.id, AlarmEvent.to_level, AlarmEvent.created_at,
                                           AlarmEvent.kind == "transition")
         fam = CounterMetricFamily(PREFIX + "alarm_transitions", "alarm level changes, by the level entered",
                                   labels=["level"])

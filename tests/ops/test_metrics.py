@@ -210,3 +210,31 @@ def test_bridge_worker_and_scrape_on_each_backend(backend, broker, rng):  # noqa
         assert got[("halfwatch_analysis_duration_seconds_count", ())] == 3
         assert got[("halfwatch_jobs", (("state", "queued"),))] == 0
         assert got[("halfwatch_database_up", ())] == 1
+
+
+def test_records_committed_out_of_id_order_are_counted_once(migrated_db, plant, hw_settings):
+    """A transaction that got a lower id but commits later (possible on PostgreSQL) is not missed."""
+    from server.metrics import Metrics
+    from server.storage.tables import Record
+
+    def add(rid: int, age_s: float, origin: str = "api"):
+        when = dt.datetime.now(dt.UTC) - dt.timedelta(seconds=age_s)
+        with migrated_db.unit_of_work() as s:
+            s.add(Record(id=rid, point_id=plant.point_id, measured_at=T0, received_at=when, fs_hz=2560.0,
+                         n_samples=4096, units="m/s2", origin=origin, uploader="t", checksum=f"{rid:064x}"))
+
+    metrics = Metrics(migrated_db, hw_settings)
+
+    def ingested(origin="api") -> float:
+        body, _ = metrics.render(None)
+        samples = [s for f in text_string_to_metric_families(body.decode()) for s in f.samples]
+        return {(s.name, s.labels.get("origin")): s.value for s in samples}[
+            ("halfwatch_records_ingested_total", origin)]
+
+    for rid in (1, 2, 3):
+        add(rid, age_s=3600)  # settled history
+    add(10, age_s=1)
+    assert ingested() == 4
+    add(7, age_s=2, origin="mqtt")  # lower id, committed after the scrape above
+    assert ingested() == 4 and ingested("mqtt") == 1
+    assert ingested() == 4 and ingested("mqtt") == 1  # recounting the young rows never doubles them
