@@ -60,7 +60,9 @@ def read_wav(
         with warnings.catch_warnings():  # extra chunks (PEAK, cue, ...) are harmless: skip them quietly
             warnings.simplefilter("ignore", wavfile.WavFileWarning)
             fs, y = wavfile.read(io.BytesIO(raw))
-    except (ValueError, EOFError, OSError, struct.error, wave.Error) as exc:
+    except (ValueError, EOFError, OSError, struct.error, wave.Error,
+            # scipy's parser trips over some damaged headers with these (found by tests/ops/test_fuzz.py)
+            UnboundLocalError, ZeroDivisionError, IndexError, TypeError, KeyError) as exc:
         raise SignalError(
             f"not a readable WAV file ({exc}); export PCM or float WAV, or use CSV", field="file"
         ) from None
@@ -118,7 +120,11 @@ def read_csv(
         dialect = csv.Sniffer().sniff(sample, delimiters=",;\t ")
     except csv.Error:
         dialect = csv.excel
-    rows = [r for r in csv.reader(io.StringIO(text), dialect) if any(c.strip() for c in r)]
+    try:
+        rows = [r for r in csv.reader(io.StringIO(text), dialect) if any(c.strip() for c in r)]
+    except csv.Error as exc:  # e.g. a stray carriage return inside a field
+        raise SignalError(f"the CSV file cannot be parsed ({exc}); save it as plain CSV text",
+                          field="file") from None
     header: list[str] | None = None
     try:
         float(rows[0][0])
