@@ -106,6 +106,14 @@ def read_manifest(archive: Archive, limits: UploadLimits) -> list[dict]:
         text = archive.read(name).decode("utf-8-sig")
     except UnicodeDecodeError:
         raise AppError("manifest.csv is not UTF-8 text; save it as UTF-8 CSV", field="manifest") from None
+    try:
+        return _manifest_rows(name, text, limits)
+    except csv.Error as exc:  # e.g. a stray carriage return inside a field (found by tests/ops/test_fuzz.py)
+        raise AppError(f"manifest.csv cannot be parsed ({exc}); save it as plain CSV text",
+                       field="manifest") from None
+
+
+def _manifest_rows(name: str, text: str, limits: UploadLimits) -> list[dict]:
     reader = csv.DictReader(io.StringIO(text))
     header = [h.strip().lower() for h in (reader.fieldnames or [])]
     missing = [c for c in REQUIRED if c not in header]
