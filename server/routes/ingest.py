@@ -64,15 +64,38 @@ async def post_record(
         raise Unauthorized(_NO_CREDENTIALS)
     ctype = request.headers.get("content-type", "").split(";")[0].strip().lower()
     body = await request.body()
+    try:  # a refusal of the input is shown only once the caller may ingest (403 before 422)
+        parsed = _parse_body(ctype, body, fs_hz=fs_hz, units=units, measured_at=measured_at,
+                             speed_hz=speed_hz, speed_source=speed_source, client_ref=client_ref)
+    except (AppError, RequestValidationError) as exc:
+        parsed = exc
+
+    def work() -> IngestOutcome:  # authentication and storage in one thread hop
+        principal = authorize(request, "technician")
+        if isinstance(parsed, Exception):
+            raise parsed
+        samples, meta = parsed
+        return ingest_record(request.app.state.db, point_id=point_id, samples=samples, origin="api",
+                             uploader=principal.label, limits=_limits(request), site_scope=principal.site_id,
+                             **meta)
+
+    return _answer(request, await run_in_threadpool(work))
+
+
+def _parse_body(ctype: str, body: bytes, **query) -> tuple[np.ndarray, dict]:
+    """(samples, metadata) from a JSON body or a raw float32 body with the metadata in ``query``."""
+    fs_hz, units, measured_at = query["fs_hz"], query["units"], query["measured_at"]
+    speed_hz, speed_source, client_ref = query["speed_hz"], query["speed_source"], query["client_ref"]
     if ctype == "application/json":
         try:
             doc = RecordJson.model_validate_json(body)
         except ValidationError as exc:
-            raise RequestValidationError([{**e, "loc": ("body", *e["loc"])} for e in exc.errors()]) from None
-        samples = _json_samples(doc)
-        meta = dict(fs_hz=doc.fs_hz, units=doc.units, measured_at=doc.measured_at, speed_hz=doc.speed_hz,
-                    speed_source=doc.speed_source, client_ref=doc.client_ref)
-    elif ctype in RAW_TYPES or ctype == "":
+            raise RequestValidationError([{**e, "loc": ("body", *e["loc"])}
+                                          for e in exc.errors()]) from None
+        return _json_samples(doc), dict(fs_hz=doc.fs_hz, units=doc.units, measured_at=doc.measured_at,
+                                        speed_hz=doc.speed_hz, speed_source=doc.speed_source,
+                                        client_ref=doc.client_ref)
+    if ctype in RAW_TYPES or ctype == "":
         for name, value in (("fs_hz", fs_hz), ("units", units), ("measured_at", measured_at)):
             if value is None:
                 raise AppError(f"{name} is missing; with a raw body give fs_hz, units and measured_at "
@@ -80,20 +103,12 @@ async def post_record(
         if len(body) % 4:
             raise AppError(f"raw body has {len(body)} bytes, not a whole number of float32 samples; send "
                            "little-endian float32 values", field="body")
-        samples = np.frombuffer(body, dtype="<f4")
-        meta = dict(fs_hz=fs_hz, units=units, measured_at=measured_at, speed_hz=speed_hz,
-                    speed_source=speed_source, client_ref=client_ref)
-    else:
-        raise AppError(f"content type {ctype!r} is not accepted here; send application/octet-stream "
-                       "(float32) or application/json, or use .../records/file for files",
-                       status=415, code="unsupported_media_type", field="content-type")
-    def work() -> IngestOutcome:  # authentication and storage in one thread hop
-        principal = authorize(request, "technician")
-        return ingest_record(request.app.state.db, point_id=point_id, samples=samples, origin="api",
-                             uploader=principal.label, limits=_limits(request), site_scope=principal.site_id,
-                             **meta)
-
-    return _answer(request, await run_in_threadpool(work))
+        return np.frombuffer(body, dtype="<f4"), dict(fs_hz=fs_hz, units=units, measured_at=measured_at,
+                                                      speed_hz=speed_hz, speed_source=speed_source,
+                                                      client_ref=client_ref)
+    raise AppError(f"content type {ctype!r} is not accepted here; send application/octet-stream "
+                   "(float32) or application/json, or use .../records/file for files",
+                   status=415, code="unsupported_media_type", field="content-type")
 
 
 def _json_samples(doc: RecordJson) -> np.ndarray:
