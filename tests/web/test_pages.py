@@ -305,3 +305,79 @@ def test_keyboard_reaches_the_menu_and_controls_are_labelled(login, site):
         !(e.labels && e.labels.length) && !e.getAttribute('aria-label')).length""") == 0
 
 
+
+
+def test_engineer_adds_a_machine_and_point_sets_a_level_and_subscribes(login, site):
+    from server.alarms.tables import AlarmRule, AlarmSubscription
+    from server.storage.tables import Asset, Point
+
+    page = login("engineer")
+    page.goto(f"{site.base}/settings")
+    ready(page)
+    assert page.locator("#sec-users").count() == 0  # users and keys are for admins
+    page.select_option("#asset-area_id", str(site.seeded.plant.area_id))
+    page.fill("#asset-name", "Booster fan 7")
+    page.select_option("#asset-kind", "fan")
+    page.fill("#asset-nominal_speed_hz", "14.8")
+    page.click("#asset-form button[type=submit]")
+    page.wait_for_selector("#plant-list a:text('Booster fan 7')")
+    with site.db.read() as s:
+        asset = s.scalar(select(Asset).where(Asset.name == "Booster fan 7"))
+    assert asset.kind == "fan" and asset.nominal_speed_hz == 14.8
+    page.select_option("#point-asset_id", str(asset.id))
+    page.fill("#point-name", "BF7-DE-V")
+    page.select_option("#point-direction", "vertical")
+    page.click("#point-form button[type=submit]")
+    page.wait_for_selector("#rule-point option:text('Booster fan 7 · BF7-DE-V')", state="attached")
+    with site.db.read() as s:
+        point = s.scalar(select(Point).where(Point.name == "BF7-DE-V"))
+    assert point.asset_id == asset.id and point.direction == "vertical"
+    page.select_option("#rule-point", str(point.id))
+    row = page.locator("#rules-table tr[data-metric='half_order_velocity']")
+    row.wait_for()
+    row.locator("input[type=number]").nth(0).fill("0.9")
+    row.locator("input[type=number]").nth(1).fill("1.8")
+    row.locator("button").click()
+    page.wait_for_selector("#settings-done:has-text('saved')")
+    with site.db.read() as s:
+        rule = s.scalar(select(AlarmRule).where(AlarmRule.point_id == point.id,
+                                                AlarmRule.metric == "half_order_velocity"))
+    assert (rule.alert_level, rule.danger_level, rule.is_default) == (0.9, 1.8, False)
+    page.fill("#sub-email", "planner.north@example.test")
+    page.select_option("#sub-scope", f"asset:{asset.id}")
+    page.select_option("#sub-min_level", "danger")
+    page.click("#sub-form button[type=submit]")
+    page.wait_for_selector("#subs-table td:text('planner.north@example.test')")
+    with site.db.read() as s:
+        sub = s.scalar(select(AlarmSubscription)
+                       .where(AlarmSubscription.email == "planner.north@example.test"))
+    assert (sub.scope, sub.scope_id, sub.min_level) == ("asset", asset.id, "danger")
+    assert sub.timezone == "Europe/Berlin"  # the site's zone
+    no_js_errors(page)
+
+
+def test_engineer_shelves_an_alarm_until_a_time_in_the_site_zone(login, site):
+    from server.alarms.tables import AlarmState
+
+    page = login("engineer")
+    page.goto(f"{site.base}/alarms")
+    ready(page)
+    row = page.locator("tr.alarm-row").first
+    alarm_id = int(row.get_attribute("data-alarm-id"))
+    from zoneinfo import ZoneInfo
+
+    day = (dt.datetime.now(dt.UTC) + dt.timedelta(days=60)).date()
+    row.locator(".shelve-form input[name=until]").fill(f"{day.isoformat()}T08:00")
+    row.locator(".shelve-form input[name=reason]").fill("outage planned for June")
+    row.locator(".shelve-form button").click()
+    page.wait_for_selector("#alarms-done:not([hidden])")
+    with site.db.read() as s:
+        state = s.get(AlarmState, alarm_id)
+    # 08:00 wall-clock in the site's zone, converted with the IANA tz database (Python's zoneinfo)
+    wall = dt.datetime(day.year, day.month, day.day, 8, 0, tzinfo=ZoneInfo("Europe/Berlin"))
+    assert state.shelved_until == wall.astimezone(dt.UTC)
+    assert state.shelve_reason == "outage planned for June" and state.shelved_by == "engineer1"
+    page.click("#tab-shelved")
+    page.wait_for_selector(f"tr[data-alarm-id='{alarm_id}']")
+    cell = page.locator(f"tr[data-alarm-id='{alarm_id}'] .alarm-state")
+    assert f"{day.isoformat()} 08:00" in cell.inner_text()

@@ -43,7 +43,7 @@
     const sites = tree.sites.map((s) => [s.id, s.name]);
     const areas = tree.sites.flatMap((s) => s.areas.map((ar) => [ar.id, `${s.name} › ${ar.name}`]));
     const assets = allAssets().map((a) => [a.id, `${a.site.name} › ${a.name}`]);
-    const after = (msg) => async () => { done(msg); await reloadTree(); };
+    const after = (msg) => async () => { done(msg); await reloadTree(); await loadSubs(); };
     $("#plant-forms").replaceChildren(
       form("site", "Add site", [["name", "Site name"]], async (v) => { await HW.api("/api/v1/sites", { method: "POST", json: v }); await after(`Site ${v.name} added.`)(); }),
       form("area", "Add area", [["site_id", "Site", sites], ["name", "Area name"]], async (v) => { await HW.api("/api/v1/areas", { method: "POST", json: { site_id: Number(v.site_id), name: v.name } }); await after(`Area ${v.name} added.`)(); }),
@@ -87,6 +87,7 @@
     $("#subs-table tbody").replaceChildren(...d.subscriptions.map((s) => el("tr", {}, el("td", {}, s.email), el("td", {}, `${s.scope}: ${scopeName(s) || s.scope_id}`),
       el("td", {}, s.min_level), el("td", {}, s.mode === "digest" ? `daily at ${s.digest_time} ${s.timezone}` : "immediate"),
       el("td", {}, el("button", { type: "button", onclick: async () => { try { await HW.api(`/api/v1/alarms/subscriptions/${s.id}`, { method: "DELETE" }); done("Subscription ended."); loadSubs(); } catch (e) { fail(e); } } }, "End")))));
+    if (!d.subscriptions.length) $("#subs-table tbody").append(el("tr", {}, el("td", { colspan: 5 }, "No subscription yet.")));
     const scopes = [...tree.sites.map((s) => [`site:${s.id}`, `site ${s.name}`]), ...allAssets().map((a) => [`asset:${a.id}`, `machine ${a.name}`])];
     $("#sub-form").replaceChildren(form("sub", "Subscribe", [["email", "Address", "email"], ["scope", "For", scopes], ["min_level", "From level", ["alert", "danger"]], ["mode", "Mode", ["immediate", "digest"]], ["digest_time", "Digest time", "time", { value: "07:00" }]],
       async (v) => {
