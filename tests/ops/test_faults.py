@@ -56,7 +56,7 @@ def test_server_killed_during_a_burst_keeps_every_acknowledged_record(backend, p
     db, settings, plant = backend
     key, _ = create_api_key(db, name="burst", role="technician")
     server, base = procs.server(settings)
-    signals = {f"burst-{i}": tone_record(rng, n=8192, amp_half=0.01 * i) for i in range(400)}
+    signals = {f"burst-{i}": tone_record(rng, n=4096, amp_half=0.01 * i) for i in range(240)}
     answers: dict[str, object] = {}
     lock = threading.Lock()
     refs = iter(list(signals))
@@ -78,14 +78,14 @@ def test_server_killed_during_a_burst_keeps_every_acknowledged_record(backend, p
     threads = [threading.Thread(target=sender) for _ in range(6)]
     for t in threads:
         t.start()
-    wait_for(lambda: sum(1 for a in list(answers.values()) if a[0] == 201) >= 40, timeout_s=60,
-             what="40 acknowledged records")
+    wait_for(lambda: sum(1 for a in list(answers.values()) if a[0] == 201) >= 25, timeout_s=60,
+             what="25 acknowledged records")
     procs.kill(server)  # SIGKILL in the middle of the burst
     for t in threads:
         t.join(30)
     acked = {ref: rid for ref, (status, rid) in answers.items() if status == 201}
     failed = [ref for ref, (status, _) in answers.items() if status != 201]
-    assert len(acked) >= 40 and failed, "the kill should land mid-burst"
+    assert len(acked) >= 25 and failed, "the kill should land mid-burst"
     if db.is_sqlite:  # the file itself survived the kill (SQLite's own check)
         with sqlite3.connect(db.url.split("///", 1)[1]) as conn:
             assert conn.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
@@ -100,7 +100,7 @@ def test_server_killed_during_a_burst_keeps_every_acknowledged_record(backend, p
         assert sha(samples) == rec.checksum == sha(signals[ref]) and len(jobs) == 1
     # after a restart the senders retry what failed with the same reference: no duplicates
     _, base = procs.server(settings)
-    for ref in failed[:30]:
+    for ref in failed[:15]:
         r = post(base, key, plant.point_id, signals[ref], ref)
         assert r.status_code in (200, 201), r.text
     with db.read() as s:
