@@ -23,6 +23,7 @@ import os
 import queue
 import socket
 import threading
+import time
 import uuid
 from dataclasses import dataclass
 
@@ -34,6 +35,7 @@ from server.ops.heartbeat import Heartbeat
 log = logging.getLogger("halfwatch.mqtt")
 
 DB_RETRY_MAX_S = 30.0
+POINT_CACHE_S = 30.0
 
 
 @dataclass(frozen=True)
@@ -69,6 +71,7 @@ class Bridge:
         self.subscribed = threading.Event()
         self._stop = threading.Event()
         self._thread: threading.Thread | None = None
+        self._points: dict[tuple, tuple[float, tuple[int, int | None]]] = {}
         host, pid, tag = socket.gethostname(), os.getpid(), uuid.uuid4().hex[:6]
         instance = f"mqtt:{settings.mqtt_client_id}:{host}:{pid}:{tag}"
         self.heartbeat = Heartbeat(db, instance, "mqtt-bridge", interval_s=settings.heartbeat_s)
@@ -156,8 +159,7 @@ class Bridge:
             if fields is None:
                 raise AppError(f"topic {item.topic!r} does not fit the rule {self.rule.template!r}",
                                field="topic")
-            with self.db.read() as s:
-                point_id, site_id = resolve_point(s, fields)
+            point_id, site_id = self._point(fields)
             base["point_id"] = point_id
             doc = decode(item.payload, max_bytes=self.settings.max_body_bytes)
             meta = doc.meta
@@ -179,6 +181,22 @@ class Bridge:
         reply = {"ok": True, **base, "record_id": out.record_id, "job_id": out.job_id,
                  "created": out.created}
         return Handled(True, reply, status)
+
+    def _point(self, fields: dict[str, str]) -> tuple[int, int | None]:
+        """``resolve_point`` with a short cache: a lookup costs a read per message otherwise. The
+        ingestion service checks the point and its site again on every record, so a stale entry can
+        never store into another site; a renamed point is seen after ``POINT_CACHE_S``."""
+        key = tuple(sorted(fields.items()))
+        hit = self._points.get(key)
+        now = time.monotonic()
+        if hit is not None and hit[0] > now:
+            return hit[1]
+        with self.db.read() as s:
+            found = resolve_point(s, fields)
+        if len(self._points) > 10_000:
+            self._points.clear()
+        self._points[key] = (now + POINT_CACHE_S, found)
+        return found
 
     def _reject(self, base: dict, status: int, code: str, message: str, field: str | None) -> Handled:
         self.heartbeat.count("messages", outcome="rejected")
