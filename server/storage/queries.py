@@ -118,7 +118,7 @@ def trend(s, point_id: int, metric: str, t0: dt.datetime, t1: dt.datetime, max_p
              Result.measured_ts <= b)
     col = METRIC_COLUMNS.get(metric)
     if col is not None:
-        n = s.scalar(select(func.count()).where(*scope, col.is_not(None)))
+        n = s.scalar(select(func.count()).where(*scope))  # index only; NULL values are dropped below
         if n <= max_points:
             rows = s.execute(select(Result.measured_ts, col).where(*scope, col.is_not(None))
                              .order_by(Result.measured_ts)).all()
@@ -131,7 +131,7 @@ def trend(s, point_id: int, metric: str, t0: dt.datetime, t1: dt.datetime, max_p
                    func.min(Result.measured_ts), func.max(Result.measured_ts))
             .where(*scope, col.is_not(None)).group_by(bucket).order_by(bucket)
         ).all()
-        return _buckets(metric, [(r[5], r[6], r[1], r[2], r[3], r[4]) for r in rows], n)
+        return _buckets(metric, [(r[5], r[6], r[1], r[2], r[3], r[4]) for r in rows], sum(r[4] for r in rows))
     if not all(p.replace("_", "").replace("X", "").isalnum() for p in metric.split(".")):
         raise AppError(f"metric {metric!r} is not a dotted name such as overall.velocity_rms_mm_s",
                        field="metric")
