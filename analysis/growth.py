@@ -20,6 +20,9 @@ from .spectrum import f_isf
 
 BAND_ORDERS = 0.16  # default band width B in orders of 1X (0.42-0.58X), narrowed around other lines
 MIN_SNR_DB = 8.0
+#: over narrowband interference (a noise-excited mode that changes over seconds, not a white floor) the
+#: fit starts higher: its slow amplitude wander does not average out along the window
+NARROWBAND_SNR_DB = 14.0
 MIN_POINTS = 6
 SPACING_B = 1.5  # envelope samples every 1.5/B s
 TRIM_B = 4.0  # edge trim 4/B s
@@ -98,6 +101,90 @@ def ols(t: np.ndarray, y: np.ndarray) -> tuple[float, float, float]:
     lev = 1.0 / n + dt * dt / sxx
     var_hc3 = float(np.sum((dt * resid / (1.0 - np.minimum(lev, 0.999))) ** 2)) / (sxx * sxx)
     return slope, ym - slope * tm, float(np.sqrt(max(var_classic, var_hc3)))
+
+
+def _log_envelope_fit(
+    t: np.ndarray, e: np.ndarray, noise_power: float
+) -> tuple[float, float, float, np.ndarray]:
+    """OLS of ln A(t) from envelope samples |z| of a line in circular Gaussian band noise of power N.
+
+    E[ln|z|²] = ln A² + E1(A²/N) exactly (|z|²/N is non-central χ² with 2 d.o.f.), so the log-envelope
+    is corrected by E1 of the fitted SNR (two passes), which is nearly zero above 8 dB. Subtracting N
+    from |z|² before the log (pitfall P3) would instead bias the weak early points low, and the rate high.
+    Returns (λ, c, standard error of λ, corrected ln A).
+    """
+    ln_z2 = 2.0 * np.log(e)
+    ln_a = 0.5 * ln_z2
+    slope, intercept, stderr = ols(t, ln_a)
+    if noise_power > 0:
+        for _ in range(2):
+            rho = np.exp(2.0 * (intercept + slope * t)) / noise_power
+            ln_a = 0.5 * (ln_z2 - special.exp1(np.maximum(rho, 1e-3)))
+            slope, intercept, stderr = ols(t, ln_a)
+    return slope, intercept, stderr, ln_a
+
+
+def _half_slope_gap(t: np.ndarray, y: np.ndarray) -> float:
+    """|slope of the first half - slope of the second half|: curvature the straight line cannot follow
+    (saturation setting in, the decaying Floquet companion), added to the interval as model error."""
+    h = len(t) // 2
+    if h < MIN_POINTS // 2 + 2:
+        return 0.0
+    return abs(ols(t[:h], y[:h])[0] - ols(t[h:], y[h:])[0])
+
+
+def hac_stderr(t: np.ndarray, resid: np.ndarray) -> float:
+    """Newey-West (1987) standard error of an OLS slope with Bartlett weights.
+
+    The envelope of a line growing out of narrowband noise has residuals correlated over the noise's
+    coherence time, far beyond the 1.5/B spacing (methods note §5.4); the lag window is the larger of
+    the usual rule 4(n/100)^(2/9) and three times the lag where the residual autocorrelation first falls
+    below 0.1 (the Bartlett weights underweight a short window), at most n/4.
+    """
+    n = len(t)
+    dt = t - t.mean()
+    u = dt * resid
+    r = resid - resid.mean()
+    var0 = float(np.dot(r, r))
+    lags = int(np.floor(4.0 * (n / 100.0) ** (2.0 / 9.0)))
+    if var0 > 0:
+        acf = np.correlate(r, r, mode="full")[n - 1 : n - 1 + n // 4 + 1] / var0
+        below = np.flatnonzero(acf < 0.1)
+        lags = max(lags, 3 * int(below[0]) if len(below) else n // 4)
+    lags = min(lags, n // 4)
+    s = float(np.dot(u, u))
+    for j in range(1, lags + 1):
+        s += 2.0 * (1.0 - j / (lags + 1)) * float(np.dot(u[j:], u[:-j]))
+    sxx = float(np.dot(dt, dt))
+    return float(np.sqrt(max(s, 0.0)) / sxx) * np.sqrt(n / max(n - 2, 1))
+
+
+def _interference_power(t: np.ndarray, p: np.ndarray) -> float:
+    """In-band power under the growing line: fit ln p = ln(N + e^{c + 2λt}) to the block powers p up to the
+    end of the exponential stage (least squares in the log domain); returns N (0 when not determined)."""
+    from scipy.optimize import least_squares
+
+    if len(p) < MIN_POINTS + 2 or np.any(p <= 0):
+        return 0.0
+    lp = np.log(p)
+    head = max(3, len(p) // 8)
+    n0 = float(np.median(p[:head]))
+    slope0 = max(float(np.polyfit(t[-2 * head :], lp[-2 * head :], 1)[0]), 1e-6)
+    c0 = float(lp[-1] - slope0 * t[-1])
+
+    def resid(q):
+        return np.logaddexp(q[0], q[1] + q[2] * t) - lp
+
+    try:
+        fit = least_squares(resid, [np.log(n0), c0, slope0], method="lm", max_nfev=200)
+    except ValueError:
+        return 0.0
+    ln_n, _, slope = fit.x
+    if not fit.success or slope <= 0:
+        return 0.0
+    # N is determined only when the record shows blocks at the interference level before the growth
+    crossing = (ln_n - fit.x[1]) / slope
+    return float(np.exp(ln_n)) if crossing > t[0] + (t[1] - t[0]) else 0.0
 
 
 def _prefix_line_sse(t: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -249,24 +336,45 @@ def estimate_growth(
     if levelled:
         split = _trim_knee(t_blk[r0 : r0 + split], np.log(blk[r0 : r0 + split]))
     r1 = r0 + split
+    # the line may grow out of narrowband noise (a noise-excited mode, methods note §6.2) that lies well
+    # above the broadband floor: measure the in-band interference from the record itself (pitfall P3)
+    interference = _interference_power(t_blk[:r1], blk[:r1] ** 2)
+    noise_power = max(2.0 * noise_var, interference)
+    if interference > 2.0 * noise_var:
+        ok = blk[:r1] ** 2 >= noise_power * (1.0 + 10 ** (NARROWBAND_SNR_DB / 10))
+        ok[1:-1] |= ok[:-2] & ok[2:]
+        q0, q1 = _longest_run(np.append(ok, False)[:r1])
+        if q1 == r1 and q1 - q0 >= MIN_POINTS:
+            r0 = max(r0, q0)
     i0, i1 = trim + r0 * n_block, trim + r1 * n_block
     rate0 = ols(t_blk[r0:r1], np.log(blk[r0:r1]))[0]
     first, henv = _hilbert_envelope(y, i0, i1, fs, float(rate0), int(np.ceil(2.0 / b * fs)))
     idx = np.arange(i0 + n_block // 2, i1, n_block)
-    # pitfall P3: E|z|² = A² + 2σ_b² for a line in band noise, so remove the floor's share of the power
-    e = np.sqrt(np.maximum(henv[idx - first] ** 2 - 2.0 * noise_var, 0.0))
     t = idx / fs
+    e = henv[idx - first]
     good = e > 0
     t, e = t[good], e[good]
     if len(t) < MIN_POINTS:
         return not_estimated("too few envelope points above the noise for a fit", (lo, hi)), env_t, env
-    slope, intercept, stderr = ols(t, np.log(e))
+    slope, intercept, stderr, ln_a = _log_envelope_fit(t, e, noise_power)
+    if slope > 0 and noise_power > 0:
+        # start where the fitted line, not the noisy data, passes the SNR gate: blocks that passed the gate
+        # early because noise lifted them would bias the start high and the rate low (selection bias)
+        gate_db = NARROWBAND_SNR_DB if noise_power > 2.0 * noise_var else MIN_SNR_DB
+        t_gate = (0.5 * np.log(noise_power * 10 ** ((gate_db + 6.0) / 10)) - intercept) / slope
+        keep = t >= t_gate
+        if MIN_POINTS <= np.count_nonzero(keep) < len(t):
+            t, e = t[keep], e[keep]
+            i0 = int(round(t[0] * fs)) - n_block // 2
+            slope, intercept, stderr, ln_a = _log_envelope_fit(t, e, noise_power)
+    stderr = max(stderr, hac_stderr(t, ln_a - intercept - slope * t))
+    stderr = float(np.hypot(stderr, 0.5 * _half_slope_gap(t, ln_a)))
     half = _t975(len(t) - 2) * stderr
     ci = (slope - half, slope + half)
     state = "growing" if ci[0] > 0 else "decaying" if ci[1] < 0 else "steady"
     onset = None
     if state == "growing":
-        t_cross = (0.5 * np.log(2.0 * noise_var) - intercept) / slope if noise_var > 0 else -1.0
+        t_cross = (0.5 * np.log(noise_power) - intercept) / slope if noise_power > 0 else -1.0
         onset = float(t_cross) if 0.0 <= t_cross <= n / fs else None
     g = Growth(
         rate_per_s=float(slope),
