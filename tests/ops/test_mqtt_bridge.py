@@ -395,3 +395,26 @@ def test_bridge_process_killed_mid_stream_then_restarted_stores_each_record_once
     assert refs == [f"p{i}" for i in range(n)]
     assert count(migrated_db, Job) == n
     assert stopped == 1  # the killed one never said goodbye; the terminated one did
+
+
+def test_gateway_script_runs_standalone_in_demo_mode_and_reports_rejects(
+        migrated_db, plant, hw_settings, broker):  # noqa: F811
+    import subprocess
+    import sys
+
+    run = Running(migrated_db, mqtt_settings(hw_settings, broker))
+    script = str(ROOT / "examples" / "gateway_publish.py")
+    base = [sys.executable, script, "--port", str(broker.port), "--timeout-s", "30"]
+    try:
+        ok = subprocess.run([*base, "--topic", f"halfwatch/{plant.site_id}/{plant.point_id}/records",
+                             "--demo", "2", "--binary", "--measured-at", T0.isoformat()],
+                            capture_output=True, text=True, timeout=90, cwd="/")  # run from elsewhere
+        bad = subprocess.run([*base, "--topic", f"halfwatch/{plant.site_id}/{plant.point_id}/records",
+                              "--demo", "1", "--fs-hz", "5", "--measured-at", T0.isoformat()],
+                             capture_output=True, text=True, timeout=90, cwd="/")
+    finally:
+        run.stop()
+    assert ok.returncode == 0, ok.stderr
+    assert ok.stdout.count("stored as record") == 2
+    assert bad.returncode == 1 and "rejected (fs_hz)" in bad.stderr
+    assert count(migrated_db, Record) == 2
