@@ -13,7 +13,7 @@ from contextlib import asynccontextmanager
 
 from fastapi import FastAPI
 
-from server.errors import PayloadTooLarge, error_body, install_error_handlers
+from server.errors import ERROR_RESPONSES, PayloadTooLarge, error_body, install_error_handlers
 from server.settings import Settings
 from server.storage import Database
 
@@ -96,6 +96,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         version="0.1.0",
         summary="Condition monitoring for subharmonic (0.5X) onset. Not a protection or trip system.",
         lifespan=lifespan,
+        responses=ERROR_RESPONSES,
     )
     app.state.settings = settings
     app.state.db = db

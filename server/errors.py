@@ -13,10 +13,12 @@ from __future__ import annotations
 
 import logging
 import uuid
+from typing import Literal
 
 from fastapi import FastAPI, Request
 from fastapi.exceptions import RequestValidationError
 from fastapi.responses import JSONResponse, Response
+from pydantic import BaseModel
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
 log = logging.getLogger("halfwatch.errors")
@@ -66,6 +68,29 @@ class PayloadTooLarge(AppError):
 class Unavailable(AppError):
     status = 503
     code = "unavailable"
+
+
+class ErrorDetail(BaseModel):
+    code: str
+    message: str
+    field: str | None = None
+
+
+class ErrorBody(BaseModel):
+    """The one error shape, as documented in the OpenAPI schema for every operation."""
+
+    ok: Literal[False]
+    error: ErrorDetail
+    status: int
+
+
+_DOCUMENTED = {400: "Malformed request (body not parseable, bad value)", 401: "Not logged in / no API key",
+               403: "Role, site scope or CSRF token does not allow this", 404: "No such object",
+               409: "Conflicts with what is stored", 413: "Body or upload too large",
+               415: "Unsupported content type", 422: "Invalid field (the message names it and the fix)",
+               429: "Too many failed logins; see Retry-After",
+               503: "Overloaded, or the database is busy or full; nothing stored; see Retry-After"}
+ERROR_RESPONSES = {status: {"model": ErrorBody, "description": text} for status, text in _DOCUMENTED.items()}
 
 
 def error_body(status: int, code: str, message: str, field: str | None = None) -> dict:
@@ -163,6 +188,11 @@ def install_error_handlers(app: FastAPI) -> None:
                             "the database is busy or full; nothing was stored, retry shortly"),
                             {"Retry-After": "5"})
         return _unexpected(request, exc)
+
+    @app.exception_handler(OverflowError)
+    async def _overflow(request: Request, exc: OverflowError):  # e.g. an id beyond the database's integers
+        return _respond(request, 400, error_body(400, "bad_request",
+                        "a number in the request is too large to be stored or looked up; check the ids"))
 
     @app.exception_handler(Exception)
     async def _any_error(request: Request, exc: Exception):

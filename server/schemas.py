@@ -3,11 +3,15 @@
 from __future__ import annotations
 
 import datetime as dt
-from typing import Literal
+from typing import Annotated, Literal
 
 from pydantic import AwareDatetime, BaseModel, ConfigDict, Field
 
 MachineKind = Literal["pump", "fan", "compressor", "gearbox", "reciprocating_compressor", "engine", "other"]
+
+
+# a row id: positive and within the 64-bit signed range every backend stores (a larger one was a 500)
+DbId = Annotated[int, Field(ge=1, le=2**63 - 1, strict=True)]
 
 
 class Strict(BaseModel):
@@ -39,13 +43,13 @@ class SiteIn(Strict):
 
 
 class AreaIn(Strict):
-    site_id: int
+    site_id: DbId
     name: str = Field(min_length=1, max_length=120)
     description: str = ""
 
 
 class AssetIn(Strict):
-    area_id: int
+    area_id: DbId
     name: str = Field(min_length=1, max_length=120)
     kind: MachineKind = "other"
     rated_power_kw: float | None = Field(default=None, gt=0)
@@ -58,7 +62,7 @@ class AssetIn(Strict):
 
 
 class PointIn(Strict):
-    asset_id: int
+    asset_id: DbId
     name: str = Field(min_length=1, max_length=120)
     location: str = ""
     direction: Literal["horizontal", "vertical", "axial", "radial", "other"] = "radial"
@@ -68,12 +72,12 @@ class PointIn(Strict):
 
 
 class RouteStopIn(Strict):
-    point_id: int
+    point_id: DbId
     due_interval_h: float = Field(default=720.0, gt=0, description="hours between readings")
 
 
 class RouteIn(Strict):
-    site_id: int
+    site_id: DbId
     name: str = Field(min_length=1, max_length=120)
     description: str = ""
     stops: list[RouteStopIn] = Field(default_factory=list, max_length=2000)
@@ -89,7 +93,7 @@ class UserIn(Strict):
 class ApiKeyIn(Strict):
     name: str = Field(min_length=1, max_length=120)
     role: Literal["viewer", "technician", "engineer", "admin"] = "technician"
-    site_id: int | None = None
+    site_id: DbId | None = None
 
 
 def utc(value: dt.datetime) -> str:

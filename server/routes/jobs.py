@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from typing import Literal
 
-from fastapi import APIRouter, Depends, Query, Request
+from fastapi import APIRouter, Depends, Path, Query, Request
 from sqlalchemy import func, select
 
 from server.errors import NotFound
@@ -36,7 +36,8 @@ def _visible(s, principal, record_id: int) -> bool:
 
 
 @router.get("/jobs/{job_id}", summary="One analysis job")
-def get_job(request: Request, job_id: int, principal: Principal = Depends(require_role("viewer"))):
+def get_job(request: Request, job_id: int = Path(ge=1, le=2**63 - 1),
+            principal: Principal = Depends(require_role("viewer"))):
     with request.app.state.db.read() as s:
         job = s.get(Job, job_id)
         if job is None:
