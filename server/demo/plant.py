@@ -78,7 +78,7 @@ ASSETS: tuple[AssetSpec, ...] = (
               one_x_mm_s=1.3, description="Vertical turbine pump on a variable-speed drive.",
               points=_pts("VP-102", ("motor top", "horizontal", True), ("motor top", "vertical", False))),
     AssetSpec("Raw water intake", "Intake pump VP-103", "pump", "looseness", 24.75, 160, "flexible",
-              one_x_mm_s=1.5, description="Vertical turbine pump on a tall motor stand.",
+              one_x_mm_s=3.4, description="Vertical turbine pump on a tall motor stand.",
               points=_pts("VP-103", ("motor top", "horizontal", False), ("motor base", "horizontal", False))),
     AssetSpec("Raw water intake", "Screen wash pump SW-1", "pump", "healthy", 49.3, 22, one_x_mm_s=1.0,
               points=_pts("SW-1", ("pump drive end", "horizontal", False),

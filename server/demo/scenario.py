@@ -28,7 +28,7 @@ ONSET_RATIO_START, ONSET_RATIO_PER_DAY, ONSET_RATIO_MAX = 0.90, 0.016, 1.6
 ONSET_VELOCITY_SCALE = 8.2  # mm/s r.m.s. of 0.5X at h/h_c = 2
 RESTART_HOUR = 6
 WHIRL_START_DAY = -61.0  # the feed pump's bearing change
-LOOSENESS_MM_S = 3.0
+LOOSENESS_MM_S = 2.7
 START_DAY = -90.0
 
 
@@ -83,7 +83,7 @@ def condition(asset: AssetSpec, point: PointSpec, t_days: float, hour: int, seed
         p = _background(asset, point, forcing, seed)
         v = LOOSENESS_MM_S * _jitter(seed, 3, 0.08) * (1.0 if "top" in point.location else 0.6)
         a = g_peak(v, 0.5 * forcing)
-        p.update(sub_amp_g=a, amp_1p5x_g=0.9 * a, amp_2p5x_g=0.5 * a)
+        p.update(sub_amp_g=a, amp_1p5x_g=0.6 * a, amp_2p5x_g=0.3 * a)
         return Condition("half-order", speed, p, "loose motor-stand bolt")
     scale = 1.0
     if asset.name.endswith("ID-1"):
