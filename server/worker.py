@@ -18,7 +18,6 @@ import threading
 import time
 import uuid
 import zlib
-from collections import deque
 from dataclasses import dataclass
 from types import SimpleNamespace
 
@@ -125,10 +124,44 @@ def forcing_args(record: Record, asset: Asset) -> dict:
     return {"nominal_hz": asset.nominal_speed_hz * mult}
 
 
-_RECORD = select(Record.__table__).where(Record.__table__.c.id == bindparam("rid"))
-_WAVEFORM = select(Waveform.codec, Waveform.data).where(Waveform.record_id == bindparam("rid"))
-_ASSET = (select(Asset.__table__).join(Point, Point.asset_id == Asset.id)
-          .where(Point.id == bindparam("pid")))
+_RT = Record.__table__
+_LOAD = (select(_RT, Waveform.codec.label("wf_codec"), Waveform.data.label("wf_data"))
+         .join(Waveform, Waveform.record_id == _RT.c.id)
+         .where(_RT.c.id.in_(bindparam("rids", expanding=True))))
+_ASSETS = (select(Point.id.label("of_point"), Asset.__table__).join(Point, Point.asset_id == Asset.id)
+           .where(Point.id.in_(bindparam("pids", expanding=True))))
+
+
+def load_many(db, record_ids) -> dict[int, tuple | Exception]:
+    """{record id: (record row, asset row, samples) or the DamagedWaveform/ValueError that load raises}.
+
+    Two reads for the whole batch (records with their waveforms, then the assets of their points). Raw
+    samples are a read-only view of the stored bytes (no copy); compacted ones are decoded once."""
+    with db.read_engine.connect() as conn:
+        records = conn.execute(_LOAD, {"rids": list(record_ids)}).all()
+        pids = sorted({r.point_id for r in records})
+        assets = {a.of_point: a for a in conn.execute(_ASSETS, {"pids": pids})}
+    out: dict[int, tuple | Exception] = {}
+    for record in records:
+        try:
+            out[record.id] = (record, assets[record.point_id], _samples(record))
+        except (DamagedWaveform, ValueError) as exc:
+            out[record.id] = exc
+    return out
+
+
+def _samples(record):
+    """The checked samples of a row with ``wf_codec``/``wf_data`` (see ``load``)."""
+    try:
+        samples = blobs.decode_waveform(record.wf_codec, record.wf_data)
+    except (ValueError, zlib.error) as exc:
+        if str(exc).startswith("unknown waveform codec"):
+            raise  # written by a newer version, perhaps: retried, another worker may know the codec
+        raise DamagedWaveform(f"record {record.id}: the stored waveform cannot be decoded ({exc})") from None
+    if record.checksum and blobs.checksum(samples) != record.checksum:
+        raise DamagedWaveform(f"record {record.id}: the stored waveform does not match its ingest checksum "
+                              "(damaged in storage); re-send the record or restore it from a backup")
+    return samples
 
 
 def load(db, record_id: int):
@@ -136,20 +169,12 @@ def load(db, record_id: int):
 
     The samples are checked against the checksum taken at ingest: a damaged blob raises DamagedWaveform
     instead of being analysed as if it were a measurement."""
-    with db.read_engine.connect() as conn:
-        record = conn.execute(_RECORD, {"rid": record_id}).one()
-        wf = conn.execute(_WAVEFORM, {"rid": record_id}).one()
-        asset = conn.execute(_ASSET, {"pid": record.point_id}).one()
-    try:
-        samples = blobs.decode_waveform(wf.codec, wf.data)
-    except (ValueError, zlib.error) as exc:
-        if str(exc).startswith("unknown waveform codec"):
-            raise  # written by a newer version, perhaps: retried, another worker may know the codec
-        raise DamagedWaveform(f"record {record_id}: the stored waveform cannot be decoded ({exc})") from None
-    if record.checksum and blobs.checksum(samples) != record.checksum:
-        raise DamagedWaveform(f"record {record_id}: the stored waveform does not match its ingest checksum "
-                              "(damaged in storage); re-send the record or restore it from a backup")
-    return record, asset, samples
+    got = load_many(db, [record_id]).get(record_id)
+    if got is None:
+        raise LookupError(f"record {record_id} or its waveform is missing")
+    if isinstance(got, Exception):
+        raise got
+    return got
 
 
 def analyse(record: Record, asset: Asset, samples):
@@ -160,7 +185,7 @@ def analyse(record: Record, asset: Asset, samples):
 
 
 def result_values(record, analysis) -> tuple[dict, dict]:
-    """(column values of the ``results`` row, the analysis as a dict)."""
+    """(column values of the ``results`` row, the analysis as a dict); the JSON is encoded here, once."""
     data = analysis.to_dict()
     f, a = max_hold(analysis.spectrum.freqs_hz, analysis.spectrum.amplitude, SPECTRUM_POINTS)
     et, ev = max_hold(analysis.envelope_t_s, analysis.envelope, ENVELOPE_POINTS)
@@ -169,7 +194,7 @@ def result_values(record, analysis) -> tuple[dict, dict]:
     values = dict(
         record_id=record.id, point_id=record.point_id, measured_ts=record.measured_at.timestamp(),
         analysis_version=str(data.get("version", "")), current=True, created_at=utcnow(),
-        data=json.dumps(data),
+        data=json.dumps(data, separators=(",", ":"), check_circular=False),
         spectrum=pack_arrays({"units": record.units, "amplitude": "peak"}, freqs_hz=f, amplitude=a,
                              envelope_t_s=et, envelope=ev),
         forcing_hz=forcing.get("frequency_hz"), sub_detected=bool(sub.get("detected")),
@@ -181,6 +206,11 @@ def result_values(record, analysis) -> tuple[dict, dict]:
         zone=overall.get("zone"), quality_ok=bool((data.get("quality") or {}).get("ok", True)),
     )
     return values, data
+
+
+def result_row(record, analysis) -> SimpleNamespace:
+    """The ``results`` row the worker would insert, as attributes (``data`` is the JSON text)."""
+    return SimpleNamespace(**result_values(record, analysis)[0])
 
 
 _FENCE = update(Job.__table__).where(_J.id == bindparam("jid"), _J.worker_id == bindparam("wid"),
@@ -208,25 +238,76 @@ _SUPERSEDE = (update(Result.__table__).where(Result.__table__.c.record_id == bin
 _INSERT_RESULT = insert(Result.__table__).returning(Result.__table__.c.id)
 
 
-def store(db, c: Claim, record, analysis, settings=None, samples=None) -> int:
+@dataclass
+class Analysed:
+    """One claimed job ready to store: its record row, the analysis and the samples (for compaction)."""
+
+    claim: Claim
+    record: object
+    analysis: object
+    samples: object = None
+
+
+def _prepare(item: Analysed) -> tuple[dict, dict, tuple | None]:
+    """Everything that needs no database, done before the write transaction opens."""
+    values, data = result_values(item.record, item.analysis)
+    packed = None
+    if item.samples is not None and getattr(item.record, "wf_codec", blobs.RAW_CODEC) == blobs.RAW_CODEC:
+        packed = blobs.encode_waveform(item.samples)
+    return values, data, packed
+
+
+def _store_one(s, item: Analysed, prepared, settings, alarms: bool) -> int:
+    values, data, packed = prepared
+    conn, record = s.connection(), item.record
+    _fence(conn, item.claim, _DONE)
+    if packed is not None:
+        conn.execute(_COMPACT, {"rid": record.id, "codec": packed[0], "data": packed[1]})
+    conn.execute(_SUPERSEDE, {"rid": record.id})
+    result_id = conn.execute(_INSERT_RESULT, values).scalar_one()
+    if alarms:
+        from server.alarms import evaluate_result
+
+        evaluate_result(s, record, SimpleNamespace(**{**values, "id": result_id, "data": data}),
+                        settings=settings)
+    return result_id
+
+
+def store(db, c: Claim, record, analysis, settings=None, samples=None, *, alarms: bool = True) -> int:
     """Store the result, mark the job done and run the alarm rules, all in one transaction.
 
     With ``samples``, a waveform still stored raw is compacted in the same transaction. The alarm rules get
-    ``record`` and a ``result`` object with the ``results`` columns as attributes (``data`` as a dict)."""
-    from server.alarms import evaluate_result
-
-    packed = blobs.encode_waveform(samples) if samples is not None else None
-    values, data = result_values(record, analysis)
+    ``record`` and a ``result`` object with the ``results`` columns as attributes (``data`` as a dict).
+    ``alarms=False`` skips the rules (benchmarks only: it measures the worker's own share)."""
+    item = Analysed(c, record, analysis, samples)
+    prepared = _prepare(item)
     with db.unit_of_work() as s:
-        conn = s.connection()
-        _fence(conn, c, _DONE)
-        if packed is not None:
-            conn.execute(_COMPACT, {"rid": record.id, "codec": packed[0], "data": packed[1]})
-        conn.execute(_SUPERSEDE, {"rid": record.id})
-        result_id = conn.execute(_INSERT_RESULT, values).scalar_one()
-        evaluate_result(s, record, SimpleNamespace(**{**values, "id": result_id, "data": data}),
-                        settings=settings)
-        return result_id
+        return _store_one(s, item, prepared, settings, alarms)
+
+
+def store_batch(db, items: list[Analysed], settings=None, *, alarms: bool = True) -> list[int | Exception]:
+    """Store several results in one write transaction, each job in its own savepoint.
+
+    Per item, the result (or the exception that rolled back its savepoint, e.g. LeaseLost): one job's
+    failure never undoes another's result, and each result stays atomic with its alarm evaluation and
+    its job's ``done``. If the commit itself fails, every item gets that exception."""
+    prepared = [_prepare(item) for item in items]
+    out: list[int | Exception] = []
+    try:
+        with db.unit_of_work() as s:
+            for item, prep in zip(items, prepared, strict=True):
+                try:
+                    with s.begin_nested():
+                        out.append(_store_one(s, item, prep, settings, alarms))
+                except LeaseLost as exc:
+                    out.append(exc)
+                except Exception as exc:
+                    log.exception("job %s: storing the result failed", item.claim.job_id)
+                    out.append(exc)
+    except Exception as exc:  # the commit (or opening the transaction) failed: nothing was stored
+        log.exception("storing a batch of %d results failed", len(items))
+        return [exc] * len(items)
+    return out
 
 
 def fail(db, c: Claim, error: str, *, permanent: bool, settings) -> None:
@@ -257,48 +338,75 @@ def run_once(db, settings, worker_id: str | None = None, heartbeat=None) -> bool
     return True
 
 
-def process(db, settings, c: Claim, heartbeat=None) -> None:
+def process(db, settings, c: Claim, heartbeat=None, *, alarms: bool = True) -> None:
     """Analyse one claimed job and store the result (or record the failure)."""
+    process_batch(db, settings, [c], heartbeat, alarms=alarms)
+
+
+def _analyse_claims(db, settings, claims: list[Claim], heartbeat) -> list[Analysed]:
+    """Load the batch in one read and analyse each record; failures are recorded on their jobs."""
     from analysis.errors import SignalError
 
     try:
-        record, asset, samples = load(db, c.record_id)
-        t0 = time.perf_counter()
-        analysis = analyse(record, asset, samples)
-        if heartbeat is not None:
-            heartbeat.observe("analysis_seconds", time.perf_counter() - t0)
-    except DamagedWaveform as exc:  # damage does not heal: no retry, the job keeps the reason
-        log.error("job %s: %s", c.job_id, exc)
-        fail(db, c, str(exc), permanent=True, settings=settings)
+        loaded = load_many(db, [c.record_id for c in claims])
+    except Exception as exc:  # the read itself failed: every job is retried later
+        log.exception("loading %d records failed", len(claims))
+        for c in claims:
+            fail(db, c, f"{type(exc).__name__}: {exc}", permanent=False, settings=settings)
+        return []
+    ready = []
+    for c in claims:
+        got = loaded.get(c.record_id)
+        try:
+            if got is None:
+                raise LookupError(f"record {c.record_id} or its waveform is missing")
+            if isinstance(got, Exception):
+                raise got
+            record, asset, samples = got
+            t0 = time.perf_counter()
+            analysis = analyse(record, asset, samples)
+            if heartbeat is not None:
+                heartbeat.observe("analysis_seconds", time.perf_counter() - t0)
+        except DamagedWaveform as exc:  # damage does not heal: no retry, the job keeps the reason
+            log.error("job %s: %s", c.job_id, exc)
+            fail(db, c, str(exc), permanent=True, settings=settings)
+            continue
+        except SignalError as exc:  # the same record fails the same way every time: no retry
+            fail(db, c, f"{getattr(exc, 'field', 'samples')}: {exc}", permanent=True, settings=settings)
+            continue
+        except Exception as exc:
+            log.exception("job %s attempt %s failed", c.job_id, c.attempt)
+            fail(db, c, f"{type(exc).__name__}: {exc}", permanent=False, settings=settings)
+            continue
+        ready.append(Analysed(c, record, analysis, samples))
+    return ready
+
+
+def process_batch(db, settings, claims: list[Claim], heartbeat=None, *, alarms: bool = True) -> None:
+    """Analyse claimed jobs (outside any transaction) and store their results in one write transaction."""
+    ready = _analyse_claims(db, settings, claims, heartbeat)
+    if not ready:
         return
-    except SignalError as exc:  # the same record fails the same way every time: no retry
-        fail(db, c, f"{getattr(exc, 'field', 'samples')}: {exc}", permanent=True, settings=settings)
-        return
-    except Exception as exc:
-        log.exception("job %s attempt %s failed", c.job_id, c.attempt)
-        fail(db, c, f"{type(exc).__name__}: {exc}", permanent=False, settings=settings)
-        return
-    try:
-        store(db, c, record, analysis, settings, samples=samples)
-    except LeaseLost as exc:
-        log.warning("%s; result discarded", exc)
-    except Exception as exc:
-        log.exception("job %s: storing the result failed", c.job_id)
-        fail(db, c, f"storing the result failed: {type(exc).__name__}: {exc}", permanent=False,
-             settings=settings)
+    for item, outcome in zip(ready, store_batch(db, ready, settings, alarms=alarms), strict=True):
+        if isinstance(outcome, LeaseLost):
+            log.warning("%s; result discarded", outcome)
+        elif isinstance(outcome, Exception):
+            fail(db, item.claim, f"storing the result failed: {type(outcome).__name__}: {outcome}",
+                 permanent=False, settings=settings)
 
 
 def run_forever(db, settings, *, stop: threading.Event | None = None, max_jobs: int | None = None,
-                worker_id: str | None = None) -> int:
+                worker_id: str | None = None, alarms: bool = True) -> int:
     """Work until ``stop`` is set (or ``max_jobs`` jobs are done); returns the number of jobs handled.
 
-    Jobs are claimed ``settings.worker_batch`` at a time (one claim transaction for several records)."""
+    Jobs are claimed ``settings.worker_batch`` at a time: one claim statement, one read for their records
+    and one write transaction for their results (a savepoint per job). ``alarms=False`` skips the alarm
+    rules; only benchmarks pass it, to show the worker's own share of the time."""
     from sqlalchemy.exc import OperationalError
 
     stop = stop or threading.Event()
     worker_id = worker_id or default_worker_id()
     handled = 0
-    pending: deque[Claim] = deque()
     log.info("worker %s started", worker_id)
     from server.ops.heartbeat import Heartbeat  # /readyz and /metrics read it
 
@@ -309,14 +417,13 @@ def run_forever(db, settings, *, stop: threading.Event | None = None, max_jobs: 
         while not stop.is_set() and (max_jobs is None or handled < max_jobs):
             beat.beat("running")
             try:
-                if not pending:
-                    want = settings.worker_batch if max_jobs is None else min(settings.worker_batch,
-                                                                              max_jobs - handled)
-                    pending.extend(claim_batch(db, worker_id, lease_s=settings.lease_s,
-                                               max_attempts=settings.max_attempts, n=want))
-                if pending:
-                    process(db, settings, pending.popleft(), beat)
-                    handled += 1
+                want = settings.worker_batch if max_jobs is None else min(settings.worker_batch,
+                                                                          max_jobs - handled)
+                claims = claim_batch(db, worker_id, lease_s=settings.lease_s,
+                                     max_attempts=settings.max_attempts, n=want)
+                if claims:
+                    process_batch(db, settings, claims, beat, alarms=alarms)
+                    handled += len(claims)
                     continue
             except OperationalError as exc:  # database busy or unreachable: wait, then try again
                 log.warning("worker %s: database unavailable (%s)", worker_id, exc.orig)
