@@ -2,19 +2,26 @@
 
 from __future__ import annotations
 
+from dataclasses import replace
+
 import numpy as np
 
 from .conditioning import band_velocity_rms, detrend, velocity_mm_s
-from .detect import detect_subharmonic, other_tones
+from .detect import HALF_ORDER_TOL, detect_subharmonic, other_tones
 from .errors import SignalError
 from .forcing import line_near, refine_forcing
 from .growth import band_signal, chart_envelope, estimate_growth, growth_band, not_estimated
 from .precursor import bump_test
 from .quality import quality_flags
 from .results import Forcing, OrderLine, Overall, Quality, RecordAnalysis
+from .segments import LAST_SEGMENTS, last_segments_spectrum, one_x_spread
 from .severity import ZONE_STANDARD, iso_band, waveform_stats, zone, zone_limits
 from .spectrum import calibrated_spectrum, choose_nperseg, power
 from .validate import normalize_units, validate_samples
+
+#: 1X wander (max - min over the record, in orders) that invalidates the half-order reading: 0.5X moves by
+#: half the 1X change, so a 2 % wander smears it over ±0.01 orders, the whole ±2 % half-order window
+SPEED_DRIFT_ORDERS = 2 * HALF_ORDER_TOL
 
 
 def _check_speed(value, name: str, fs: float) -> float:
@@ -89,9 +96,26 @@ def analyze_record(
         forcing = refine_forcing(spec, speed)
     f1 = forcing.frequency_hz
 
+    # two looks, each at half the record's false-alarm probability: the full average, then the last
+    # segments on their own (a line emerging near the end is diluted in the full average)
     sub = detect_subharmonic(
-        spec, f1, units, pfa, bump_test=lambda k, f: bump_test(x, fs, spec, k, f, f1)
+        spec, f1, units, pfa / 2, bump_test=lambda k, f: bump_test(x, fs, spec, k, f, f1)
     )
+    late = None if sub.detected else last_segments_spectrum(x, fs, spec)
+    if late is not None:
+        n_late = (LAST_SEGMENTS + 1) * spec.nperseg // 2
+        x_late = x[-n_late:]
+        sub_late = detect_subharmonic(
+            late, f1, units, pfa / 2, bump_test=lambda k, f: bump_test(x_late, fs, late, k, f, f1)
+        )
+        # beside a noise-excited bump, few averages let it pass for a line (its skirts for a whirl line):
+        # then only a half-order line that stands 6 dB over the bump's average reading counts
+        bump_near = sub.precursor is not None and (
+            sub_late.klass != "half-order" or (sub_late.amplitude or 0.0) < 2.0 * (sub.amplitude or 0.0)
+        )
+        if sub_late.detected and not bump_near:
+            sub = replace(sub_late, spectrum="last-segments", precursor=sub_late.precursor or sub.precursor)
+    sub = replace(sub, pfa=pfa)
     pw = power(spec)
     orders = {}
     for name, mult in (("1X", 1.0), ("2X", 2.0)):
@@ -132,6 +156,10 @@ def analyze_record(
     )
     wave = waveform_stats(x)
     flags = quality_flags(x_raw, resolution_ok)
+    spread, _ = one_x_spread(x, fs, spec, f1)
+    forcing = replace(forcing, spread_hz=spread)
+    if spread is not None and spread > SPEED_DRIFT_ORDERS * f1:
+        flags = (*flags, "speed-drift")
     quality = Quality(ok=not flags, flags=flags)
     for a in (env_t, env):
         a.setflags(write=False)

@@ -58,12 +58,14 @@ class Forcing:
     frequency_hz: float
     source: str  # "given" | "refined" | "nominal" (refinement found no line near the nominal speed)
     nominal_hz: float | None
+    spread_hz: float | None = None  # max - min of the per-segment 1X frequency (speed wander)
 
     def to_dict(self) -> dict:
         return {
             "frequency_hz": _num(self.frequency_hz),
             "source": self.source,
             "nominal_hz": _num(self.nominal_hz),
+            "spread_hz": _num(self.spread_hz),
         }
 
 
