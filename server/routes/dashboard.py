@@ -76,6 +76,18 @@ def overview(request: Request, principal: Principal = Depends(viewer)):
                                          for r in due["routes"]], "due_points": overdue}
 
 
+@router.get("/sites", summary="The sites the caller may see, with the time zone the dashboard shows")
+def sites(request: Request, principal: Principal = Depends(viewer)):
+    settings = request.app.state.settings
+    q = select(Site).order_by(Site.name)
+    if principal.site_id is not None:
+        q = q.where(Site.id == principal.site_id)
+    with request.app.state.db.read() as s:
+        rows = list(s.scalars(q))
+    return {"ok": True, "default_timezone": settings.site_timezone,
+            "sites": [{"id": x.id, "name": x.name, "timezone": site_zone(settings, x.name)} for x in rows]}
+
+
 def _asset_context(s, principal: Principal, asset_id: int):
     row = s.execute(select(Asset, Area, Site).join(Area, Area.id == Asset.area_id)
                     .join(Site, Site.id == Area.site_id).where(Asset.id == asset_id)).first()

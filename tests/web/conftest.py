@@ -120,7 +120,8 @@ def site(tmp_path_factory):
     from server.storage import Database
 
     tmp = tmp_path_factory.mktemp("web")
-    settings = settings_for(tmp, embedded_worker=True, site_timezone="Europe/Berlin", simulated_data=True)
+    settings = settings_for(tmp, embedded_worker=True, site_timezone="Europe/Berlin", simulated_data=True,
+                            site_timezones={"Hilltop annex": "America/Chicago"})
     upgrade(settings.database_url)
     db = Database(settings.database_url)
     seeded = seed(db, settings)

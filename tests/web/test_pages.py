@@ -57,6 +57,10 @@ def test_overview_lists_assets_with_their_worst_level(login, site, screenshot):
     assert levels["pump"] and max(levels["pump"], key=rank.get) != "normal"  # the growing half-order
     spark = page.evaluate(f"document.getElementById('spark-{plant.asset_ids['pump']}').data[0].y")
     assert sum(v is not None for v in spark) >= 10
+    # each site's times in its own zone (HALFWATCH_SITE_TIMEZONES), named beside the site
+    zones = page.locator("section.site h2").all_inner_texts()
+    assert any("Hilltop annex" in z and "America/Chicago" in z for z in zones)
+    assert any("Riverside works" in z and "Europe/Berlin" in z for z in zones)
     screenshot(page, "overview")
     page.fill("#f-search", "compressor")
     assert page.locator("article.machine").count() == 1

@@ -3,8 +3,10 @@
 "use strict";
 (function () {
   const { el, $ } = HW;
-  let view = "active", tree = null, tz = HW.defaultTz();
-  const names = { asset: {}, point: {} };
+  let view = "active", tree = null;
+  const tz = HW.defaultTz();
+  const names = { asset: {}, point: {} }, zones = {};
+  const zoneOf = (siteId) => zones[siteId] || tz;
 
   function filters() {
     const q = new URLSearchParams();
@@ -26,6 +28,7 @@
 
   function shelveForm(a) {
     const id = `shelve-${a.id}`;
+    const tz = zoneOf(a.site_id);
     const later = HW.wall(new Date(Date.now() + 7 * 86400e3).toISOString(), tz).slice(0, 16).replace(" ", "T");
     return el("form", { class: "inline-form shelve-form", onsubmit: async (ev) => {
       ev.preventDefault();
@@ -48,6 +51,7 @@
   function done(msg) { const b = $("#alarms-done"); b.hidden = false; b.textContent = msg; $("#alarms-error").hidden = true; load(); }
 
   function state(a) {
+    const tz = zoneOf(a.site_id);
     if (a.shelved) return `shelved until ${HW.when(a.shelved_until, tz)}: ${a.shelve_reason || ""}`;
     if (a.acknowledged) return `acknowledged by ${a.acked_by} ${HW.when(a.acked_at, tz)}: ${a.ack_comment || ""}`;
     return "active";
@@ -60,7 +64,7 @@
     body.replaceChildren(...d.alarms.map((a) => el("tr", { "data-alarm-id": a.id, class: `alarm-row lvl-${a.level}` },
       el("td", {}, HW.levelBadge(a.level)), el("td", {}, el("a", { href: `/assets/${a.asset_id}?point=${a.point_id}` }, a.asset)),
       el("td", {}, a.point), el("td", {}, a.rule), el("td", {}, `${HW.num(a.value)} ${a.unit}`),
-      el("td", {}, HW.when(a.since, tz)), el("td", { class: "alarm-state" }, state(a)),
+      el("td", {}, HW.when(a.since, zoneOf(a.site_id))), el("td", { class: "alarm-state" }, state(a)),
       el("td", {}, HW.may("engineer") ? [a.shelved ? unshelveButton(a) : null, !a.acknowledged && !a.shelved ? ackForm(a) : null, !a.shelved ? shelveForm(a) : null]
         : el("span", { class: "muted" }, "engineers acknowledge"), a.record_id ? el("a", { href: `/records/${a.record_id}` }, "reading") : null))));
     if (!d.alarms.length) body.append(el("tr", {}, el("td", { colspan: 8 }, `No ${view === "all" ? "open" : view} alarm.`)));
@@ -70,7 +74,7 @@
     const q = filters();
     const d = await HW.api(`/api/v1/alarms/history?${q}&limit=200`);
     $("#history-table tbody").replaceChildren(...d.events.map((e) => el("tr", {},
-      el("td", {}, HW.when(e.created_at, tz)), el("td", {}, e.kind), el("td", {}, names.asset[e.asset_id] || e.asset_id),
+      el("td", {}, HW.when(e.created_at, zoneOf(e.site_id))), el("td", {}, e.kind), el("td", {}, names.asset[e.asset_id] || e.asset_id),
       el("td", {}, names.point[e.point_id] || e.point_id),
       el("td", {}, e.to_level ? HW.levelBadge(e.to_level) : "", " ", e.summary || e.metric || ""), el("td", {}, e.actor), el("td", {}, e.comment || ""))));
   }
@@ -83,7 +87,10 @@
   }
 
   async function init() {
-    try { tree = await HW.api("/api/v1/tree"); } catch (e) { HW.showError("#alarms-error", e); return; }
+    let sites;
+    try { [tree, sites] = await Promise.all([HW.api("/api/v1/tree"), HW.api("/api/v1/dashboard/sites")]); }
+    catch (e) { HW.showError("#alarms-error", e); return; }
+    for (const s of sites.sites) zones[s.id] = s.timezone;
     for (const s of tree.sites) {
       $("#af-site").append(el("option", { value: s.id }, s.name));
       for (const ar of s.areas) for (const a of ar.assets) {
@@ -92,7 +99,8 @@
         $("#af-asset").append(el("option", { value: a.id }, `${a.name} (${s.name})`));
       }
     }
-    $("#alarms-tz").textContent = `times in ${tz}`;
+    const all = [...new Set(sites.sites.map((s) => s.timezone))];
+    $("#alarms-tz").textContent = `times in ${all.length === 1 ? all[0] : "each site's zone: " + sites.sites.map((s) => `${s.name} ${s.timezone}`).join(", ")}`;
     for (const b of document.querySelectorAll("[role=tab]")) b.addEventListener("click", () => {
       view = b.dataset.view;
       for (const o of document.querySelectorAll("[role=tab]")) o.setAttribute("aria-selected", String(o === b));

@@ -79,8 +79,10 @@
   function renderDue() {
     const body = $("#due-table tbody");
     body.replaceChildren();
-    const tz = (data.sites[0] || {}).timezone;
+    const zoneOfSite = Object.fromEntries(data.sites.map((s) => [s.id, s.timezone]));
+    const zoneOfRoute = Object.fromEntries(data.routes.map((r) => [r.id, zoneOfSite[r.site_id] || HW.defaultTz()]));
     for (const st of data.due_points) {
+      const tz = zoneOfRoute[st.route_id];
       body.append(el("tr", { class: `due-${st.status}` },
         el("td", {}, el("span", { class: `due due-${st.status}` }, st.status === "overdue" ? "⏰ overdue" : "◷ due")),
         el("td", {}, el("a", { href: `/routes#route-${st.route_id}` }, st.route)), el("td", {}, st.asset),

@@ -4,7 +4,7 @@
 "use strict";
 (function () {
   const { el, $ } = HW;
-  const tz = HW.defaultTz();
+  let tz = HW.defaultTz();
   const STATUS = { ok: "✓ up to date", due: "◷ due", overdue: "⏰ overdue" };
   let pointInfo = {};
 
@@ -37,7 +37,8 @@
   function stopForm(stop) {
     const p = pointInfo[stop.point_id] || {};
     const base = `up-${stop.point_id}`;
-    const now = HW.wall(new Date().toISOString(), tz).slice(0, 16).replace(" ", "T");
+    const zone = tz;  // the site zone of this stop's route
+    const now = HW.wall(new Date().toISOString(), zone).slice(0, 16).replace(" ", "T");
     const box = el("div", { class: "stop-result", "aria-live": "polite" });
     const form = el("form", { class: "inline-form stop-upload", "data-point-id": stop.point_id, onsubmit: async (ev) => {
       ev.preventDefault();
@@ -47,7 +48,7 @@
       fd.append("file", f.file.files[0]);
       fd.append("units", f.units.value);
       if (f.speed.value) { fd.append("speed_hz", f.speed.value); fd.append("speed_source", "technician"); }
-      fd.append("measured_at", HW.fromWall(f.measured.value, tz));
+      fd.append("measured_at", HW.fromWall(f.measured.value, zone));
       f.querySelector("button").disabled = true;
       try {
         const out = await HW.api(`/api/v1/points/${stop.point_id}/records/file`, { method: "POST", form: fd });
@@ -60,7 +61,7 @@
     el("div", {}, el("label", { for: `${base}-units` }, "Units"), el("select", { id: `${base}-units`, name: "units" },
       ["m/s2", "g", "mm/s2"].map((u) => el("option", { value: u, selected: u === (p.units || "m/s2") }, u)))),
     el("div", {}, el("label", { for: `${base}-speed` }, "Speed (Hz)"), el("input", { id: `${base}-speed`, name: "speed", type: "number", step: "0.01", min: "0", inputmode: "decimal", placeholder: "rev/s" })),
-    el("div", {}, el("label", { for: `${base}-when` }, `Measured (${tz})`), el("input", { id: `${base}-when`, name: "measured", type: "datetime-local", value: now })),
+    el("div", {}, el("label", { for: `${base}-when` }, `Measured (${zone})`), el("input", { id: `${base}-when`, name: "measured", type: "datetime-local", value: now })),
     el("button", { type: "submit", class: "primary" }, "Upload reading"));
     return [form, box];
   }
@@ -90,14 +91,15 @@
   }
 
   async function load() {
-    let d, tree;
-    try { [d, tree] = await Promise.all([HW.api("/api/v1/routes"), HW.api("/api/v1/tree")]); }
+    let d, tree, sites;
+    try { [d, tree, sites] = await Promise.all([HW.api("/api/v1/routes"), HW.api("/api/v1/tree"), HW.api("/api/v1/dashboard/sites")]); }
     catch (e) { HW.showError("#routes-error", e); return; }
+    const zones = Object.fromEntries(sites.sites.map((s) => [s.id, s.timezone]));
     for (const s of tree.sites) for (const ar of s.areas) for (const a of ar.assets) for (const p of a.points) pointInfo[p.id] = Object.assign({ asset_id: a.id }, p);
-    $("#routes-tz").textContent = `times in ${tz}`;
+    $("#routes-tz").textContent = "times in each route's site zone";
     const root = $("#routes");
-    root.replaceChildren(...d.routes.map((r) => el("section", { class: "card route", id: `route-${r.id}` },
-      el("h2", {}, r.name, el("span", { class: "muted" }, ` · ${r.counts.overdue} overdue, ${r.counts.due} due, ${r.counts.ok} up to date`)),
+    root.replaceChildren(...d.routes.map((r) => (tz = zones[r.site_id] || HW.defaultTz()) && el("section", { class: "card route", id: `route-${r.id}`, "data-timezone": tz },
+      el("h2", {}, r.name, el("span", { class: "muted" }, ` · ${r.counts.overdue} overdue, ${r.counts.due} due, ${r.counts.ok} up to date · times in ${tz}`)),
       HW.may("technician") ? zipForm(r) : null,
       r.stops.map((st) => el("div", { class: `stop due-${st.status}`, "data-point-id": st.point_id },
         el("div", { class: "pos", "aria-label": `stop ${st.position + 1}` }, st.position + 1),
