@@ -12,6 +12,7 @@ from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
 from sqlalchemy import select
 
+from server import audit
 from server.storage.tables import Area, Asset, Point, Site, utcnow
 
 from .digest import scope_filter
@@ -251,7 +252,10 @@ def create_subscription(db, body: dict, *, actor: str) -> dict:
         sub = AlarmSubscription(**_check_subscription(s, body), active=True, created_by=actor)
         s.add(sub)
         s.flush()
-        return subscription_dict(sub)
+        out = subscription_dict(sub)
+        audit.record(s, actor=actor, action="create", target="subscription", target_id=sub.id,
+                     subscription=out)
+        return out
 
 
 def list_subscriptions(db, *, email: str | None = None) -> list[dict]:
@@ -262,12 +266,14 @@ def list_subscriptions(db, *, email: str | None = None) -> list[dict]:
         return [subscription_dict(x) for x in s.scalars(stmt)]
 
 
-def delete_subscription(db, sub_id: int) -> None:
+def delete_subscription(db, sub_id: int, *, actor: str = "") -> None:
     with db.unit_of_work() as s:
         sub = s.get(AlarmSubscription, sub_id)
         if sub is None or not sub.active:
             raise AlarmNotFound(f"subscription {sub_id}")
         sub.active = False
+        audit.record(s, actor=actor, action="delete", target="subscription", target_id=sub_id,
+                     email=sub.email)
 
 
 # --- rules ---------------------------------------------------------------------------------------
@@ -324,7 +330,9 @@ def set_rule(db, body: dict, *, actor: str) -> dict:
         row.hysteresis, row.enabled, row.is_default = spec.hysteresis, spec.enabled, False
         row.updated_by, row.updated_at = actor, utcnow()
         s.flush()
-        return rule_dict(row)
+        out = rule_dict(row)
+        audit.record(s, actor=actor, action="set", target="alarm_rule", target_id=row.id, rule=out)
+        return out
 
 
 # --- outbox --------------------------------------------------------------------------------------

@@ -31,13 +31,15 @@ def list_users(request: Request, principal: Principal = Depends(admin)):
 def add_user(request: Request, body: UserIn, principal: Principal = Depends(admin)):
     app = request.app
     user = users.add_user(app.state.db, app.state.settings, username=body.username, password=body.password,
-                          role=body.role, email=body.email, hashing=app.state.passwords)
+                          role=body.role, email=body.email, hashing=app.state.passwords,
+                          actor=principal.label)
     return JSONResponse({"ok": True, "user": user}, status_code=201)
 
 
 @router.patch("/users/{user_id}", summary="Change a user's role or deactivate them (admin)")
 def patch_user(request: Request, user_id: int, body: UserPatch, principal: Principal = Depends(admin)):
-    user = users.set_user(request.app.state.db, user_id, role=body.role, active=body.active)
+    user = users.set_user(request.app.state.db, user_id, role=body.role, active=body.active,
+                          actor=principal.label)
     return {"ok": True, "user": user}
 
 
@@ -55,4 +57,4 @@ def create_key(request: Request, body: ApiKeyIn, principal: Principal = Depends(
 
 @router.delete("/apikeys/{key_id}", summary="Revoke an API key (admin)")
 def revoke_key(request: Request, key_id: int, principal: Principal = Depends(admin)):
-    return {"ok": True, "api_key": users.revoke_api_key(request.app.state.db, key_id)}
+    return {"ok": True, "api_key": users.revoke_api_key(request.app.state.db, key_id, actor=principal.label)}

@@ -72,6 +72,6 @@ def delete_subscription(request: Request, sub_id: Annotated[int, Path(ge=1, le=2
         mine = {s["id"] for s in service.list_subscriptions(db, email=own)} if own else set()
         if sub_id not in mine:
             raise Forbidden(f"subscription {sub_id} is not yours", field="sub_id")
-    call(service.delete_subscription, db, sub_id)
+    call(service.delete_subscription, db, sub_id, actor=principal.label)
     return {"ok": True}
 

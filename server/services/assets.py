@@ -5,6 +5,7 @@ from __future__ import annotations
 from sqlalchemy import select
 from sqlalchemy.exc import IntegrityError
 
+from server import audit
 from server.errors import AppError, Conflict, Forbidden, NotFound
 from server.services.access import point_site_id
 from server.storage.tables import Area, Asset, Point, Route, RouteStop, Site
@@ -53,7 +54,9 @@ def create(db, kind: str, data: dict, principal) -> dict:
                 _default_alarm_rules(s, row)
             if stops is not None:
                 _set_stops(s, row, stops)
-            return {"ok": True, kind: _row_dict(row)}
+            out = _row_dict(row)
+            audit.record(s, actor=principal.label, action="create", target=kind, target_id=row.id, values=out)
+            return {"ok": True, kind: out}
     except IntegrityError:
         raise Conflict(f"a {kind} named {data.get('name')!r} already exists there; choose another name",
                        field="name") from None
@@ -107,7 +110,11 @@ def update(db, kind: str, row_id: int, data: dict, principal) -> dict:
             s.flush()
         except IntegrityError:
             raise Conflict(f"a {kind} with that name already exists there", field="name") from None
-        return {"ok": True, kind: _row_dict(row)}
+        out = _row_dict(row)
+        changed = {k: [current.get(k), out.get(k)] for k in out if current.get(k) != out.get(k)}
+        audit.record(s, actor=principal.label, action="update", target=kind, target_id=row_id,
+                     changed=changed, stops_set=stops is not None)
+        return {"ok": True, kind: out}
 
 
 def find_site(s, name_or_id: str) -> Site | None:

@@ -7,6 +7,7 @@ import secrets
 
 from sqlalchemy import delete, select
 
+from server import audit
 from server.errors import AppError, Conflict, NotFound, Unauthorized
 from server.security import PasswordHashing, new_api_key, token_hash
 from server.storage.tables import ROLES, ApiKey, Site, User, UserSession, utcnow
@@ -21,7 +22,7 @@ def _user_dict(u: User) -> dict:
 
 
 def add_user(db, settings, *, username: str, password: str, role: str, email: str = "",
-             hashing: PasswordHashing | None = None) -> dict:
+             hashing: PasswordHashing | None = None, actor: str = "cli") -> dict:
     if role not in ROLES:
         raise UserError(f"role {role!r} is not one of {', '.join(ROLES)}", field="role")
     if len(password) < 8:
@@ -33,7 +34,9 @@ def add_user(db, settings, *, username: str, password: str, role: str, email: st
         user = User(username=username, email=email, password_hash=hashing.hash(password), role=role)
         s.add(user)
         s.flush()
-        return _user_dict(user)
+        out = _user_dict(user)
+        audit.record(s, actor=actor, action="create", target="user", target_id=user.id, user=out)
+        return out
 
 
 def list_users(db) -> list[dict]:
@@ -41,7 +44,8 @@ def list_users(db) -> list[dict]:
         return [_user_dict(u) for u in s.scalars(select(User).order_by(User.username))]
 
 
-def set_user(db, user_id: int, *, role: str | None = None, active: bool | None = None) -> dict:
+def set_user(db, user_id: int, *, role: str | None = None, active: bool | None = None,
+             actor: str = "cli") -> dict:
     with db.unit_of_work() as s:
         user = s.get(User, user_id)
         if user is None:
@@ -54,6 +58,8 @@ def set_user(db, user_id: int, *, role: str | None = None, active: bool | None =
             user.active = active
             if not active:
                 s.execute(delete(UserSession).where(UserSession.user_id == user.id))
+        audit.record(s, actor=actor, action="update", target="user", target_id=user.id, role=role,
+                     active=active)
         return _user_dict(user)
 
 
@@ -106,7 +112,9 @@ def create_api_key(db, *, name: str, role: str = "technician", site: str | int |
                      created_by=created_by)
         s.add(row)
         s.flush()
-        return key, _key_dict(row)
+        info = _key_dict(row)  # the public description only: never the key
+        audit.record(s, actor=created_by, action="create", target="api_key", target_id=row.id, api_key=info)
+        return key, info
 
 
 def list_api_keys(db) -> list[dict]:
@@ -114,11 +122,13 @@ def list_api_keys(db) -> list[dict]:
         return [_key_dict(k) for k in s.scalars(select(ApiKey).order_by(ApiKey.id))]
 
 
-def revoke_api_key(db, key_id: int) -> dict:
+def revoke_api_key(db, key_id: int, *, actor: str = "cli") -> dict:
     with db.unit_of_work() as s:
         row = s.get(ApiKey, key_id)
         if row is None:
             raise NotFound(f"no API key {key_id}", field="key_id")
         if row.revoked_at is None:
             row.revoked_at = utcnow()
+            audit.record(s, actor=actor, action="revoke", target="api_key", target_id=row.id,
+                         prefix=row.prefix)
         return _key_dict(row)
