@@ -112,7 +112,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     from server.hardening import IngestAdmission, LoginThrottle, SecurityHeaders
 
     app.state.login_throttle = LoginThrottle(settings.login_max_failures, settings.login_window_s)
-    app.add_middleware(IngestAdmission, settings=settings)  # before the body is read: cheap refusal
+    app.add_middleware(IngestAdmission, settings=settings, db=db)  # before the body is read: cheap refusal
     app.add_middleware(SecurityHeaders, settings=settings)
     from server.metrics import install_metrics
 

@@ -5,7 +5,9 @@
   (HSTS as well when ``session_cookie_secure`` says the service runs behind TLS).
 - :class:`IngestAdmission` bounds the number of ingest requests being worked on at once. One more is
   refused at once with 503 and ``Retry-After`` (nothing stored), so a burst from many sensors sheds
-  load instead of piling up memory and latency until the process falls over.
+  load instead of piling up memory and latency until the process falls over. It also refuses new
+  records while the analysis queue holds ``max_queued_jobs`` or more (workers far behind): the sensors
+  keep their data and retry, instead of the backlog growing without bound.
 - :class:`LoginThrottle` counts failed logins per user name and per client address in a sliding
   window; past the limit the login answers 429 with ``Retry-After`` without checking the password.
   An address (``addr:`` key) may fail four times as often as one user name, since a site's users may
@@ -27,6 +29,7 @@ CSP = ("default-src 'self'; script-src 'self'; style-src 'self' 'unsafe-inline';
 
 INGEST_SUFFIXES = ("/records", "/records/file", "/uploads")
 ADDRESS_FACTOR = 4
+QUEUE_CHECK_S = 1.0
 
 
 def _security_headers(tls: bool) -> list[tuple[bytes, bytes]]:
@@ -70,30 +73,55 @@ def is_ingest(scope) -> bool:
 class IngestAdmission:
     """At most ``settings.max_inflight_ingests`` ingest requests at once; the next gets 503 + Retry-After."""
 
-    def __init__(self, app, settings):
+    def __init__(self, app, settings, db=None):
         self.app = app
         self.limit = settings.max_inflight_ingests
         self.retry_after_s = settings.ingest_retry_after_s
+        self.max_queued = settings.max_queued_jobs if db is not None else 0
+        self.db = db
         self.inflight = 0
         self.refused = 0
+        self._depth, self._checked = 0, float("-inf")
+
+    async def _queue_full(self) -> bool:
+        """Queued jobs >= max_queued_jobs, counted at most once a second (off the event loop)."""
+        if not self.max_queued:
+            return False
+        now = time.monotonic()
+        if now - self._checked >= QUEUE_CHECK_S:
+            self._checked = now
+            from starlette.concurrency import run_in_threadpool
+
+            self._depth = await run_in_threadpool(self._count_queued)
+        return self._depth >= self.max_queued
+
+    def _count_queued(self) -> int:
+        from sqlalchemy import func, select
+
+        from server.storage.tables import Job
+
+        with self.db.read() as s:
+            return int(s.scalar(select(func.count()).select_from(Job).where(Job.state == "queued")) or 0)
 
     async def __call__(self, scope, receive, send):
         if scope["type"] != "http" or not is_ingest(scope):
             return await self.app(scope, receive, send)
         if self.inflight >= self.limit:  # one event loop: no lock needed between check and increment
             self.refused += 1
-            return await self._refuse(send)
+            return await self._refuse(send, f"the service is taking {self.limit} records at once already")
+        if await self._queue_full():
+            self.refused += 1
+            return await self._refuse(send, f"the analysis queue holds {self._depth} records (limit "
+                                            f"{self.max_queued}); the workers are behind")
         self.inflight += 1
         try:
             return await self.app(scope, receive, send)
         finally:
             self.inflight -= 1
 
-    async def _refuse(self, send):
-        body = json.dumps(error_body(503, "overloaded",
-                                     f"the service is taking {self.limit} records at once already; nothing "
-                                     f"was stored, send this record again after {self.retry_after_s} s",
-                                     None)).encode()
+    async def _refuse(self, send, why: str):
+        body = json.dumps(error_body(503, "overloaded", f"{why}; nothing was stored, send this record again "
+                                     f"after {self.retry_after_s} s", None)).encode()
         await send({"type": "http.response.start", "status": 503,
                     "headers": [(b"content-type", b"application/json"),
                                 (b"content-length", str(len(body)).encode()),

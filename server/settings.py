@@ -45,6 +45,8 @@ class Settings(BaseSettings):
     max_manifest_rows: int = Field(default=5000, gt=0)
     max_inflight_ingests: int = Field(default=32, ge=1, description="ingest requests at once; more get 503")
     ingest_retry_after_s: int = Field(default=2, ge=1, description="Retry-After of an overload 503")
+    max_queued_jobs: int = Field(default=20_000, ge=0, description="ingest answers 503 while this many "
+                                 "analysis jobs wait (0: no limit)")
 
     # login throttling (per user name and per client address)
     login_max_failures: int = Field(default=5, ge=1, description="failed logins allowed per window")
