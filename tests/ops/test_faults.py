@@ -9,8 +9,11 @@ from __future__ import annotations
 
 import datetime as dt
 import hashlib
+import json
 import sqlite3
 import threading
+import time
+from pathlib import Path
 
 import httpx
 import numpy as np
@@ -288,3 +291,89 @@ def test_sensor_clock_ahead_is_refused_clearly():
     with pytest.raises(AppError) as err:
         check_time(dt.datetime.now(dt.UTC) + dt.timedelta(hours=3), Limits())
     assert err.value.status == 400 and err.value.field == "measured_at" and "clock" in err.value.message
+
+
+def test_overload_is_shed_with_503_and_retry_after():
+    """More ingest requests at once than allowed: the extra one is refused at once, nothing stored."""
+    import asyncio
+
+    from support.fixtures import settings_for
+
+    from server.hardening import IngestAdmission
+
+    release = asyncio.Event()
+    calls = []
+
+    async def slow_ingest(scope, receive, send):  # stands in for the route while it stores a record
+        calls.append(scope["path"])
+        await release.wait()
+        await send({"type": "http.response.start", "status": 201, "headers": []})
+        await send({"type": "http.response.body", "body": b"{}"})
+
+    settings = settings_for(Path("."), max_inflight_ingests=2, ingest_retry_after_s=3)
+    gate = IngestAdmission(slow_ingest, settings)
+
+    async def request(path):
+        sent = []
+
+        async def send(message):
+            sent.append(message)
+
+        async def receive():
+            return {"type": "http.request", "body": b"", "more_body": False}
+
+        await gate({"type": "http", "method": "POST", "path": path, "headers": []}, receive, send)
+        return sent
+
+    async def scenario():
+        first = [asyncio.create_task(request(f"/api/v1/points/{i}/records")) for i in (1, 2)]
+        await asyncio.sleep(0.05)
+        refused = await request("/api/v1/points/3/records")
+        read = asyncio.create_task(request("/api/v1/points/3/trend"))  # not an ingest: never shed
+        await asyncio.sleep(0.05)
+        release.set()
+        return [await t for t in first], refused, await read
+
+    first, refused, read = asyncio.run(scenario())
+    assert [m[0]["status"] for m in first] == [201, 201] and read[0]["status"] == 201
+    start = refused[0]
+    assert start["status"] == 503 and (b"retry-after", b"3") in start["headers"]
+    body = json.loads(refused[1]["body"])
+    assert body["ok"] is False and body["error"]["code"] == "overloaded" and "nothing was stored" in \
+        body["error"]["message"]
+    assert calls.count("/api/v1/points/3/records") == 0  # refused before the route ran
+
+
+def test_a_deep_analysis_queue_pushes_back_until_the_workers_catch_up(tmp_path, rng):
+    from fastapi.testclient import TestClient
+    from support.fixtures import settings_for
+    from support.plant import make_plant
+
+    from server.app import create_app
+    from server.migrations import upgrade
+    from server.storage import Database
+
+    settings = settings_for(tmp_path, max_queued_jobs=3)
+    upgrade(settings.database_url)
+    db = Database(settings.database_url)
+    plant = make_plant(db)
+    key, _ = create_api_key(db, name="q", role="technician")
+    headers = {"Authorization": f"Bearer {key}", "Content-Type": "application/octet-stream"}
+    params = {"fs_hz": 2560, "units": "m/s2", "measured_at": T0.isoformat()}
+
+    def send(i):
+        return client.post(f"/api/v1/points/{plant.point_id}/records",
+                           params={**params, "client_ref": f"q{i}"}, content=tone_record(rng).tobytes(),
+                           headers=headers)
+
+    with TestClient(create_app(settings)) as client:
+        assert [send(i).status_code for i in range(3)] == [201, 201, 201]
+        time.sleep(1.1)  # the queue is counted at most once a second
+        r = send(3)
+        assert r.status_code == 503 and r.headers["Retry-After"] and "queue" in r.json()["error"]["message"]
+        assert worker.run_once(db, settings, "w1")  # a worker catches up by one job
+        time.sleep(1.1)
+        assert send(3).status_code == 201
+    with db.read() as s:
+        assert s.scalar(select(func.count()).select_from(Record)) == 4  # the refused try left nothing
+    db.dispose()
