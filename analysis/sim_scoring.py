@@ -50,6 +50,8 @@ def score(truth: dict, result: dict) -> dict:
         "present": bool(sub_t["present"]),
     }
     out["class_ok"] = out["class"] == sub_t["class"]
+    out["precursor"] = bool(sub_r.get("precursor"))  # a noise-excited bump reported instead of a line
+    out["spectrum"] = sub_r.get("spectrum")
     f_t, f_r = sub_t.get("frequency_hz"), sub_r.get("frequency_hz")
     out["freq_err_hz"] = f_r - f_t if detected and f_t is not None and f_r is not None else None
     a_t, a_r = sub_t.get("amplitude"), sub_r.get("amplitude")

@@ -95,8 +95,16 @@ def main() -> int:
             fa = np.mean([r["class"] == "half-order" for r in sc])
             label = "called half-order"
         name = kind if not params else f"{kind} h/h_c 0.7, mode {params.get('floor_g', 0.002) * 1e3:g} mg rms"
-        rows.append([name, label, pct(fa), pct(np.mean([r["class_ok"] for r in sc]))])
-    table("False alarms", ["kind", "counted as", "rate", "class ok"], rows)
+        rows.append(
+            [
+                name,
+                label,
+                pct(fa),
+                pct(np.mean([r["class_ok"] for r in sc])),
+                pct(np.mean([r.get("precursor", False) for r in sc])),
+            ]
+        )
+    table("False alarms", ["kind", "counted as", "rate", "class ok", "precursor reported"], rows)
 
     rows = []
     for kind in ("half-order", "whirl"):

@@ -137,3 +137,13 @@ def test_awkward_records_give_json_safe_results(kind):
 def test_implausible_values_are_rejected():
     with pytest.raises(SignalError, match="check the scaling"):
         analyze_record(np.full(4096, 1e12), 2560.0, forcing_hz=30.0)
+
+
+def test_added_keys_precursor_spectrum_and_speed_spread(make_record):
+    # added after issue 2 (never renamed): subharmonic.precursor (None for a line), subharmonic.spectrum
+    # ("average" | "last-segments") and forcing.spread_hz (1X wander; 0 within the per-segment scatter for
+    # a steady synthetic 1X)
+    d = analyze_record(_record(make_record), 2560.0, units="g", forcing_hz=29.6).to_dict()
+    assert d["subharmonic"]["precursor"] is None and d["subharmonic"]["spectrum"] == "average"
+    assert 0.0 <= d["forcing"]["spread_hz"] < 0.01
+    assert "speed-drift" not in d["quality"]["flags"]
