@@ -11,17 +11,19 @@ from __future__ import annotations
 import datetime as dt
 import json
 import math
+from types import SimpleNamespace
 
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
-from server.storage.tables import Area, Asset, Point, Site, utcnow
+from server.storage.tables import Asset, Point, utcnow
 
 from . import checks, margin
 from .engine import Reading, step
 from .notify import queue_for_events
+from .pointstate import PointData, StateRow, effective, read_point, write_states, write_status
 from .rules import LEVEL_RANK, METRICS, RuleSpec, default_rules, result_metrics
-from .tables import AlarmEvent, AlarmPointStatus, AlarmRule, AlarmState
+from .tables import AlarmEvent, AlarmRule
 
 HISTORY_LEN = 30
 
@@ -80,35 +82,6 @@ def _result_data(result) -> dict:
     return json.loads(data) if isinstance(data, str) else dict(data)
 
 
-def _states(session: Session, point: Point, metrics: list[str]) -> dict[str, AlarmState]:
-    """The point's states by metric (one query), creating the missing ones."""
-    rows = session.scalars(select(AlarmState).where(AlarmState.point_id == point.id))
-    states = {st.metric: st for st in rows}
-    for metric in metrics:
-        if metric not in states:
-            states[metric] = AlarmState(point_id=point.id, asset_id=point.asset_id, metric=metric,
-                                        level="normal", window=[])
-            session.add(states[metric])
-    return states
-
-
-def _context(session: Session, point_id: int) -> tuple[Point, Asset, dict, AlarmPointStatus]:
-    """The point, its asset, the names up to the site and the point's alarm status, in one query."""
-    point, asset, area, site, status = session.execute(
-        select(Point, Asset, Area, Site, AlarmPointStatus).join(Asset, Asset.id == Point.asset_id)
-        .join(Area, Area.id == Asset.area_id).join(Site, Site.id == Area.site_id)
-        .outerjoin(AlarmPointStatus, AlarmPointStatus.point_id == Point.id).where(Point.id == point_id)
-    ).one()
-    if status is None:
-        status = AlarmPointStatus(point_id=point_id, speeds_hz=[], history=[], windows={}, window_fit={},
-                                  last_metrics={})
-        session.add(status)
-    return point, asset, {
-        "point_id": point.id, "point": point.name, "asset_id": asset.id, "asset": asset.name,
-        "area_id": area.id, "area": area.name, "site_id": site.id, "site": site.name,
-    }, status
-
-
 def _measured_ts(record, result) -> float:
     ts = getattr(result, "measured_ts", None)
     if ts is not None:
@@ -120,28 +93,43 @@ def _measured_ts(record, result) -> float:
 def evaluate_result(
     session: Session, record, result, *, settings=None, now: dt.datetime | None = None
 ) -> list:
-    """Run the rules for ``record``'s point on ``result``; returns the new :class:`AlarmEvent` rows."""
+    """Run the rules for ``record``'s point on ``result``; returns the new :class:`AlarmEvent` rows.
+
+    The states and the status row are read and written with Core statements on the session's
+    connection (:mod:`.pointstate`); only new events and outbox rows go through the ORM."""
     now = now or utcnow()
     with session.no_autoflush:
         return _evaluate(session, record, result, settings, now)
 
 
+def _point_rules(session: Session, conn, point: PointData) -> PointData:
+    """The point's data with its default rules created if it has no rules of its own yet."""
+    if any(r.point_id == point.point_id for r in point.rules):
+        return point
+    ensure_default_rules(session, SimpleNamespace(id=point.point_id),
+                         SimpleNamespace(machine_group=point.machine_group, foundation=point.foundation), [])
+    return read_point(conn, point.point_id)
+
+
 def _evaluate(session: Session, record, result, settings, now: dt.datetime) -> list:
-    point, asset, where, status = _context(session, record.point_id)
+    conn = session.connection()
+    point = read_point(conn, record.point_id)
+    status, where = point.status, point.where
     data = _result_data(result)
-    nominal = (asset.nominal_speed_hz or 0) * (asset.forcing_multiplier or 1.0) or None
     common = {
-        "point_id": point.id, "asset_id": asset.id, "area_id": where["area_id"], "site_id": where["site_id"],
-        "record_id": record.id, "result_id": getattr(result, "id", None), "created_at": now,
+        "point_id": point.point_id, "asset_id": point.asset_id, "area_id": where["area_id"],
+        "site_id": where["site_id"], "record_id": record.id, "result_id": getattr(result, "id", None),
+        "created_at": now,
     }
     problem = checks.data_quality_problem(
-        data, usual_speeds_hz=list(status.speeds_hz or []), nominal_forcing_hz=nominal,
+        data, usual_speeds_hz=list(status.speeds_hz), nominal_forcing_hz=point.nominal_forcing_hz,
         speed_tolerance=getattr(settings, "alarm_speed_tolerance", 0.10),
         nominal_tolerance=getattr(settings, "alarm_nominal_speed_tolerance", 0.25),
     )
     if problem:
         newly_open = not status.data_quality_open
-        status.data_quality_open, status.data_quality_reason, status.updated_at = True, problem, now
+        status.data_quality_open, status.data_quality_reason = True, problem
+        write_status(conn, point.point_id, status, now)
         event = AlarmEvent(kind="data-quality", summary=problem,
                            details={"where": where, "flags": (data.get("quality") or {}).get("flags", [])},
                            **common)
@@ -153,14 +141,16 @@ def _evaluate(session: Session, record, result, settings, now: dt.datetime) -> l
 
     metrics = result_metrics(data)
     ts = _measured_ts(record, result)
-    old = list(status.history or [])
+    old = list(status.history)
     if old and ts <= old[-1][0]:
         # A late record (route data uploaded out of order) or a re-analysis: it corrects the history
         # the trend is fitted to, but the levels follow the newest reading only.
         status.history = merge_history(old, ts, metrics["half_order_velocity"] or 0.0)
+        write_status(conn, point.point_id, status, now, history_only=True)
         return []
-    rules = [r for r in effective_rules(session, point, asset) if r.enabled]
-    previous = dict(status.last_metrics or {})
+    point = _point_rules(session, conn, point)
+    rules = [r for r in effective(point.rules, point.point_id) if r.enabled]
+    previous = dict(status.last_metrics)
     history = [*old, [ts, metrics["half_order_velocity"] or 0.0]][-HISTORY_LEN:]
     danger_of = {r.metric: r.danger_level for r in rules}
     metrics["trend_db_per_day"], metrics["time_to_limit_days"] = checks.trend_and_forecast(
@@ -168,29 +158,31 @@ def _evaluate(session: Session, record, result, settings, now: dt.datetime) -> l
     )
     metrics["threshold_margin"], margin_reason = margin.threshold_margin(status, data)
     status.history = history
-    status.speeds_hz = checks.remember_speed(list(status.speeds_hz or []), (data.get("forcing") or {})
+    status.speeds_hz = checks.remember_speed(list(status.speeds_hz), (data.get("forcing") or {})
                                              .get("frequency_hz"))
     status.last_metrics = {k: v for k, v in metrics.items() if v is None or math.isfinite(v)}
-    status.last_record_id, status.data_quality_open, status.updated_at = record.id, False, now
+    status.last_record_id, status.data_quality_open = record.id, False
 
-    events = []
+    events, touched = [], []
     forecast: dict | None = None  # the detailed forecast, computed once if anything changes
-    states = _states(session, point, [r.metric for r in rules])
-    windows = dict(status.windows or {})
+    windows = dict(status.windows)
     for row in rules:
         spec = rule_spec(row)
-        state = states[row.metric]
+        state = point.states.get(row.metric)
+        if state is None:  # the first reading of this rule at this point: a new state row
+            state = point.states[row.metric] = StateRow(metric=row.metric)
+        touched.append(state)
         if state.rule_id != row.id:
-            state.rule_id = row.id
+            state.set("rule_id", row.id)
         value = metrics.get(row.metric)
         levels = spec.levels(data)
         if value is None or levels is None:
             reason = margin_reason if row.metric == "threshold_margin" else "no reading"
             if state.inactive_reason != reason:
-                state.inactive_reason = reason
+                state.set("inactive_reason", reason)
             continue
         if state.inactive_reason is not None:
-            state.inactive_reason = None
+            state.set("inactive_reason", None)
         window = [Reading.from_list(item) for item in windows.get(row.metric, [])]
         new_level, window, tr = step(spec, state.level, window, Reading(value, *levels))
         windows[row.metric] = [r.to_list() for r in window]
@@ -198,8 +190,9 @@ def _evaluate(session: Session, record, result, settings, now: dt.datetime) -> l
             continue  # the state row is written only when its level changes
         if forecast is None:
             forecast = checks.detailed_forecast(history, limit=danger_of.get("half_order_velocity"))
-        state.window = windows[row.metric]
-        state.last_value, state.last_record_id, state.updated_at = value, record.id, now
+        for name, v in (("window", windows[row.metric]), ("last_value", value), ("last_record_id", record.id),
+                        ("updated_at", now)):
+            state.set(name, v)
         info = METRICS[row.metric]
         summary = f"{info.label}: {tr.from_level} -> {tr.to_level} at {value:.3g} {info.unit}".rstrip()
         event = AlarmEvent(
@@ -211,13 +204,16 @@ def _evaluate(session: Session, record, result, settings, now: dt.datetime) -> l
                      "half_order_danger": danger_of.get("half_order_velocity")},
             **common,
         )
-        session.add(event)
         _apply_transition(state, new_level, now)
         events.append((event, state))
     status.windows = windows
-    session.flush()
-    for event, state in events:
-        state.last_event_id = event.id
+    if events:
+        session.add_all([e for e, _ in events])
+        session.flush()
+        for event, state in events:
+            state.set("last_event_id", event.id)
+    write_states(conn, point, touched)
+    write_status(conn, point.point_id, status, now)
     queue_for_events(session, [e for e, s in events if not _shelved(s, now)], now=now)
     return [e for e, _ in events]
 
@@ -228,18 +224,22 @@ def merge_history(history: list[list[float]], ts: float, value: float) -> list[l
     return sorted([*kept, [ts, value]], key=lambda item: item[0])[-HISTORY_LEN:]
 
 
-def _apply_transition(state: AlarmState, new_level: str, now: dt.datetime) -> None:
+def _apply_transition(state: StateRow, new_level: str, now: dt.datetime) -> None:
     """Move the state; a level above the acknowledged one re-alerts (the acknowledgement lapses)."""
-    state.level, state.since = new_level, now
-    if new_level == "normal" or (state.acked_level and LEVEL_RANK[new_level] > LEVEL_RANK[state.acked_level]):
-        state.acked_level = state.acked_by = state.acked_at = state.ack_comment = None
-    if new_level == "normal" or (
-        state.shelved_level and LEVEL_RANK[new_level] > LEVEL_RANK[state.shelved_level]
+    state.set("level", new_level)
+    state.set("since", now)
+    if state.acked_level is not None and (new_level == "normal"
+                                          or LEVEL_RANK[new_level] > LEVEL_RANK[state.acked_level]):
+        for name in ("acked_level", "acked_by", "acked_at", "ack_comment"):
+            state.set(name, None)
+    if (state.shelved_level is not None or state.shelved_until is not None) and (
+        new_level == "normal" or LEVEL_RANK[new_level] > LEVEL_RANK[state.shelved_level or "normal"]
     ):
-        state.shelved_until = state.shelve_reason = state.shelved_by = state.shelved_level = None
+        for name in ("shelved_until", "shelve_reason", "shelved_by", "shelved_level"):
+            state.set(name, None)
 
 
-def _shelved(state: AlarmState, now: dt.datetime) -> bool:
+def _shelved(state: StateRow, now: dt.datetime) -> bool:
     return state.shelved_until is not None and state.shelved_until > now
 
 
