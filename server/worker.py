@@ -286,28 +286,29 @@ def store(db, c: Claim, record, analysis, settings=None, samples=None, *, alarms
 
 
 def store_batch(db, items: list[Analysed], settings=None, *, alarms: bool = True) -> list[int | Exception]:
-    """Store several results in one write transaction, each job in its own savepoint.
+    """Store several results in one write transaction; per item, the result id or the exception.
 
-    Per item, the result (or the exception that rolled back its savepoint, e.g. LeaseLost): one job's
-    failure never undoes another's result, and each result stays atomic with its alarm evaluation and
-    its job's ``done``. If the commit itself fails, every item gets that exception."""
+    Each job's fence, result, compaction and alarm evaluation run together, so they commit or roll back
+    together. A job whose lease was lost is skipped (``LeaseLost``: the fence, its first statement, wrote
+    nothing). Any other error rolls the batch back and the jobs are stored again one transaction each, so
+    one job's failure never costs another its result (and the common case pays for no savepoints)."""
     prepared = [_prepare(item) for item in items]
-    out: list[int | Exception] = []
     try:
+        out: list[int | Exception] = []
         with db.unit_of_work() as s:
             for item, prep in zip(items, prepared, strict=True):
                 try:
-                    with s.begin_nested():
-                        out.append(_store_one(s, item, prep, settings, alarms))
+                    out.append(_store_one(s, item, prep, settings, alarms))
                 except LeaseLost as exc:
                     out.append(exc)
-                except Exception as exc:
-                    log.exception("job %s: storing the result failed", item.claim.job_id)
-                    out.append(exc)
-    except Exception as exc:  # the commit (or opening the transaction) failed: nothing was stored
-        log.exception("storing a batch of %d results failed", len(items))
-        return [exc] * len(items)
-    return out
+        return out
+    except Exception as exc:
+        if len(items) == 1:
+            log.exception("job %s: storing the result failed", items[0].claim.job_id)
+            return [exc]
+        log.warning("storing a batch of %d results failed (%s: %s); storing them one by one", len(items),
+                    type(exc).__name__, exc)
+    return [store_batch(db, [item], settings, alarms=alarms)[0] for item in items]
 
 
 def fail(db, c: Claim, error: str, *, permanent: bool, settings) -> None:
