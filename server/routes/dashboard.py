@@ -176,11 +176,16 @@ def point_series(request: Request, point_id: int,
                  start: AwareDatetime | None = Query(None, description="default: 30 days before end"),
                  end: AwareDatetime | None = Query(None, description="default: now"),
                  max_points: int = Query(600, ge=10, le=5000),
-                 limit: float | None = Query(None, gt=0, description="danger level for the forecast, mm/s"),
+                 limit: float | None = Query(None, gt=0, description="level for the forecast, mm/s; default: "
+                                             "the point's half-order danger level"),
                  principal: Principal = Depends(viewer)):
     start, end = _period(start, end, 30)
     with request.app.state.db.read() as s:
         check_point(s, principal, point_id)
+        if limit is None:
+            point = s.get(Point, point_id)
+            level = point_levels(s, point.asset, [point_id])[point_id]["half_order_velocity"]
+            limit = level["danger"] if level and level["danger"] else None
         data = series.point_series(s, point_id, start, end, max_points)
     fit = series.trend_forecast(data, limit)
     # a plain JSONResponse: thousands of floats need no jsonable_encoder walk

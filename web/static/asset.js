@@ -5,7 +5,7 @@
 (function () {
   const { el, $ } = HW;
   const root = () => $("#asset-root");
-  let asset = null, tz = "UTC", point = null;
+  let asset = null, tz = "UTC", point = null, early = null;
 
   function periodQuery() {
     const p = $("#period").value;
@@ -118,8 +118,11 @@
     const params = new URLSearchParams({ start: q.start, end: q.end, max_points: "600" });
     if (levels && levels.danger) params.set("limit", levels.danger);
     let d;
-    try { d = await HW.api(`/api/v1/dashboard/points/${point.id}/series?${params}`); }
-    catch (e) { HW.showError("#asset-error", e); return; }
+    try {
+      const head = early && early.pid === point.id && early.days === $("#period").value ? early.promise : null;
+      early = null;
+      d = await (head || HW.api(`/api/v1/dashboard/points/${point.id}/series?${params}`));
+    } catch (e) { HW.showError("#asset-error", e); return; }
     const x = d.t.map((v) => HW.wall(v, tz));
     await Promise.all([
       drawHalf(d, x, levels),
@@ -181,6 +184,13 @@
 
   async function load() {
     const id = root().dataset.assetId;
+    const p0 = Number(HW.param("point")), days0 = HW.param("days") || "30";
+    if (p0 && /^\d+$/.test(days0)) {  // the point is known: ask for its series while the machine loads
+      const end = new Date();
+      const q = new URLSearchParams({ start: new Date(end - Number(days0) * 86400e3).toISOString(), end: end.toISOString(), max_points: "600" });
+      early = { pid: p0, days: days0, promise: HW.api(`/api/v1/dashboard/points/${p0}/series?${q}`) };
+      early.promise.catch(() => {});
+    }
     try { asset = await HW.api(`/api/v1/dashboard/assets/${id}`); }
     catch (e) { HW.showError("#asset-error", e); return; }
     const a = asset.asset;
