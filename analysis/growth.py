@@ -175,8 +175,12 @@ def _interference_power(t: np.ndarray, p: np.ndarray) -> float:
     def resid(q):
         return np.logaddexp(q[0], q[1] + q[2] * t) - lp
 
+    def jac(q):
+        share = 1.0 / (1.0 + np.exp(np.clip(q[1] + q[2] * t - q[0], -700.0, 700.0)))  # ∂/∂q0
+        return np.column_stack((share, 1.0 - share, (1.0 - share) * t))
+
     try:
-        fit = least_squares(resid, [np.log(n0), c0, slope0], method="lm", max_nfev=200)
+        fit = least_squares(resid, [np.log(n0), c0, slope0], jac=jac, method="lm", max_nfev=200)
     except ValueError:
         return 0.0
     ln_n, _, slope = fit.x
