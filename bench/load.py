@@ -23,15 +23,15 @@ import tempfile
 import threading
 import time
 import urllib.parse
-import uuid
 from pathlib import Path
 
 import numpy as np
 
 REPO = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(REPO))
+from benchdb import SPEED_HZ, fresh_database, migrated_plant  # noqa: E402
+
 FS = 2560.0
-SPEED_HZ = 24.75
 
 
 def free_port() -> int:
@@ -72,35 +72,29 @@ class Stats:
                 (self.ingest_ms if kind == "ingest" else self.read_ms).append(ms)
 
 
-def setup(url: str, data_dir: Path):
-    from server.migrations import upgrade
+def setup(url: str):
     from server.services.users import create_api_key
-    from server.storage import Database
-    from server.storage.tables import Area, Asset, Point, Site
 
-    upgrade(url)
-    db = Database(url)
-    with db.unit_of_work() as s:
-        site = Site(name="Load works")
-        s.add(site)
-        s.flush()
-        area = Area(site_id=site.id, name="Pump house")
-        s.add(area)
-        s.flush()
-        points = []
-        for a in range(4):
-            asset = Asset(area_id=area.id, name=f"Pump {a + 1}", kind="pump", machine_group=2,
-                          foundation="rigid", nominal_speed_hz=SPEED_HZ)
-            s.add(asset)
-            s.flush()
-            for name in ("DE-H", "NDE-V"):
-                p = Point(asset_id=asset.id, name=name, units="m/s2")
-                s.add(p)
-                s.flush()
-                points.append(p.id)
+    db, points = migrated_plant(url, assets=4, points=("DE-H", "NDE-V"))
     sensor_key, _ = create_api_key(db, name="load sensors", role="technician")
     reader_key, _ = create_api_key(db, name="load dashboard", role="viewer")
     return db, points, sensor_key, reader_key
+
+
+def exchange(conn, port, method, path, body, headers, stats, kind):
+    """One timed request on a keep-alive connection; (response or None, the connection to use next)."""
+    t0 = time.perf_counter()
+    try:
+        conn.request(method, path, body=body, headers=headers)
+        r = conn.getresponse()
+        r.read()
+    except (OSError, http.client.HTTPException) as exc:
+        stats.add(type(exc).__name__, None, kind)
+        conn.close()
+        time.sleep(0.2)
+        return None, http.client.HTTPConnection("127.0.0.1", port, timeout=30)
+    stats.add(r.status, (time.perf_counter() - t0) * 1000, kind)
+    return r, conn
 
 
 def sensor_loop(port, key, point_id, payloads, stop, stats, sensor_no):
@@ -115,20 +109,11 @@ def sensor_loop(port, key, point_id, payloads, stop, stats, sensor_no):
                                         "client_ref": f"s{sensor_no}-{i}"})
             pending = (f"/api/v1/points/{point_id}/records?{q}", payloads[i % len(payloads)])
         path, body = pending
-        t0 = time.perf_counter()
-        try:
-            conn.request("POST", path, body=body, headers={"Authorization": f"Bearer {key}",
-                                                           "Content-Type": "application/octet-stream"})
-            r = conn.getresponse()
-            r.read()
-        except (OSError, http.client.HTTPException) as exc:
-            stats.add(type(exc).__name__, None, "ingest")
-            conn.close()
-            conn = http.client.HTTPConnection("127.0.0.1", port, timeout=30)
-            time.sleep(0.2)
+        r, conn = exchange(conn, port, "POST", path, body, {"Authorization": f"Bearer {key}",
+                                                            "Content-Type": "application/octet-stream"},
+                           stats, "ingest")
+        if r is None:
             continue
-        ms = (time.perf_counter() - t0) * 1000
-        stats.add(r.status, ms, "ingest")
         if r.status == 503:
             wait = float(r.getheader("Retry-After") or 1)
             stop.wait(min(wait, 1.0))  # same record again after the advertised wait (capped for the bench)
@@ -145,18 +130,7 @@ def reader_loop(port, key, point_ids, stop, stats):
     while not stop.is_set():
         path = paths[k % len(paths)]
         k += 1
-        t0 = time.perf_counter()
-        try:
-            conn.request("GET", path, headers={"Authorization": f"Bearer {key}"})
-            r = conn.getresponse()
-            r.read()
-        except (OSError, http.client.HTTPException) as exc:
-            stats.add(type(exc).__name__, None, "read")
-            conn.close()
-            conn = http.client.HTTPConnection("127.0.0.1", port, timeout=30)
-            time.sleep(0.2)
-            continue
-        stats.add(r.status, (time.perf_counter() - t0) * 1000, "read")
+        _, conn = exchange(conn, port, "GET", path, None, {"Authorization": f"Bearer {key}"}, stats, "read")
         stop.wait(0.2)
     conn.close()
 
@@ -202,24 +176,8 @@ def main() -> int:
     args = p.parse_args()
     with tempfile.TemporaryDirectory(prefix="hw-bench-load-") as tmpdir:
         tmp = Path(tmpdir)
-        cleanup = None
-        if args.pg_url:
-            from sqlalchemy import create_engine, text
-
-            schema = f"load_{uuid.uuid4().hex[:10]}"
-            admin = create_engine(args.pg_url)
-            with admin.begin() as conn:
-                conn.execute(text(f'CREATE SCHEMA "{schema}"'))
-            sep = "&" if "?" in args.pg_url else "?"
-            url = f"{args.pg_url}{sep}options=-csearch_path%3D{schema}"
-
-            def cleanup():
-                with admin.begin() as conn:
-                    conn.execute(text(f'DROP SCHEMA "{schema}" CASCADE'))
-                admin.dispose()
-        else:
-            url = f"sqlite:///{(tmp / 'load.db').as_posix()}"
-        db, points, sensor_key, reader_key = setup(url, tmp)
+        url, cleanup = fresh_database(tmp, args.pg_url)
+        db, points, sensor_key, reader_key = setup(url)
         port = free_port()
         env = {k: v for k, v in os.environ.items() if not k.startswith("HALFWATCH_")}
         env.update(HALFWATCH_DATABASE_URL=url, HALFWATCH_DATA_DIR=str(tmp), PYTHONPATH=str(REPO),
@@ -266,8 +224,7 @@ def main() -> int:
                     proc.kill()
             logs.close()
             db.dispose()
-            if cleanup:
-                cleanup()
+            cleanup()
     codes = stats.codes
     accepted = codes.get("ingest:201", 0) + codes.get("ingest:200", 0)
     shed = codes.get("ingest:503", 0)

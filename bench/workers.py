@@ -20,15 +20,15 @@ import subprocess
 import sys
 import tempfile
 import time
-import uuid
 from pathlib import Path
 
 import numpy as np
 
 REPO = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(REPO))
+from benchdb import SPEED_HZ, fresh_database, migrated_plant  # noqa: E402
+
 FS = 25600.0
-SPEED_HZ = 24.75
 
 
 def cpu_times() -> tuple[float, float]:
@@ -49,50 +49,11 @@ def children_cpu(pids: list[int]) -> float:
     return total
 
 
-def fresh_database(backend: str, tmp: Path, pg_url: str | None):
-    """(url, cleanup) of an empty database."""
-    if backend == "sqlite":
-        path = tmp / f"bench-{uuid.uuid4().hex[:8]}.db"
-        return f"sqlite:///{path.as_posix()}", lambda: None
-    from sqlalchemy import create_engine, text
-
-    schema = f"bench_{uuid.uuid4().hex[:10]}"
-    admin = create_engine(pg_url)
-    with admin.begin() as conn:
-        conn.execute(text(f'CREATE SCHEMA "{schema}"'))
-
-    def drop():
-        with admin.begin() as conn:
-            conn.execute(text(f'DROP SCHEMA "{schema}" CASCADE'))
-        admin.dispose()
-
-    sep = "&" if "?" in pg_url else "?"
-    return f"{pg_url}{sep}options=-csearch_path%3D{schema}", drop
-
-
 def seed(url: str, n: int, n_samples: int, hold_s: float):
-    from server.migrations import upgrade
     from server.services.ingest import Limits, ingest_record
-    from server.storage import Database
-    from server.storage.tables import Area, Asset, Job, Point, Site
+    from server.storage.tables import Job
 
-    upgrade(url)
-    db = Database(url)
-    with db.unit_of_work() as s:
-        site = Site(name="Bench works")
-        s.add(site)
-        s.flush()
-        area = Area(site_id=site.id, name="Pump house")
-        s.add(area)
-        s.flush()
-        asset = Asset(area_id=area.id, name="Bench pump", kind="pump", machine_group=2, foundation="rigid",
-                      nominal_speed_hz=SPEED_HZ)
-        s.add(asset)
-        s.flush()
-        point = Point(asset_id=asset.id, name="DE-H", units="m/s2")
-        s.add(point)
-        s.flush()
-        point_id = point.id
+    db, (point_id,) = migrated_plant(url)
     rng = np.random.default_rng(7)
     t = np.arange(n_samples) / FS
     base = np.sin(2 * np.pi * SPEED_HZ * t)
@@ -116,7 +77,7 @@ def run_case(backend: str, k: int, args, tmp: Path) -> dict:
 
     from server.storage.tables import Job
 
-    url, cleanup = fresh_database(backend, tmp, args.pg_url)
+    url, cleanup = fresh_database(tmp, args.pg_url if backend == "postgresql" else None)
     db, release = seed(url, args.records, args.samples, args.hold_s)
     env = {key: v for key, v in os.environ.items() if not key.startswith("HALFWATCH_")}
     env.update(HALFWATCH_DATABASE_URL=url, HALFWATCH_WORKER_POLL_S="0.05", HALFWATCH_DATA_DIR=str(tmp),
