@@ -13,12 +13,12 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-from sqlalchemy import bindparam, insert, select
+from sqlalchemy import Float, Integer, String, bindparam, insert, select
 from sqlalchemy.exc import IntegrityError
 
 from server.errors import AppError, Conflict, Forbidden, NotFound, PayloadTooLarge
 from server.storage import blobs
-from server.storage.tables import ORIGINS, Area, Asset, Job, Point, Record, Waveform, utcnow
+from server.storage.tables import ORIGINS, Area, Asset, Job, Point, Record, UTCDateTime, Waveform, utcnow
 
 
 @dataclass(frozen=True)
@@ -106,6 +106,25 @@ _FIRST = select(Record.id, Record.checksum).where(Record.point_id == bindparam("
                                                   Record.client_ref == bindparam("ref"))
 _FIRST_JOB = select(Job.id).where(Job.record_id == bindparam("rid")).order_by(Job.id).limit(1)
 _INSERT_RECORD = insert(Record.__table__).returning(Record.__table__.c.id)
+_RECORD_COLUMNS = {"measured_at": UTCDateTime(), "received_at": UTCDateTime(), "fs_hz": Float(),
+                   "n_samples": Integer(), "units": String(), "speed_hz": Float(), "speed_source": String(),
+                   "origin": String(), "uploader": String(), "client_ref": String(), "checksum": String()}
+
+
+def _insert_record_checked(scoped: bool):
+    """INSERT INTO records (...) SELECT <values> FROM points [JOIN assets, areas] WHERE the point exists
+    [and lies in the key's site] RETURNING id: the point check and the insert in one statement; no row
+    means the point is missing or out of scope (``point_site`` then says which)."""
+    values = [bindparam(name, type_=type_) for name, type_ in _RECORD_COLUMNS.items()]
+    pick = select(Point.id, *values).where(Point.id == bindparam("point_id"))
+    if scoped:
+        pick = (pick.join(Asset, Asset.id == Point.asset_id).join(Area, Area.id == Asset.area_id)
+                .where(Area.site_id == bindparam("site_scope")))
+    return (insert(Record.__table__).from_select(["point_id", *_RECORD_COLUMNS], pick)
+            .returning(Record.__table__.c.id))
+
+
+_INSERT_CHECKED = {False: _insert_record_checked(False), True: _insert_record_checked(True)}
 _INSERT_WAVEFORM = insert(Waveform.__table__)
 _INSERT_JOB = insert(Job.__table__).returning(Job.__table__.c.id)
 
@@ -154,13 +173,22 @@ def ingest_record(db, *, point_id: int, samples, fs_hz: float, units: str | None
         packed_source = blobs.compress(source_bytes) if source_bytes is not None else None
         return (*blobs.encode_raw(x32), packed_source)  # the worker compacts it after the analysis
 
-    def _store(conn, codec, data, packed_source) -> IngestOutcome:
+    def _row(now) -> dict:
+        return dict(point_id=point_id, measured_at=measured_at, received_at=now, fs_hz=fs,
+                    n_samples=int(x32.size), units=canonical, speed_hz=speed,
+                    speed_source=(speed_source or "given") if speed else None, origin=origin,
+                    uploader=uploader[:120], client_ref=client_ref, checksum=digest)
+
+    def _store(conn, codec, data, packed_source, *, checked: bool = False) -> IngestOutcome:
         now = utcnow()
-        rid = conn.execute(_INSERT_RECORD, dict(
-            point_id=point_id, measured_at=measured_at, received_at=now, fs_hz=fs, n_samples=int(x32.size),
-            units=canonical, speed_hz=speed, speed_source=(speed_source or "given") if speed else None,
-            origin=origin, uploader=uploader[:120], client_ref=client_ref, checksum=digest,
-        )).scalar_one()
+        if checked:  # the point (and the key's site) checked by the insert itself
+            row = dict(_row(now), site_scope=site_scope)
+            rid = conn.execute(_INSERT_CHECKED[site_scope is not None], row).scalar()
+            if rid is None:
+                _scope(conn)  # raises NotFound or Forbidden naming the point
+                raise NotFound(f"no measurement point {point_id}; see GET /api/v1/tree", field="point_id")
+        else:
+            rid = conn.execute(_INSERT_RECORD, _row(now)).scalar_one()
         conn.execute(_INSERT_WAVEFORM, dict(record_id=rid, codec=codec, data=data, source_name=source_name,
                                             source_bytes=packed_source))
         jid = conn.execute(_INSERT_JOB, dict(record_id=rid, state="queued", reason="ingest", attempts=0,
@@ -175,8 +203,7 @@ def ingest_record(db, *, point_id: int, samples, fs_hz: float, units: str | None
     encoded = _encode()
     try:  # one transaction; a repeated client_ref trips the unique constraint and is answered below
         with db.write() as conn:
-            _scope(conn)
-            return _store(conn, *encoded)
+            return _store(conn, *encoded, checked=True)
     except IntegrityError:
         if client_ref is None:
             raise

@@ -9,12 +9,14 @@ The calling code is the same for both backends.
 from __future__ import annotations
 
 import logging
+import sqlite3
 import threading
 from collections.abc import Iterator
 from contextlib import contextmanager, nullcontext
 from pathlib import Path
 
 from sqlalchemy import Connection, Engine, create_engine, event, inspect, text
+from sqlalchemy.exc import DBAPIError
 from sqlalchemy.orm import Session, sessionmaker
 
 log = logging.getLogger(__name__)
@@ -44,9 +46,14 @@ def _sqlite_engine(url: str, *, immediate: bool, busy_timeout_ms: int) -> Engine
         cur.execute("PRAGMA foreign_keys=ON")
         cur.close()
 
+    begin = "BEGIN IMMEDIATE" if immediate else "BEGIN"
+
     @event.listens_for(engine, "begin")
-    def _on_begin(conn):
-        conn.exec_driver_sql("BEGIN IMMEDIATE" if immediate else "BEGIN")
+    def _on_begin(conn):  # straight to the driver: SQLAlchemy's execution path cost more than the BEGIN
+        try:
+            conn.connection.driver_connection.execute(begin)
+        except sqlite3.Error as exc:  # the same exception SQLAlchemy raises for a failed statement
+            raise DBAPIError.instance(begin, None, exc, sqlite3.Error) from exc
 
     return engine
 
