@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import datetime as dt
 
-from sqlalchemy import func, select
+from sqlalchemy import and_, func, or_, select
 
 from server.storage.queries import iso
 from server.storage.tables import Area, Asset, Job, Point, Record, Result, Route, RouteStop, Site, utcnow
@@ -16,21 +16,30 @@ OVERDUE_GRACE = 0.25
 def _latest_results(s, point_ids: list[int]) -> dict[int, Result]:
     if not point_ids:
         return {}
-    newest = (select(Result.point_id, func.max(Result.measured_ts).label("ts"))
-              .where(Result.point_id.in_(point_ids), Result.current.is_(True))
-              .group_by(Result.point_id).subquery())
-    rows = s.scalars(select(Result).join(newest, (Result.point_id == newest.c.point_id)
-                                         & (Result.measured_ts == newest.c.ts))
-                     .where(Result.current.is_(True)).order_by(Result.id))
-    return {r.point_id: r for r in rows}
+    # one max() per point through the (point_id, current, measured_ts) index: no scan of the history
+    newest = (select(func.max(Result.measured_ts))
+              .where(Result.point_id == Point.id, Result.current.is_(True))
+              .correlate(Point).scalar_subquery())
+    pairs = [(p, t) for p, t in s.execute(select(Point.id, newest).where(Point.id.in_(point_ids)))
+             if t is not None]
+    if not pairs:
+        return {}
+    out: dict[int, Result] = {}
+    for i in range(0, len(pairs), 200):  # index seeks; chunks keep the OR below SQLite's expression depth
+        match = or_(*[and_(Result.point_id == p, Result.measured_ts == t) for p, t in pairs[i:i + 200]])
+        for r in s.scalars(select(Result).where(Result.current.is_(True), match).order_by(Result.id)):
+            out[r.point_id] = r
+    return out
 
 
 def _last_records(s, point_ids: list[int]) -> dict[int, tuple[int, dt.datetime]]:
     if not point_ids:
         return {}
-    rows = s.execute(select(Record.point_id, func.max(Record.measured_at), func.count())
-                     .where(Record.point_id.in_(point_ids)).group_by(Record.point_id))
-    return {p: (n, t) for p, t, n in rows}
+    last = select(func.max(Record.measured_at)).where(Record.point_id == Point.id).correlate(Point)
+    count = select(func.count()).where(Record.point_id == Point.id).correlate(Point)
+    rows = s.execute(select(Point.id, last.scalar_subquery(), count.scalar_subquery())
+                     .where(Point.id.in_(point_ids)))
+    return {p: (n, t) for p, t, n in rows if n}
 
 
 def _pending(s, point_ids: list[int]) -> dict[int, dict[str, int]]:
