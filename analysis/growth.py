@@ -5,6 +5,9 @@ filter edges trimmed by 4/B, the fit window taken where the in-band SNR is at le
 before the envelope levels off (saturation, P7), the analytic-signal envelope computed on that window
 only (P1), envelope samples every 1.5/B s so they are nearly independent, then OLS of ln(envelope) on
 time with a t-distribution confidence interval. The rate λ is the exponent of A(t) ∝ e^{λt} in 1/s.
+When the line grows out of narrowband noise (a noise-excited mode well above the broadband floor) the
+interference level is measured from the record and the fit starts 14 dB over it; the interval uses
+autocorrelation-aware errors and a curvature term (analysis.growth_fit).
 """
 
 from __future__ import annotations
@@ -15,6 +18,14 @@ import numpy as np
 import scipy.fft as sfft
 from scipy import signal, special
 
+from .growth_fit import (  # noqa: F401  (ols and hac_stderr are imported from here too)
+    MIN_POINTS,
+    hac_stderr,
+    half_slope_gap,
+    interference_power,
+    log_envelope_fit,
+    ols,
+)
 from .results import Growth, Spectrum
 from .spectrum import f_isf
 
@@ -23,7 +34,6 @@ MIN_SNR_DB = 8.0
 #: over narrowband interference (a noise-excited mode that changes over seconds, not a white floor) the
 #: fit starts higher: its slow amplitude wander does not average out along the window
 NARROWBAND_SNR_DB = 14.0
-MIN_POINTS = 6
 SPACING_B = 1.5  # envelope samples every 1.5/B s
 TRIM_B = 4.0  # edge trim 4/B s
 
@@ -82,113 +92,6 @@ def _t975(dof: int) -> float:
 @lru_cache(maxsize=512)
 def _f99(dof: int) -> float:
     return f_isf(0.01, 1.0, float(dof))
-
-
-def ols(t: np.ndarray, y: np.ndarray) -> tuple[float, float, float]:
-    """Ordinary least squares y = c + λt: returns (λ, c, standard error of λ).
-
-    The standard error is the larger of the classical one and the HC3 heteroscedasticity-consistent one
-    (MacKinnon & White 1985): the log-envelope scatters most where the line is weakest, at the start of a
-    growing record, and the classical formula would then claim too narrow an interval.
-    """
-    n = len(t)
-    tm, ym = float(t.mean()), float(y.mean())
-    dt, dy = t - tm, y - ym
-    sxx = float(np.dot(dt, dt))
-    slope = float(np.dot(dt, dy)) / sxx
-    resid = dy - slope * dt
-    var_classic = float(np.dot(resid, resid)) / max(n - 2, 1) / sxx
-    lev = 1.0 / n + dt * dt / sxx
-    var_hc3 = float(np.sum((dt * resid / (1.0 - np.minimum(lev, 0.999))) ** 2)) / (sxx * sxx)
-    return slope, ym - slope * tm, float(np.sqrt(max(var_classic, var_hc3)))
-
-
-def _log_envelope_fit(
-    t: np.ndarray, e: np.ndarray, noise_power: float
-) -> tuple[float, float, float, np.ndarray]:
-    """OLS of ln A(t) from envelope samples |z| of a line in circular Gaussian band noise of power N.
-
-    E[ln|z|²] = ln A² + E1(A²/N) exactly (|z|²/N is non-central χ² with 2 d.o.f.), so the log-envelope
-    is corrected by E1 of the fitted SNR (two passes), which is nearly zero above 8 dB. Subtracting N
-    from |z|² before the log (pitfall P3) would instead bias the weak early points low, and the rate high.
-    Returns (λ, c, standard error of λ, corrected ln A).
-    """
-    ln_z2 = 2.0 * np.log(e)
-    ln_a = 0.5 * ln_z2
-    slope, intercept, stderr = ols(t, ln_a)
-    if noise_power > 0:
-        for _ in range(2):
-            rho = np.exp(2.0 * (intercept + slope * t)) / noise_power
-            ln_a = 0.5 * (ln_z2 - special.exp1(np.maximum(rho, 1e-3)))
-            slope, intercept, stderr = ols(t, ln_a)
-    return slope, intercept, stderr, ln_a
-
-
-def _half_slope_gap(t: np.ndarray, y: np.ndarray) -> float:
-    """|slope of the first half - slope of the second half|: curvature the straight line cannot follow
-    (saturation setting in, the decaying Floquet companion), added to the interval as model error."""
-    h = len(t) // 2
-    if h < MIN_POINTS // 2 + 2:
-        return 0.0
-    return abs(ols(t[:h], y[:h])[0] - ols(t[h:], y[h:])[0])
-
-
-def hac_stderr(t: np.ndarray, resid: np.ndarray) -> float:
-    """Newey-West (1987) standard error of an OLS slope with Bartlett weights.
-
-    The envelope of a line growing out of narrowband noise has residuals correlated over the noise's
-    coherence time, far beyond the 1.5/B spacing (methods note §5.4); the lag window is the larger of
-    the usual rule 4(n/100)^(2/9) and three times the lag where the residual autocorrelation first falls
-    below 0.1 (the Bartlett weights underweight a short window), at most n/4.
-    """
-    n = len(t)
-    dt = t - t.mean()
-    u = dt * resid
-    r = resid - resid.mean()
-    var0 = float(np.dot(r, r))
-    lags = int(np.floor(4.0 * (n / 100.0) ** (2.0 / 9.0)))
-    if var0 > 0:
-        acf = np.correlate(r, r, mode="full")[n - 1 : n - 1 + n // 4 + 1] / var0
-        below = np.flatnonzero(acf < 0.1)
-        lags = max(lags, 3 * int(below[0]) if len(below) else n // 4)
-    lags = min(lags, n // 4)
-    s = float(np.dot(u, u))
-    for j in range(1, lags + 1):
-        s += 2.0 * (1.0 - j / (lags + 1)) * float(np.dot(u[j:], u[:-j]))
-    sxx = float(np.dot(dt, dt))
-    return float(np.sqrt(max(s, 0.0)) / sxx) * np.sqrt(n / max(n - 2, 1))
-
-
-def _interference_power(t: np.ndarray, p: np.ndarray) -> float:
-    """In-band power under the growing line: fit ln p = ln(N + e^{c + 2λt}) to the block powers p up to the
-    end of the exponential stage (least squares in the log domain); returns N (0 when not determined)."""
-    from scipy.optimize import least_squares
-
-    if len(p) < MIN_POINTS + 2 or np.any(p <= 0):
-        return 0.0
-    lp = np.log(p)
-    head = max(3, len(p) // 8)
-    n0 = float(np.median(p[:head]))
-    slope0 = max(float(np.polyfit(t[-2 * head :], lp[-2 * head :], 1)[0]), 1e-6)
-    c0 = float(lp[-1] - slope0 * t[-1])
-
-    def resid(q):
-        return np.logaddexp(q[0], q[1] + q[2] * t) - lp
-
-    def jac(q):
-        share = 1.0 / (1.0 + np.exp(np.clip(q[1] + q[2] * t - q[0], -700.0, 700.0)))  # ∂/∂q0
-        return np.column_stack((share, 1.0 - share, (1.0 - share) * t))
-
-    try:
-        fit = least_squares(resid, [np.log(n0), c0, slope0], jac=jac, method="lm", max_nfev=200)
-    except ValueError:
-        return 0.0
-    ln_n, _, slope = fit.x
-    if not fit.success or slope <= 0:
-        return 0.0
-    # N is determined only when the record shows blocks at the interference level before the growth
-    crossing = (ln_n - fit.x[1]) / slope
-    return float(np.exp(ln_n)) if crossing > t[0] + (t[1] - t[0]) else 0.0
 
 
 def _prefix_line_sse(t: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -342,7 +245,7 @@ def estimate_growth(
     r1 = r0 + split
     # the line may grow out of narrowband noise (a noise-excited mode, methods note §6.2) that lies well
     # above the broadband floor: measure the in-band interference from the record itself (pitfall P3)
-    interference = _interference_power(t_blk[:r1], blk[:r1] ** 2)
+    interference = interference_power(t_blk[:r1], blk[:r1] ** 2)
     noise_power = max(2.0 * noise_var, interference)
     if interference > 2.0 * noise_var:
         ok = blk[:r1] ** 2 >= noise_power * (1.0 + 10 ** (NARROWBAND_SNR_DB / 10))
@@ -360,7 +263,7 @@ def estimate_growth(
     t, e = t[good], e[good]
     if len(t) < MIN_POINTS:
         return not_estimated("too few envelope points above the noise for a fit", (lo, hi)), env_t, env
-    slope, intercept, stderr, ln_a = _log_envelope_fit(t, e, noise_power)
+    slope, intercept, stderr, ln_a = log_envelope_fit(t, e, noise_power)
     if slope > 0 and noise_power > 0:
         # start where the fitted line, not the noisy data, passes the SNR gate: blocks that passed the gate
         # early because noise lifted them would bias the start high and the rate low (selection bias)
@@ -370,9 +273,9 @@ def estimate_growth(
         if MIN_POINTS <= np.count_nonzero(keep) < len(t):
             t, e = t[keep], e[keep]
             i0 = int(round(t[0] * fs)) - n_block // 2
-            slope, intercept, stderr, ln_a = _log_envelope_fit(t, e, noise_power)
+            slope, intercept, stderr, ln_a = log_envelope_fit(t, e, noise_power)
     stderr = max(stderr, hac_stderr(t, ln_a - intercept - slope * t))
-    stderr = float(np.hypot(stderr, 0.5 * _half_slope_gap(t, ln_a)))
+    stderr = float(np.hypot(stderr, 0.5 * half_slope_gap(t, ln_a)))
     half = _t975(len(t) - 2) * stderr
     ci = (slope - half, slope + half)
     state = "growing" if ci[0] > 0 else "decaying" if ci[1] < 0 else "steady"
