@@ -8,6 +8,7 @@
 
 from __future__ import annotations
 
+import functools
 import math
 import statistics
 
@@ -70,18 +71,28 @@ def remember_speed(speeds: list[float], speed_hz) -> list[float]:
     return speeds[-SPEED_HISTORY:]
 
 
+@functools.lru_cache(maxsize=64)
+def _pairs(n: int) -> tuple[np.ndarray, np.ndarray]:
+    """Index pairs (i < j) of n readings; the history is at most 30 long, so the few sizes are cached."""
+    i, j = np.triu_indices(n, k=1)
+    i.flags.writeable = j.flags.writeable = False
+    return i, j
+
+
 def theil_sen(x: list[float], y: list[float]) -> tuple[float, float]:
     """Theil-Sen line: slope = median of pairwise slopes, intercept = median(y) - slope * median(x).
 
     The same estimator as ``scipy.stats.theilslopes`` (checked against it in the tests), written
-    out with numpy because the worker runs it for every record.
+    out with numpy because the worker runs it for every record (the medians of the at most 30
+    readings are taken in plain Python, cheaper than numpy's for so few values).
     """
-    xa, ya = np.asarray(x, dtype=float), np.asarray(y, dtype=float)
-    i, j = np.triu_indices(xa.size, k=1)
+    xs, ys = [float(v) for v in x], [float(v) for v in y]
+    xa, ya = np.array(xs), np.array(ys)
+    i, j = _pairs(xa.size)
     dx = xa[j] - xa[i]
     keep = dx != 0
     slope = float(np.median((ya[j] - ya[i])[keep] / dx[keep]))
-    return slope, float(np.median(ya) - slope * np.median(xa))
+    return slope, statistics.median(ys) - slope * statistics.median(xs)
 
 
 def trend_and_forecast(

@@ -30,7 +30,7 @@ _ST, _R, _AS = AlarmPointStatus.__table__, AlarmRule.__table__, AlarmState.__tab
 
 RULE_COLUMNS = ("id", "point_id", "asset_id", "metric", "alert_level", "danger_level", "direction",
                 "zone_based", "persist_k", "persist_n", "hysteresis", "enabled", "is_default")
-STATE_COLUMNS = ("id", "metric", "level", "rule_id", "inactive_reason", "acked_level", "shelved_level",
+STATE_COLUMNS = ("metric", "id", "level", "rule_id", "inactive_reason", "acked_level", "shelved_level",
                  "shelved_until")
 STATUS_JSON = ("speeds_hz", "history", "windows", "window_fit", "last_metrics")
 # The status columns the evaluation writes. ``window_fit`` is not among them: the background refresh
@@ -148,8 +148,16 @@ def _json(value, empty):
     return json.loads(value) if isinstance(value, (str, bytes)) else value
 
 
+_POS = {key: i for i, key in enumerate(_READ.selected_columns.keys())}
+_RULE_POS = [_POS[f"r_{name}"] for name in RULE_COLUMNS]
+_STATE_POS = [_POS[f"as_{name}"] for name in STATE_COLUMNS]
+_R_ID, _AS_ID, _AS_METRIC = _POS["r_id"], _POS["as_id"], _POS["as_metric"]
+
+
 def read_point(conn, point_id: int) -> PointData:
-    """Everything one record's evaluation needs, in one query (raises if the point does not exist)."""
+    """Everything one record's evaluation needs, in one query (raises if the point does not exist).
+
+    Rows are read by position (precomputed), not by name: the row repeats once per rule."""
     rows = conn.execute(_READ_LOCKED if conn.dialect.name == "postgresql" else _READ, {"pid": point_id}).all()
     if not rows:
         from sqlalchemy.exc import NoResultFound
@@ -165,11 +173,11 @@ def read_point(conn, point_id: int) -> PointData:
     )
     rules, states = [], {}
     for row in rows:
-        if row.r_id is None:
+        if row[_R_ID] is None:
             continue
-        rules.append(RuleRow(*(getattr(row, f"r_{name}") for name in RULE_COLUMNS)))
-        if row.as_id is not None and row.as_metric not in states:
-            states[row.as_metric] = StateRow(**{name: getattr(row, f"as_{name}") for name in STATE_COLUMNS})
+        rules.append(RuleRow(*[row[i] for i in _RULE_POS]))
+        if row[_AS_ID] is not None and row[_AS_METRIC] not in states:
+            states[row[_AS_METRIC]] = StateRow(*[row[i] for i in _STATE_POS])
     nominal = (first.nominal_speed_hz or 0) * (first.forcing_multiplier or 1.0) or None
     where = {"point_id": first.p_id, "point": first.p_name, "asset_id": first.p_asset_id,
              "asset": first.a_name, "area_id": first.ar_id, "area": first.ar_name,

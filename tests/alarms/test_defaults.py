@@ -70,6 +70,23 @@ def test_trend_matches_scipy_theilslopes_and_forecast_is_exact():
     assert ttl == pytest.approx((math.log(10.0) - math.log(amp[-1])) / 0.2, rel=1e-9)
 
 
+def test_theil_sen_equals_scipy_theilslopes_on_noisy_uneven_data():
+    # Slope and intercept against scipy.stats.theilslopes (method "separate": intercept =
+    # median(y) - slope x median(x)), on uneven times with repeated time stamps and a stray reading.
+    from server.alarms.checks import theil_sen
+
+    rng = np.random.default_rng(3)
+    for n in (4, 7, 30):
+        x = np.sort(rng.uniform(0.0, 9.0, n))
+        x[1] = x[0]  # two readings at the same time: their pair has no slope
+        y = -1.0 + 0.15 * x + 0.05 * rng.standard_normal(n)
+        y[n // 2] += 2.0
+        ref = stats.theilslopes(y, x)
+        slope, intercept = theil_sen(list(x), list(y))
+        assert slope == pytest.approx(ref.slope, rel=1e-12)
+        assert intercept == pytest.approx(ref.intercept, rel=1e-12, abs=1e-12)
+
+
 def test_trend_is_robust_to_one_stray_reading():
     days = np.arange(12, dtype=float)
     amp = 0.5 * np.exp(0.1 * days)
