@@ -1,8 +1,5 @@
-"""Worker batches: one read per claimed batch, one write transaction with a savepoint per job, and the
-waveform codecs (the current one and the ones earlier versions wrote).
-
-Runs on a real SQLite file, and on PostgreSQL when HALFWATCH_TEST_POSTGRES_URL is set.
-"""
+"""Worker batches (one read per claimed batch, one write transaction for its results) and the waveform
+codecs, the current one and the ones earlier versions wrote."""
 
 from __future__ import annotations
 
@@ -12,29 +9,20 @@ import zlib
 import numpy as np
 import pytest
 from sqlalchemy import func, select, update
-from support.fixtures import settings_for
-from support.plant import make_plant
 from support.signals import tone_record
 
 from server import worker
-from server.migrations import upgrade
 from server.services.ingest import ingest_record
-from server.storage import Database, blobs
+from server.storage import blobs
 from server.storage.tables import Job, Result, Waveform
 
 T0 = dt.datetime(2026, 3, 2, 8, 0, tzinfo=dt.UTC)
 
 
-@pytest.fixture(params=["sqlite", "postgresql"])
-def env(request, tmp_path):
-    if request.param == "postgresql":
-        settings = request.getfixturevalue("pg_settings").model_copy(update={"retry_backoff_s": 0.0})
-    else:
-        settings = settings_for(tmp_path, retry_backoff_s=0.0)
-    upgrade(settings.database_url)
-    db = Database(settings.database_url)
-    yield db, settings, make_plant(db)
-    db.dispose()
+@pytest.fixture
+def env(hw_settings, migrated_db, plant):
+    """The shared fixtures (SQLite, and PostgreSQL too when HALFWATCH_TEST_POSTGRES_URL is set)."""
+    return migrated_db, hw_settings.model_copy(update={"retry_backoff_s": 0.0}), plant
 
 
 def queue(db, plant, rng, n: int) -> list:
@@ -163,4 +151,5 @@ def test_raw_blobs_decode_without_a_copy(rng):
     # hashlib's sha256 of the same bytes, however the array is held
     import hashlib
 
-    assert blobs.checksum(y) == hashlib.sha256(x.tobytes()).hexdigest() == blobs.checksum(x.astype(np.float64))
+    expected = hashlib.sha256(x.tobytes()).hexdigest()
+    assert blobs.checksum(y) == expected == blobs.checksum(x.astype(np.float64))
