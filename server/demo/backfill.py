@@ -65,7 +65,7 @@ def make_tasks(point_ids: dict[str, int], slots, anchor: dt.datetime) -> list[Ta
         iso = slot.when.strftime("%Y%m%dT%H%M%S")
         c = condition(asset, point, t_days, slot.when.hour, seed_for(point.name, iso))
         tasks.append(Task(point.name, point_ids[point.name], slot.when, point.online, c.kind, c.params,
-                          round(c.speed_hz, 4), point.fs_hz, demo_plant.record_samples(asset, point),
+                          round(c.speed_hz, 4), asset.fs_hz, demo_plant.record_samples(asset),
                           asset.multiplier, asset.group,
                           asset.foundation))
     return tasks

@@ -1,6 +1,6 @@
 """Simulated online sensors: every few seconds one new reading goes through the HTTP API with an API key.
 
-The sensors take turns (one point per tick; every 20th reading is a long diagnostic record), follow the
+The sensors take turns (one point per tick; each record as long as the hourly ones), follow the
 same scenario as the backfill (the onset on VP-102 keeps its level, the feed pump keeps whirling) and post
 raw float32 samples exactly as a gateway would: ``POST /api/v1/points/{id}/records`` with
 ``Authorization: Bearer <key>``.
@@ -19,10 +19,7 @@ from server.demo.scenario import condition, seed_for
 log = logging.getLogger("halfwatch.demo")
 
 
-DIAGNOSTIC_EVERY = 20  # every 20th live reading is a long diagnostic record, the others short trend records
-
-
-def reading(asset, point, when: dt.datetime, anchor: dt.datetime, *, diagnostic: bool = False):
+def reading(asset, point, when: dt.datetime, anchor: dt.datetime):
     """(float32 samples, query parameters) of one simulated reading at ``when``."""
     from analysis.simulate import simulate
     from server.storage.blobs import as_f4
@@ -30,9 +27,9 @@ def reading(asset, point, when: dt.datetime, anchor: dt.datetime, *, diagnostic:
     iso = when.strftime("%Y%m%dT%H%M%S.%f")
     seed = seed_for(point.name, iso)
     c = condition(asset, point, (when - anchor).total_seconds() / 86400.0, when.hour, seed)
-    n = demo_plant.record_samples(asset, point, live=diagnostic)
-    rec = simulate(c.kind, seed=seed, fs_hz=point.fs_hz, duration_s=n / point.fs_hz, **c.params)
-    params = {"fs_hz": point.fs_hz, "units": "g", "measured_at": when.isoformat(),
+    n = demo_plant.record_samples(asset)
+    rec = simulate(c.kind, seed=seed, fs_hz=asset.fs_hz, duration_s=n / asset.fs_hz, **c.params)
+    params = {"fs_hz": asset.fs_hz, "units": "g", "measured_at": when.isoformat(),
               "speed_hz": round(c.speed_hz, 4), "speed_source": "drive",
               "client_ref": f"live:{point.name}:{iso}"}
     return as_f4(rec.samples), params
@@ -61,8 +58,7 @@ class LiveSensors(threading.Thread):
             while not self.stop.wait(self.interval_s):
                 asset, point, pid = self.points[i % len(self.points)]
                 i += 1
-                x, params = reading(asset, point, dt.datetime.now(dt.UTC), self.anchor,
-                                    diagnostic=i % DIAGNOSTIC_EVERY == 1)
+                x, params = reading(asset, point, dt.datetime.now(dt.UTC), self.anchor)
                 try:
                     r = client.post(f"/api/v1/points/{pid}/records", params=params, content=x.tobytes())
                     ok = r.status_code in (200, 201)

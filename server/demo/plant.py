@@ -24,13 +24,19 @@ SITE_NAME = "Sallowmere Works"
 SITE_DESCRIPTION = ("Invented demo plant. Every reading here is simulated by the halfwatch simulator; "
                     "none is a measurement.")
 
-ONLINE_FS_HZ = 2560.0
-# The hourly history keeps short records (3.2 s, > 50 cycles of 1X above 16 Hz): fast to backfill, but
-# the analysis notes them "too-short-for-resolution" (whirl at 0.48X is not told from 0.5X). Route
-# records and the live diagnostic readings are long enough for the full resolution: 900 cycles of 1X
-# at 90 % of the nominal speed.
-ONLINE_SAMPLES = 8192
-DIAGNOSTIC_CYCLES = 920
+# Record length and sample rate per machine. Every record, online or on a walk, is long enough for the
+# analysis' full resolution (1X/200 with 8 averages, i.e. about 900 cycles of the forcing, far above the
+# T >= 250/f_1X needed to tell whirl at 0.48X from 0.5X): 920 cycles at 90 % of the nominal speed. The
+# sample rate is the lowest multiple of 64 Hz that is 2.56 x F_max (common practice) with F_max = 7X at
+# the machine's top speed (the simulated bearing tone's upper sideband is at 6.42X) -- low rates with long
+# records keep each record between 16,384 and 32,768 samples.
+RECORD_CYCLES = 920
+FMAX_ORDER = 7.0
+
+
+def machine_fs_hz(top_forcing_hz: float) -> float:
+    """Sample rate (Hz) for a machine whose forcing frequency reaches ``top_forcing_hz``."""
+    return 64.0 * -(-2.56 * FMAX_ORDER * top_forcing_hz // 64.0)
 
 
 @dataclass(frozen=True)
@@ -39,7 +45,6 @@ class PointSpec:
     location: str
     direction: str
     online: bool
-    fs_hz: float = ONLINE_FS_HZ
 
 
 @dataclass(frozen=True)
@@ -55,8 +60,13 @@ class AssetSpec:
     forcing_kind: str = "shaft"
     multiplier: float = 1.0
     one_x_mm_s: float = 1.2  # 1X velocity r.m.s. in good condition
+    top_speed_factor: float = 1.0  # highest shaft speed / nominal (VP-102's setpoint rise, CT-3's drive)
     description: str = ""
     points: tuple[PointSpec, ...] = ()
+
+    @property
+    def fs_hz(self) -> float:
+        return machine_fs_hz(self.nominal_hz * self.multiplier * self.top_speed_factor * 1.003)
 
 
 def _pts(tag: str, *items: tuple[str, str, bool]) -> tuple[PointSpec, ...]:
@@ -75,7 +85,8 @@ ASSETS: tuple[AssetSpec, ...] = (
               one_x_mm_s=1.3, description="Vertical turbine pump on a tall motor stand.",
               points=_pts("VP-101", ("motor top", "horizontal", False), ("motor top", "vertical", False))),
     AssetSpec("Raw water intake", "Intake pump VP-102", "pump", "onset", 24.0, 160, "flexible",
-              one_x_mm_s=1.3, description="Vertical turbine pump on a variable-speed drive.",
+              one_x_mm_s=1.3, top_speed_factor=25.4 / 24.0,
+              description="Vertical turbine pump on a variable-speed drive.",
               points=_pts("VP-102", ("motor top", "horizontal", True), ("motor top", "vertical", False))),
     AssetSpec("Raw water intake", "Intake pump VP-103", "pump", "looseness", 24.75, 160, "flexible",
               one_x_mm_s=3.4, description="Vertical turbine pump on a tall motor stand.",
@@ -105,8 +116,9 @@ ASSETS: tuple[AssetSpec, ...] = (
               points=_pts("GB-2", ("input bearing", "horizontal", False),
                           ("output bearing", "axial", False))),
     AssetSpec("Cooling and process water", "Cooling tower fan CT-3", "fan", "variable", 19.0, 75, "flexible",
-              one_x_mm_s=1.4, description="Variable-speed fan: the drive follows the cooling-water "
-              "temperature over the day.", points=_pts("CT-3", ("gearbox output", "horizontal", True))),
+              one_x_mm_s=1.4, top_speed_factor=1.06 * 1.003,
+              description="Variable-speed fan: the drive follows the cooling-water temperature over the day.",
+              points=_pts("CT-3", ("gearbox output", "horizontal", True))),
     AssetSpec("Cooling and process water", "Chilled water pump CHW-1", "pump", "healthy", 24.6, 45,
               one_x_mm_s=0.9, points=_pts("CHW-1", ("pump drive end", "horizontal", False),
                                           ("motor non-drive end", "vertical", False))),
@@ -124,12 +136,10 @@ ROUTES = {
 ROUTE_INTERVAL_H = 168.0
 
 
-def record_samples(asset: AssetSpec, point: PointSpec, *, live: bool = False) -> int:
-    """Samples per record: short for the hourly history, diagnostic length for routes and live readings."""
-    if point.online and not live:
-        return ONLINE_SAMPLES
-    seconds = DIAGNOSTIC_CYCLES / (0.9 * asset.nominal_hz * asset.multiplier)
-    return int(-(-seconds * point.fs_hz // 4096) * 4096)
+def record_samples(asset: AssetSpec) -> int:
+    """Samples per record: RECORD_CYCLES of the forcing at 90 % of nominal, rounded up to 4,096."""
+    seconds = RECORD_CYCLES / (0.9 * asset.nominal_hz * asset.multiplier)
+    return int(-(-seconds * asset.fs_hz // 4096) * 4096)
 
 
 def tag(asset: AssetSpec) -> str:
@@ -164,7 +174,7 @@ def ensure_plant(db) -> dict[str, int]:
                 by_tag[tag(spec)] = []
                 for p in spec.points:
                     point = Point(asset_id=asset.id, name=p.name, location=p.location, direction=p.direction,
-                                  units="g", expected_fs_hz=p.fs_hz)
+                                  units="g", expected_fs_hz=spec.fs_hz)
                     s.add(point)
                     s.flush()
                     ensure_default_rules(s, point)

@@ -30,9 +30,9 @@ def analyse(tag: str, t_days: float, hour: int = 3, *, online: bool = True) -> d
     asset = _asset(tag)
     point = next(p for p in asset.points if p.online == online)
     c = scenario.condition(asset, point, t_days, hour, seed=1234)
-    n = plant.record_samples(asset, point)
-    rec = simulate(c.kind, seed=7, fs_hz=point.fs_hz, duration_s=n / point.fs_hz, **c.params)
-    return analyze_record(rec.samples.astype("<f4"), point.fs_hz, units="g", machine_group=asset.group,
+    n = plant.record_samples(asset)
+    rec = simulate(c.kind, seed=7, fs_hz=asset.fs_hz, duration_s=n / asset.fs_hz, **c.params)
+    return analyze_record(rec.samples.astype("<f4"), asset.fs_hz, units="g", machine_group=asset.group,
                           foundation=asset.foundation, forcing_hz=c.speed_hz * asset.multiplier).to_dict()
 
 
@@ -68,6 +68,25 @@ def test_feed_pump_whirls_and_vp103_shows_steady_looseness():
     assert loose["overall"]["zone"] in ("A", "B")
     healthy = analyse("AC-2", -10.0, online=False)
     assert not healthy["subharmonic"]["detected"] and healthy["overall"]["zone"] in ("A", "B")
+
+
+@pytest.mark.parametrize("asset", plant.ASSETS, ids=plant.tag)
+def test_every_record_is_long_enough_to_tell_whirl_from_half_order(asset):
+    # methods: 0.48X and 0.5X are 0.02 f_1X apart, so T >= 250 / f_1X (Rayleigh 1/T, common practice);
+    # the analysis' full resolution asks for about 900 cycles. Sampling 2.56 x F_max (common practice)
+    # with F_max = 7X at the top speed.
+    n, fs = plant.record_samples(asset), asset.fs_hz
+    slowest = 0.94 * asset.nominal_hz * asset.multiplier  # CT-3's drive goes 6 % below nominal
+    top = asset.nominal_hz * asset.multiplier * asset.top_speed_factor
+    assert n / fs >= 900.0 / slowest > 250.0 / slowest
+    assert fs >= 2.56 * 7.0 * top
+    assert 16_384 <= n <= 32_768
+
+
+def test_hourly_readings_carry_no_resolution_note():
+    for tag in ("VP-102", "ID-1", "BFP-2", "CT-3"):
+        r = analyse(tag, -2.0, hour=15)
+        assert "too-short-for-resolution" not in r["quality"]["flags"], tag
 
 
 def test_variable_speed_fan_stays_within_the_usual_speed_band():
