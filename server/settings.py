@@ -50,7 +50,7 @@ class Settings(BaseSettings):
 
     # login throttling (per user name and per client address)
     login_max_failures: int = Field(default=5, ge=1, description="failed logins allowed per window")
-    login_window_s: float = Field(default=900.0, gt=0)
+    login_window_s: float = Field(default=900.0, gt=0, description="seconds over which failed logins count")
 
     # worker
     worker_poll_s: float = Field(default=0.5, gt=0)
