@@ -44,8 +44,12 @@ def queue_for_events(session: Session, events: list[AlarmEvent], *, now: dt.date
     if not events:
         return []
     per_recipient: dict[str, tuple[AlarmSubscription, list[AlarmEvent]]] = {}
+    subscribers: dict[tuple, list[AlarmSubscription]] = {}  # one query per scope (one for a record's events)
     for event in events:
-        for sub in matching_subscriptions(session, event):
+        scope = (event.site_id, event.area_id, event.asset_id)
+        if scope not in subscribers:
+            subscribers[scope] = matching_subscriptions(session, event)
+        for sub in subscribers[scope]:
             if event.kind == "data-quality":
                 if not sub.include_data_quality:
                     continue
