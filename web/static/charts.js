@@ -44,8 +44,10 @@
       out.push({ x, y: s.min, type: "scatter", mode: "lines", line: { width: 0, color }, fill: "tonexty",
         fillcolor: color + "33", name: name + " min–max", hoverinfo: "skip", yaxis, connectgaps: false });
     }
-    out.push({ x, y: s.mean, type: "scatter", mode: "lines+markers", marker: { size: 3, color }, line: { width: 1.6, color },
-      name, yaxis, connectgaps: false });
+    // bucketed series (min/max present) or long ones draw as lines only: fewer SVG nodes, faster pages
+    const dense = Boolean(s.min) || x.length > 400;
+    out.push({ x, y: s.mean, type: "scatter", mode: dense ? "lines" : "lines+markers", marker: { size: 3, color },
+      line: { width: 1.6, color }, name, yaxis, connectgaps: false });
     return out;
   };
 
