@@ -130,15 +130,23 @@ def test_record_page_marks_half_order_at_half_the_forcing_frequency(login, site,
     assert found["x"][0] == pytest.approx(0.5 * 24.75, abs=0.5)  # the detected line is at 0.5X
     # cursor read-out in Hz and orders: move the mouse onto the 0.5X line
     page.locator("#chart-spectrum").scroll_into_view_if_needed()
-    x, y = page.evaluate("""() => { const gd = document.getElementById('chart-spectrum');
-        const xa = gd._fullLayout.xaxis, ya = gd._fullLayout.yaxis, r = gd.getBoundingClientRect();
-        return [r.left + xa._offset + xa.l2p(12.375), r.top + ya._offset + ya.l2p(ya.range[1] * 0.3)]; }""")
-    page.mouse.move(x - 30, y)
-    page.mouse.move(x, y, steps=4)
-    page.wait_for_function("() => document.getElementById('readout').textContent.includes('X')", timeout=5000)
-    readout = page.locator("#readout").inner_text()
-    hz = float(readout.split("Hz")[0])
-    order = float(readout.split("=")[1].split("X")[0])
+    # the page may still re-lay out while later charts arrive, so aim again if the first hover misses
+    for _attempt in range(5):
+        x, y = page.evaluate("""() => { const gd = document.getElementById('chart-spectrum');
+            const xa = gd._fullLayout.xaxis, ya = gd._fullLayout.yaxis, r = gd.getBoundingClientRect();
+            return [r.left + xa._offset + xa.l2p(12.375),
+                    r.top + ya._offset + ya.l2p(ya.range[1] * 0.3)]; }""")
+        page.mouse.move(x - 30, y)
+        page.mouse.move(x, y, steps=4)
+        page.wait_for_function(
+            "() => document.getElementById('readout').textContent.includes('X')", timeout=5000)
+        readout = page.locator("#readout").inner_text()
+        hz = float(readout.split("Hz")[0])
+        order = float(readout.split("=")[1].split("X")[0])
+        if abs(order - 0.5) <= 0.06:
+            break
+        page.mouse.move(0, 0)
+        page.wait_for_timeout(300)
     assert order == pytest.approx(hz / 24.75, abs=1e-3)  # the read-out's orders are Hz / forcing
     assert order == pytest.approx(0.5, abs=0.06)  # near the cursor (the chart spectrum is decimated)
     page.click("#zoom-half")
