@@ -184,3 +184,48 @@ def test_late_and_reanalysed_records_do_not_move_levels(feeder, plant, migrated_
     assert history[0] == [late.timestamp(), 4.5]
     levels = {a["metric"]: a["level"] for a in service.list_alarms(migrated_db, view="all")}
     assert levels["half_order_velocity"] == "alert"
+
+
+def test_a_calm_record_costs_one_read_and_one_write(feeder, plant, migrated_db, hw_settings):
+    # The worker's hot path: a record that changes no level reads the point's data in one SELECT and
+    # writes only the status row (one UPDATE); a level change also writes its event and state rows.
+    import json
+
+    from sqlalchemy import event
+
+    from server.alarms import evaluate_result
+    from server.storage.tables import Record, Result
+
+    for _ in range(6):  # enough readings for the trend: no rule's inactive reason changes any more
+        feeder.feed(plant.point_id, make_result(half_v=0.2))
+    seen: list[str] = []
+
+    def count(conn, cursor, statement, *args):
+        seen.append(statement.split(None, 1)[0].upper())
+
+    def evaluate(data, at):
+        with migrated_db.unit_of_work() as s:
+            rec = Record(point_id=plant.point_id, measured_at=at, fs_hz=2560.0, n_samples=25600, units="m/s2",
+                         origin="api", uploader="test", checksum=f"{at.timestamp():064.0f}")
+            s.add(rec)
+            s.flush()
+            res = Result(record_id=rec.id, point_id=plant.point_id, measured_ts=at.timestamp(),
+                         analysis_version="test", data=json.dumps(data), spectrum=b"")
+            s.add(res)
+            s.flush()
+            seen.clear()
+            event.listen(migrated_db.write_engine, "before_cursor_execute", count)
+            try:
+                events = evaluate_result(s, rec, res, settings=hw_settings, now=at)
+                s.flush()
+            finally:
+                event.remove(migrated_db.write_engine, "before_cursor_execute", count)
+            return events, list(seen)
+
+    events, statements = evaluate(make_result(half_v=0.2), T0 + dt.timedelta(days=3))
+    assert events == [] and statements == ["SELECT", "UPDATE"]
+    evaluate(make_result(half_v=2.0), T0 + dt.timedelta(days=4))
+    events, statements = evaluate(make_result(half_v=2.0), T0 + dt.timedelta(days=5))  # 2 of 3: alert
+    assert [(e.metric, e.to_level) for e in events if e.metric == "half_order_velocity"] == [
+        ("half_order_velocity", "alert")]
+    assert statements[0] == "SELECT" and "INSERT" in statements and statements.count("UPDATE") >= 2
