@@ -4,7 +4,7 @@ VENV ?= .venv
 PY := $(VENV)/bin/python
 STAMP := $(VENV)/.installed-stamp
 
-.PHONY: test demo lint bench clean
+.PHONY: install test demo lint bench clean
 
 $(STAMP): pyproject.toml
 	@test -x $(PY) || $(PYTHON) -m venv $(VENV)
@@ -12,6 +12,8 @@ $(STAMP): pyproject.toml
 	$(PY) -m pip install -q -e '.[test]' 2>&1 | grep -v '^WARNING: Location' || true
 	$(PY) -c "import analysis, server, fastapi, scipy, sqlalchemy, pytest"
 	@touch $(STAMP)
+
+install: $(STAMP)
 
 test: $(STAMP)
 	$(PY) -m pytest -q tests
