@@ -116,7 +116,7 @@ ASSETS: tuple[AssetSpec, ...] = (
               points=_pts("GB-2", ("input bearing", "horizontal", False),
                           ("output bearing", "axial", False))),
     AssetSpec("Cooling and process water", "Cooling tower fan CT-3", "fan", "variable", 19.0, 75, "flexible",
-              one_x_mm_s=1.4, top_speed_factor=1.06 * 1.003,
+              one_x_mm_s=1.4, top_speed_factor=1.045 * 1.003,
               description="Variable-speed fan: the drive follows the cooling-water temperature over the day.",
               points=_pts("CT-3", ("gearbox output", "horizontal", True))),
     AssetSpec("Cooling and process water", "Chilled water pump CHW-1", "pump", "healthy", 24.6, 45,

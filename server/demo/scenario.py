@@ -30,6 +30,8 @@ RESTART_HOUR = 6
 WHIRL_START_DAY = -61.0  # the feed pump's bearing change
 LOOSENESS_MM_S = 2.7
 START_DAY = -90.0
+# CT-3: +-4.5 % over the day, so every speed stays within the data-quality check's 10 % of the usual one
+SWING = 0.045
 
 
 @dataclass(frozen=True)
@@ -68,8 +70,8 @@ def condition(asset: AssetSpec, point: PointSpec, t_days: float, hour: int, seed
     if b == "onset":
         return _onset(asset, point, t_days, hour, seed)
     if b == "variable":
-        speed = asset.nominal_hz * (1.0 + 0.06 * math.sin(2 * math.pi * (hour - 9) / 24.0)) * _jitter(seed, 2,
-                                                                                                        0.003)
+        swing = 1.0 + SWING * math.sin(2 * math.pi * (hour - 9) / 24.0)
+        speed = asset.nominal_hz * swing * _jitter(seed, 2, 0.003)
         p = _background(asset, point, speed, seed, scale=(speed / asset.nominal_hz) ** 2)
         return Condition("healthy", speed, p, "variable speed follows the day's temperature")
     forcing = speed * asset.multiplier
