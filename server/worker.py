@@ -23,8 +23,9 @@ from types import SimpleNamespace
 
 from sqlalchemy import and_, bindparam, insert, or_, select, update
 
+from analysis.results import max_hold
 from server.storage import blobs
-from server.storage.packing import max_hold, pack_arrays
+from server.storage.packing import pack_arrays
 from server.storage.tables import Asset, Job, Point, Record, Result, Waveform, utcnow
 
 log = logging.getLogger("halfwatch.worker")

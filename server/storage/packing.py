@@ -30,17 +30,3 @@ def unpack_arrays(blob: bytes) -> tuple[dict, dict[str, np.ndarray]]:
         out[name] = np.frombuffer(body, dtype="<f4", count=size, offset=offset).astype(np.float64)
         offset += 4 * size
     return header["meta"], out
-
-
-def max_hold(x: np.ndarray, y: np.ndarray, max_points: int) -> tuple[np.ndarray, np.ndarray]:
-    """At most max_points (x, y) pairs: each bucket's maximum at its own x (vectorised; peaks survive)."""
-    x, y = np.asarray(x), np.asarray(y)
-    n = y.size
-    if n <= max_points:
-        return x.copy(), y.copy()
-    edges = np.linspace(0, n, max_points + 1).astype(np.intp)
-    starts, lengths = edges[:-1], np.diff(edges)
-    grid = starts[:, None] + np.arange(lengths.max())[None, :]
-    vals = np.where(grid < edges[1:, None], y[np.minimum(grid, n - 1)], -np.inf)
-    idx = starts + np.argmax(vals, axis=1)
-    return x[idx], y[idx]
