@@ -4,6 +4,11 @@
   cable fault flags from the analysis, or a speed unlike the point's usual or the asset's nominal).
 * :func:`trend_and_forecast` fits ln(amplitude) against time in days with Theil-Sen (robust to a
   stray reading) and forecasts the time to a limit: dB/day = 20 / ln(10) x slope.
+* The alarm rules read the trend from :func:`trend_history` (readings pooled into 6-hour buckets, the
+  geometric mean of each, see :func:`add_to_buckets`) with ``conservative=True``: the trend is the
+  lower bound of the slope's 90 % interval (Sen's interval from Kendall's tau, as
+  ``scipy.stats.theilslopes``) and the time to the limit is the one that lower slope gives (the upper
+  bound of the time). A steady line with scatter therefore neither raises nor flaps; a real rise does.
 """
 
 from __future__ import annotations
@@ -28,6 +33,14 @@ DB_PER_NEPER = 20.0 / math.log(10.0)  # 8.6859 dB per unit of ln(amplitude)
 NO_FORECAST_DAYS = 9999.0  # "not growing": reads as far beyond any time-to-limit level
 SPEED_HISTORY = 20
 MIN_USUAL_SPEEDS = 3
+# Trend buckets (house choice): readings pooled per 6 h, the newest 40 buckets (10 days at an hourly
+# rate, 40 readings of a monthly route). A fit for the rules needs 6 buckets spanning at least 3 days.
+BUCKET_S = 6 * 3600.0
+BUCKETS_KEPT = 40
+RULE_MIN_POINTS = 6
+RULE_MIN_SPAN_DAYS = 3.0
+TREND_CONFIDENCE = 0.90  # two-sided; its lower end is a one-sided 95 % bound
+_Z = {0.90: 1.6448536269514722, 0.95: 1.959963984540054}  # standard normal quantiles (scipy.stats.norm)
 
 
 def data_quality_problem(
@@ -95,18 +108,81 @@ def theil_sen(x: list[float], y: list[float]) -> tuple[float, float]:
     return slope, statistics.median(ys) - slope * statistics.median(xs)
 
 
+def theil_sen_interval(x: list[float], y: list[float],
+                       confidence: float = TREND_CONFIDENCE) -> tuple[float, float]:
+    """Sen's confidence interval of the Theil-Sen slope (the one of ``scipy.stats.theilslopes``).
+
+    The order statistics of the pairwise slopes at ``(N -/+ z sigma) / 2`` with N the number of
+    slopes and sigma the standard deviation of Kendall's S, corrected for ties in x (Sen 1968).
+    """
+    xa, ya = np.asarray(x, dtype=float), np.asarray(y, dtype=float)
+    i, j = _pairs(xa.size)
+    dx = xa[j] - xa[i]
+    keep = dx != 0
+    slopes = np.sort((ya[j] - ya[i])[keep] / dx[keep])
+    n = xa.size
+    _, counts = np.unique(xa, return_counts=True)
+    ties = float(np.sum(counts * (counts - 1) * (2 * counts + 5)))
+    sigma = math.sqrt((n * (n - 1) * (2 * n + 5) - ties) / 18.0)
+    z = _Z.get(confidence)
+    if z is None:
+        from scipy.stats import norm
+
+        z = float(norm.ppf(0.5 + confidence / 2.0))
+    upper = min(int(round((slopes.size + z * sigma) / 2.0)), slopes.size - 1)
+    lower = max(int(round((slopes.size - z * sigma) / 2.0)) - 1, 0)
+    return float(slopes[lower]), float(slopes[upper])
+
+
+def add_to_buckets(buckets: list[list[float]], ts: float, amplitude: float, *,
+                   width_s: float = BUCKET_S, kept: int = BUCKETS_KEPT) -> list[list[float]]:
+    """Pool one reading into its time bucket ``[start_s, n_all, n_line, sum_t, sum_ln]`` (time order kept).
+
+    Only the sums are stored, so a bucket costs five numbers whatever the reading rate.
+    """
+    start = math.floor(ts / width_s) * width_s
+    out = [list(b) for b in buckets]
+    for b in out:
+        if b[0] == start:
+            break
+    else:
+        b = [start, 0, 0, 0.0, 0.0]
+        out = sorted([*out, b], key=lambda item: item[0])
+    b[1] += 1
+    if amplitude and amplitude > 0:
+        b[2] += 1
+        b[3] += ts
+        b[4] += math.log(amplitude)
+    return out[-kept:]
+
+
+def trend_history(buckets: list[list[float]]) -> list[list[float]]:
+    """``[[epoch_s, amplitude], ...]`` of the buckets: the geometric mean of a bucket's lines at their
+    mean time, or 0 (no line) when fewer than half of its readings had one."""
+    out = []
+    for start, n_all, n_line, sum_t, sum_ln in buckets:
+        if n_line and 2 * n_line >= n_all:
+            out.append([sum_t / n_line, math.exp(sum_ln / n_line)])
+        else:
+            out.append([start + BUCKET_S / 2, 0.0])
+    return out
+
+
 def trend_and_forecast(
     history: list[list[float]],
     *,
     limit: float | None,
     min_points: int = 4,
     min_span_days: float = 1.0 / 24.0,
+    conservative: bool = False,
 ) -> tuple[float | None, float | None]:
     """``(dB/day, days to limit)`` from ``[[epoch_s, amplitude], ...]`` (oldest first).
 
     The fit uses the run of detected (positive) amplitudes that ends at the newest reading. When the
     newest reading has no half-order line the trend is 0 dB/day and there is no forecast. ``None``
-    means too few readings to say anything.
+    means too few readings to say anything. With ``conservative`` the slope is the lower end of its
+    90 % interval (see :func:`theil_sen_interval`): the trend is the least growth the readings
+    support, and the time to the limit the longest.
     """
     if not history:
         return None, None
@@ -125,10 +201,12 @@ def trend_and_forecast(
         return None, None
     logs = [math.log(a) for _, a in run]
     slope, intercept = theil_sen(days, logs)
+    now_log = intercept + slope * days[-1]  # the fitted level now (median line)
+    if conservative:
+        slope = theil_sen_interval(days, logs)[0]
     db_per_day = DB_PER_NEPER * float(slope)
     if limit is None or limit <= 0:
         return db_per_day, None
-    now_log = intercept + slope * days[-1]
     if now_log >= math.log(limit):
         return db_per_day, 0.0
     if slope <= 0:

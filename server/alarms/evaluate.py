@@ -22,10 +22,13 @@ from . import checks, margin
 from .engine import Reading, step
 from .notify import queue_for_events
 from .pointstate import PointData, StateRow, effective, read_point, write_states, write_status
-from .rules import LEVEL_RANK, METRICS, RuleSpec, default_rules, result_metrics
+from .rules import LEVEL_RANK, METRICS, SLOW_RULES_DWELL_S, RuleSpec, default_rules, result_metrics
 from .tables import AlarmEvent, AlarmRule
 
 HISTORY_LEN = 30
+# Keys of the status row's ``windows`` JSON that are not rule windows: the trend buckets
+# (checks.add_to_buckets) and, per slow rule, the measurement time its level was reached.
+TREND_KEY, SINCE_KEY = "@trend", "@since"
 
 
 def rule_spec(row: AlarmRule) -> RuleSpec:
@@ -153,8 +156,14 @@ def _evaluate(session: Session, record, result, settings, now: dt.datetime) -> l
     previous = dict(status.last_metrics)
     history = [*old, [ts, metrics["half_order_velocity"] or 0.0]][-HISTORY_LEN:]
     danger_of = {r.metric: r.danger_level for r in rules}
+    windows = dict(status.windows)
+    buckets = checks.add_to_buckets(windows.get(TREND_KEY, []), ts, metrics["half_order_velocity"] or 0.0)
+    windows[TREND_KEY] = buckets
+    since = dict(windows.get(SINCE_KEY, {}))
+    trend_points = checks.trend_history(buckets)
     metrics["trend_db_per_day"], metrics["time_to_limit_days"] = checks.trend_and_forecast(
-        history, limit=danger_of.get("half_order_velocity")
+        trend_points, limit=danger_of.get("half_order_velocity"), conservative=True,
+        min_points=checks.RULE_MIN_POINTS, min_span_days=checks.RULE_MIN_SPAN_DAYS,
     )
     metrics["threshold_margin"], margin_reason = margin.threshold_margin(status, data)
     status.history = history
@@ -165,7 +174,6 @@ def _evaluate(session: Session, record, result, settings, now: dt.datetime) -> l
 
     events, touched = [], []
     forecast: dict | None = None  # the detailed forecast, computed once if anything changes
-    windows = dict(status.windows)
     for row in rules:
         spec = rule_spec(row)
         state = point.states.get(row.metric)
@@ -186,10 +194,14 @@ def _evaluate(session: Session, record, result, settings, now: dt.datetime) -> l
         window = [Reading.from_list(item) for item in windows.get(row.metric, [])]
         new_level, window, tr = step(spec, state.level, window, Reading(value, *levels))
         windows[row.metric] = [r.to_list() for r in window]
+        if tr is not None and _dwelling(row.metric, tr, since, ts):
+            tr = None  # a slow rule holds its level for a while before it may drop
         if tr is None:
             continue  # the state row is written only when its level changes
+        if row.metric in SLOW_RULES_DWELL_S:
+            since[row.metric] = ts
         if forecast is None:
-            forecast = checks.detailed_forecast(history, limit=danger_of.get("half_order_velocity"))
+            forecast = checks.detailed_forecast(trend_points, limit=danger_of.get("half_order_velocity"))
         for name, v in (("window", windows[row.metric]), ("last_value", value), ("last_record_id", record.id),
                         ("updated_at", now)):
             state.set(name, v)
@@ -206,6 +218,8 @@ def _evaluate(session: Session, record, result, settings, now: dt.datetime) -> l
         )
         _apply_transition(state, new_level, now)
         events.append((event, state))
+    if since:
+        windows[SINCE_KEY] = since
     status.windows = windows
     if events:
         session.add_all([e for e, _ in events])
@@ -214,8 +228,19 @@ def _evaluate(session: Session, record, result, settings, now: dt.datetime) -> l
             state.set("last_event_id", event.id)
     write_states(conn, point, touched)
     write_status(conn, point.point_id, status, now)
-    queue_for_events(session, [e for e, s in events if not _shelved(s, now)], now=now)
+    queue_for_events(session, [e for e, s in events if not _shelved(s, now) and _announced(e)], now=now)
     return [e for e, _ in events]
+
+
+def _dwelling(metric: str, tr, since: dict, ts: float) -> bool:
+    """True while a slow rule's drop comes sooner than its dwell time after the level was reached."""
+    dwell = SLOW_RULES_DWELL_S.get(metric)
+    return bool(dwell) and not tr.escalation and ts - float(since.get(metric, -math.inf)) < dwell
+
+
+def _announced(event: AlarmEvent) -> bool:
+    """Planners get escalations and clears; a drop to a lower level of an open alarm stays in the trail."""
+    return event.to_level == "normal" or LEVEL_RANK[event.to_level] > LEVEL_RANK[event.from_level]
 
 
 def merge_history(history: list[list[float]], ts: float, value: float) -> list[list[float]]:

@@ -155,7 +155,8 @@ def send_claimed(db, settings, ids: list[int], *, me: str, now: dt.datetime | No
             try:
                 smtp.send_message(msg, to_addrs=[recipient])
             except smtplib.SMTPRecipientsRefused as exc:
-                _retry(db, row_id, me, attempts, f"refused: {exc.recipients}", settings, permanent=True)
+                _retry(db, row_id, me, attempts, f"refused: {exc.recipients}", settings, permanent=True,
+                       now=now)
                 continue
             except smtplib.SMTPResponseException as exc:
                 permanent = 500 <= exc.smtp_code < 600

@@ -75,7 +75,8 @@ def forecast_text(metrics: dict, danger: float | None, detailed: dict | None = N
         return "already at or above the danger level"
     days = metrics.get("time_to_limit_days")
     if days is None:
-        return "not enough readings yet for a forecast"
+        return (f"not enough readings yet for a forecast to the danger level{limit} "
+                "(it needs readings over at least 3 days)")
     if days >= 9999:
         return "half-order level not rising: no forecast"
     if days <= 0:

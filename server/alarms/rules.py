@@ -59,6 +59,13 @@ METRICS: dict[str, MetricInfo] = {
 }
 
 
+# Rules on the trend across records change slowly and are fitted to the same readings again and again,
+# so consecutive values are not independent: k of n alone cannot stop them flapping. A level they
+# reached is held for at least this long (measurement time) before it may drop (house choice: two days,
+# several times the 6-hour bucket of the trend fit).
+SLOW_RULES_DWELL_S = {"trend_db_per_day": 2 * 86400.0, "time_to_limit_days": 2 * 86400.0}
+
+
 @dataclass(frozen=True, slots=True)
 class RuleSpec:
     """One alarm rule.
@@ -133,10 +140,13 @@ def default_rules(*, group: int = 2, support: str = "rigid") -> list[RuleSpec]:
         RuleSpec("half_order_ratio", 0.25, 0.5),
         # Growth inside one record, counted only when its 95 % CI excludes zero (house choice).
         RuleSpec("growth_rate", 0.05, 0.5),
-        # Trend across records: +1 dB/day alerts, +3 dB/day is danger (house choice).
-        RuleSpec("trend_db_per_day", 1.0, 3.0),
+        # Trend across records: +1 dB/day alerts, +3 dB/day is danger (house choice). The slow rules
+        # read the conservative end of the fit's interval, need 3 of 4 readings and clear only well
+        # back (an alert at 1 dB/day below 0.5 dB/day, a 30-day forecast beyond 45 days), and hold a
+        # level for SLOW_RULES_DWELL_S before it may drop.
+        RuleSpec("trend_db_per_day", 1.0, 3.0, k=3, n=4, hysteresis=0.5),
         # Forecast to the half-order danger level: within 30 days alerts, within 7 days is danger.
-        RuleSpec("time_to_limit_days", 30.0, 7.0, direction="below"),
+        RuleSpec("time_to_limit_days", 30.0, 7.0, k=3, n=4, hysteresis=0.5, direction="below"),
         # Overall level against the ISO 20816 zones: C alerts, D is danger.
         RuleSpec("overall_velocity", None, None, zone_based=True),
         # Margin 1 - h/h_c from the operating-window fit: 20 % alerts, 5 % is danger (house choice).

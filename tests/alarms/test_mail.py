@@ -9,12 +9,14 @@ import sys
 import time
 from pathlib import Path
 
+import pytest
 from alarms.helpers import make_result, run_senders
 from sqlalchemy import select
 
 from server.alarms import service
 from server.alarms.mailer import run_mailer_once
 from server.alarms.tables import OutboxMessage
+from server.storage.tables import utcnow
 
 ROOT = Path(__file__).resolve().parents[2]
 ONSET = [0.2, 0.3, 1.5, 1.6, 1.9, 3.0, 3.2, 3.5]
@@ -62,12 +64,16 @@ def test_smtp_down_waits_in_outbox_then_goes_out(feeder, plant, migrated_db, smt
     smtp.stop()
     for v in ONSET[:4]:
         feeder.feed(plant.point_id, make_result(half_v=v))
-    assert run_mailer_once(migrated_db, mail_settings) == 0
+    # Every pass gets its clock (now=): the test proves the backoff schedule, not how fast it runs.
+    t0 = utcnow()
+    assert run_mailer_once(migrated_db, mail_settings, now=t0) == 0
     with migrated_db.read() as s:
         row = s.scalars(select(OutboxMessage)).one()
         assert row.status == "pending" and row.attempts == 1 and "connect" in row.last_error
         first_retry = row.next_attempt_at
-    assert run_mailer_once(migrated_db, mail_settings) == 0  # backoff: not due yet, not even tried
+        assert (first_retry - t0).total_seconds() == pytest.approx(0.2)  # mail_backoff_s
+    just_before = first_retry - dt.timedelta(seconds=0.01)
+    assert run_mailer_once(migrated_db, mail_settings, now=just_before) == 0  # backoff: not due, not tried
     with migrated_db.read() as s:
         assert s.scalars(select(OutboxMessage)).one().attempts == 1
     later = first_retry + dt.timedelta(seconds=0.01)
