@@ -2,6 +2,7 @@
 
 * :func:`point_series`: several result metrics of one point over a period, bucketed in SQL to at most
   ``max_points`` buckets (min, max and mean of each), so a year of hourly readings stays one small answer.
+  ``precursor_rate`` is the narrow decay rate γ− of the 0.5X precursor bump (absent without a precursor).
 * :func:`asset_sparks`: a small half-order trend per asset for the plant overview (max per bucket).
 * :func:`trend_forecast`: the trend fit of the half-order velocity and its forecast to the danger level,
   from :func:`analysis.trend.fit_trend`, with the forecast line and its 90 % crossing interval.
@@ -26,6 +27,7 @@ SERIES = {
     "overall": ("overall velocity r.m.s.", "mm/s"),
     "growth": ("within-record growth rate", "1/s"),
     "forcing": ("forcing frequency (1X)", "Hz"),
+    "precursor_rate": ("0.5X precursor narrow decay rate", "1/s"),
 }
 
 
@@ -48,6 +50,8 @@ def _columns(dialect: str) -> dict:
         "overall": Result.overall_velocity_rms_mm_s,
         "growth": Result.growth_rate_per_s,
         "forcing": Result.forcing_hz,
+        # the noise-excited 0.5X bump below threshold: JSON null (no precursor) reads as SQL NULL
+        "precursor_rate": json_number(dialect, "subharmonic", "precursor", "narrow_rate_per_s"),
     }
 
 

@@ -35,6 +35,8 @@ FS_HZ = 2560.0
 N = 16384
 PUMP_HZ = 24.75
 WINDOW_READINGS = 30
+FAN_HZ = 16.5
+PRECURSOR_RATIOS = (0.4, 0.6, 0.8)
 
 
 @dataclass
@@ -50,8 +52,13 @@ class Seeded:
     def last_growing_record(self) -> int:
         return self.record_ids["P1-DE-H"][-1]
 
+    @property
+    def precursor_point(self) -> int:
+        return self.plant.other_point_id
+
 
 def seed(db, settings, *, days: int = 12, now: dt.datetime | None = None) -> Seeded:
+    from analysis.simulate import simulate
     from server.services.ingest import ingest_record
     from server.worker import run_once
 
@@ -82,6 +89,16 @@ def seed(db, settings, *, days: int = 12, now: dt.datetime | None = None) -> See
         x = tone_record(rng, fs_hz=FS_HZ * 2, n=N, forcing_hz=forcing, amp_1x=a1,
                         amp_half=0.15 if inside else 0.0)
         store("C2-CYL-A", x, FS_HZ * 2, "m/s2", t, speed)
+    # The ID fan's point: three below-threshold readings from the parametric simulator (analysis.simulate,
+    # invented data) at h/h_c 0.4, 0.6, 0.8, so the 0.5X precursor bump narrows from reading to reading.
+    for i, ratio in enumerate(PRECURSOR_RATIOS):
+        rec = simulate("parametric", seed=7, fs_hz=320.0, duration_s=300.0, forcing_hz=FAN_HZ, ratio=ratio,
+                       amp_1x_g=0.01, amp_2x_g=0.004, amp_3x_g=0.002)  # a smooth fan: ISO zone A or B
+        x = (rec.samples * 9.80665).astype(np.float32)  # g -> m/s2 (standard gravity)
+        o = ingest_record(db, point_id=plant.other_point_id, samples=x, fs_hz=rec.fs_hz, units="m/s2",
+                          measured_at=now - dt.timedelta(days=3 - i, hours=5),
+                          speed_hz=FAN_HZ, speed_source="tachometer", origin="api", uploader="test:seed")
+        out.record_ids.setdefault("F-DE-H", []).append(o.record_id)
     while run_once(db, settings):
         pass
     return out
@@ -111,7 +128,7 @@ def browser():
         b.close()
 
 
-@pytest.fixture(scope="module")
+@pytest.fixture(scope="package")
 def site(tmp_path_factory):
     """A migrated database with the seeded plant and users, served by uvicorn with the worker inside."""
     from server.app import create_app

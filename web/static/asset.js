@@ -1,5 +1,5 @@
 /* Machine page: the points of one asset; trends over a chosen period (half-order, 1X, ratio, overall with
-   ISO 20816 zones, growth rate, speed); trend fit and forecast to the danger level with its uncertainty;
+   ISO 20816 zones, growth rate, 0.5X precursor decay rate, speed); trend fit and forecast to the danger level with its uncertainty;
    alarm states and history; recent readings. The server buckets long periods (min, max, mean per bucket). */
 "use strict";
 (function () {
@@ -87,6 +87,20 @@
     return HW.plot(id, seriesTraces(d, x, key, name, color, unit), Object.assign({ xaxis: xaxis(), yaxis: { title: { text: ytitle } } }, extra || {}));
   }
 
+  /* γ− of the noise-excited 0.5X bump (below threshold): it falls towards 0 as the machine nears the
+     parametric threshold. Readings without a precursor leave gaps (the server sends null). */
+  function drawPrecursor(d, x) {
+    const s = d.precursor_rate || { mean: [] };
+    const n = s.mean.filter((v) => v != null).length;
+    $("#precursor-note").textContent = (n
+      ? `${n} ${d.bucketed ? "buckets" : "readings"} with a 0.5X precursor in this period; gaps are readings without one. `
+      : "No 0.5X precursor in this period. ")
+      + "γ− = π × half-power width of the noise-excited bump at 0.5X. A falling γ− means the machine is approaching "
+      + "the parametric threshold (γ− reaches 0 at onset); it is an early warning, not a detected half-order line.";
+    return HW.plot("chart-precursor", seriesTraces(d, x, "precursor_rate", "precursor γ−", HW.palette.precursor, "1/s"),
+      { xaxis: xaxis(), yaxis: { title: { text: "narrow decay rate γ− (1/s)" }, rangemode: "tozero" } });
+  }
+
   function drawSpeed(d, x) {
     const mult = asset.asset.forcing_multiplier || 1;
     const conv = (s) => s && { min: s.min && s.min.map((v) => v == null ? null : v / mult), max: s.max && s.max.map((v) => v == null ? null : v / mult), mean: s.mean.map((v) => v == null ? null : v / mult) };
@@ -99,7 +113,7 @@
   }
 
   function bindClicks() {
-    for (const id of ["chart-half", "chart-overall", "chart-onex", "chart-ratio", "chart-growth", "chart-speed"]) {
+    for (const id of ["chart-half", "chart-overall", "chart-onex", "chart-ratio", "chart-growth", "chart-precursor", "chart-speed"]) {
       const div = document.getElementById(id);
       if (div.dataset.bound) continue;
       div.dataset.bound = "1";
@@ -131,6 +145,7 @@
       simple("chart-ratio", d, x, "ratio", "half-order / 1X", HW.palette.ratio, "ratio", "amplitude ratio (1 = equal)",
         { shapes: point.levels.half_order_ratio ? [HW.hline(point.levels.half_order_ratio.danger, HW.palette.limit, "dash", "danger"), HW.hline(point.levels.half_order_ratio.alert, HW.palette.alert, "dot", "alert")] : [] }),
       simple("chart-growth", d, x, "growth", "growth rate", HW.palette.growth, "1/s", "growth rate (1/s)"),
+      drawPrecursor(d, x),
       drawSpeed(d, x),
     ]);
     bindClicks();

@@ -3,7 +3,7 @@
 "use strict";
 (function (HW) {
   const INK = "#1f2a30";
-  HW.palette = { half: "#7c3aed", onex: "#0f766e", ratio: "#b45309", overall: "#1d4ed8", growth: "#be185d",
+  HW.palette = { half: "#7c3aed", onex: "#0f766e", ratio: "#b45309", overall: "#1d4ed8", growth: "#be185d", precursor: "#0e7490",
     speed: "#475569", fit: "#111827", band: "rgba(17,24,39,0.12)", limit: "#b91c1c", alert: "#b45309" };
   /* ISO 20816 zone bands: pale fills, each band also named in text on the chart */
   HW.zoneFill = { A: "rgba(22,163,74,0.10)", B: "rgba(132,204,22,0.12)", C: "rgba(234,179,8,0.16)", D: "rgba(220,38,38,0.14)" };

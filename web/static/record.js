@@ -37,9 +37,41 @@
       number("Crest factor / kurtosis", `${HW.num((r.waveform || {}).crest_factor)} / ${HW.num((r.waveform || {}).kurtosis)}`, "", "kurtosis 3 for Gaussian noise, 1.5 for a sine"),
       number("Spectrum", `${HW.num((r.spectrum_summary || {}).df_hz)} Hz`, "lines", `${(r.spectrum_summary || {}).n_segments} averages (Welch)`),
     );
+    renderPrecursor(s.precursor, box);
     const q = r.quality || {};
     $("#quality-note").textContent = q.ok === false ? `Data quality: NOT fit for judging the machine (${(q.flags || []).join(", ")}).`
       : `Data quality: fit${q.flags && q.flags.length ? ` (notes: ${q.flags.join(", ")})` : ""}. Analysis version ${r.analysis_version || r.version}.`;
+  }
+
+  /* The noise-excited bump at 0.5X below threshold (analysis/precursor.py): its own cards and a plain note. */
+  function renderPrecursor(p, box) {
+    const note = $("#precursor-note");
+    if (!p) { note.hidden = true; return; }
+    const ratio = p.ratio_to_threshold != null
+      ? `${HW.num(p.ratio_to_threshold, 3)}${p.ratio_to_threshold_se != null ? ` ± ${HW.num(p.ratio_to_threshold_se, 2)}` : ""}` : "—";
+    box.append(
+      number("0.5X precursor centre", HW.num(p.frequency_hz, 5), "Hz", `= ${HW.num(p.order, 4)}X · a resonance bump, not a line`),
+      number("Precursor half-power width", HW.num(p.width_hz, 3), "Hz", p.resolved ? "resolved by this reading" : "upper bound: narrower than the resolution"),
+      number("Precursor decay rate γ−", HW.num(p.narrow_rate_per_s, 3), "1/s", "γ− = π × width; falls to 0 at the threshold"),
+      number("Precursor phase coherence", HW.num(p.coherence, 3), "", `a steady line here would give ${HW.num(p.line_coherence, 3)} · evidence: ${p.evidence}`),
+      number("Distance to threshold h/h_c", ratio, "", p.ratio_to_threshold != null ? "two-Lorentzian fit (1 = onset)" : (p.note || "not estimated")),
+    );
+    note.hidden = false;
+    note.textContent = `0.5X precursor: a noise-excited resonance bump centred at ${HW.num(p.frequency_hz, 5)} Hz (${HW.num(p.order, 4)}X), `
+      + `${HW.num(p.width_hz, 3)} Hz wide at half power. It is not a detected half-order line: the machine is still below its `
+      + "parametric threshold, and the mode near 0.5X is only being shaken by noise. As the machine approaches the threshold "
+      + "the bump narrows and its decay rate γ− falls towards 0; watch its trend on the machine page."
+      + (p.note ? ` Note: ${p.note}.` : "");
+  }
+
+  /* The precursor's half-power band as a shaded trace (so it has a legend entry and can be hovered). */
+  function precursorBand(p, ylo, yhi) {
+    if (!p || p.frequency_hz == null || p.width_hz == null) return null;
+    const a = p.frequency_hz - p.width_hz / 2, b = p.frequency_hz + p.width_hz / 2;
+    return { x: [a, a, b, b, a], y: [ylo, yhi, yhi, ylo, ylo], type: "scatter", mode: "lines", fill: "toself",
+      fillcolor: "rgba(14,116,144,0.22)", line: { color: HW.palette.precursor, width: 1 },
+      name: `0.5X precursor bump (half-power width ${HW.num(p.width_hz, 3)} Hz), not a line`,
+      customdata: [p.frequency_hz], hovertemplate: `precursor centre ${HW.num(p.frequency_hz, 5)} Hz, width ${HW.num(p.width_hz, 3)} Hz<extra></extra>` };
   }
 
   function drawSpectrum() {
@@ -58,6 +90,11 @@
     const shapes = orders.map((k) => ({ type: "line", x0: k * F, x1: k * F, yref: "paper", y0: 0, y1: 0.93,
       line: { color: k === 0.5 ? HW.palette.half : "#94a3b8", width: k === 0.5 ? 1.6 : 1, dash: k % 1 ? "dot" : "dash" } }));
     const s = bundle.result.subharmonic || {};
+    const pre = s.precursor;
+    const near = pre ? 2 * (pre.width_hz || 0) + 2 * (spec.freqs_hz[1] - spec.freqs_hz[0]) : 0;  // the bump's own peak
+    const band = pre && precursorBand(pre, Math.min(...spec.amplitude.filter((v) => v > 0)),
+      1.25 * peakIn(pre.frequency_hz - near, pre.frequency_hz + near));
+    if (band) traces.push(band);
     if (s.detected) traces.push({ x: [s.frequency_hz], y: [s.amplitude], type: "scatter", mode: "markers",
       marker: { symbol: "diamond", size: 11, color: HW.palette.half, line: { color: "#fff", width: 1 } }, name: `${s.class} line found` });
     return HW.plot("chart-spectrum", traces, {
@@ -74,8 +111,22 @@
     });
   }
 
+  /* Largest spectrum amplitude between lo and hi (Hz). */
+  function peakIn(lo, hi) {
+    let top = 0;
+    spec.freqs_hz.forEach((f, i) => { if (f >= lo && f <= hi && spec.amplitude[i] > top) top = spec.amplitude[i]; });
+    return top;
+  }
+
+  /* Zoom the frequency axis; on a linear axis the amplitude axis follows what is in view (so a small 0.5X
+     bump is not flattened by 1X), and the order markers move to the top of the new range. */
   function zoom(lo, hi) {
-    Plotly.relayout("chart-spectrum", { "xaxis.range": [lo, hi], "xaxis.autorange": false });
+    const div = document.getElementById("chart-spectrum");
+    const bandTop = div.data.filter((t) => t.fill === "toself" && t.x.some((x) => x >= lo && x <= hi)).map((t) => Math.max(...t.y));
+    const top = Math.max(peakIn(lo, hi), ...bandTop) || 1;
+    const layout = { "xaxis.range": [lo, hi], "xaxis.autorange": false };
+    if (!$("#log-y").checked) Object.assign(layout, { "yaxis.range": [0, top * 1.15], "yaxis.autorange": false });
+    Plotly.update(div, { y: [div.data[1].x.map(() => top * 1.05)] }, layout, [1]);
   }
 
   async function drawWaveform() {
@@ -153,7 +204,7 @@
     $("#zoom-orders").addEventListener("click", () => spec && zoom(0, 5.2 * spec.forcing_hz));
     $("#zoom-half").addEventListener("click", () => spec && zoom(0.28 * spec.forcing_hz, 0.72 * spec.forcing_hz));
     $("#zoom-all").addEventListener("click", () => spec && zoom(0, spec.freqs_hz[spec.freqs_hz.length - 1]));
-    $("#log-y").addEventListener("change", () => spec && Plotly.relayout("chart-spectrum", { "yaxis.type": $("#log-y").checked ? "log" : "linear" }));
+    $("#log-y").addEventListener("change", () => spec && Plotly.relayout("chart-spectrum", { "yaxis.type": $("#log-y").checked ? "log" : "linear", "yaxis.autorange": true }));
     load();
   });
 })();
