@@ -14,12 +14,30 @@ import pytest
 WEB = Path(__file__).resolve().parents[2] / "web"
 
 
+def _precursor_rates(n: int) -> np.ndarray:
+    """γ− of the 0.5X precursor per row: every third row of the first half has one, the rest NaN (none)."""
+    i = np.arange(n)
+    return np.where((i < n // 2) & (i % 3 == 0), np.linspace(2.0, 0.2, n), np.nan)
+
+
+def _precursor_ref(values: np.ndarray, k: np.ndarray) -> tuple[list, list]:
+    """numpy reference of the bucket (max, mean) of a series with gaps: None where a bucket has no value."""
+    out_max, out_mean = [], []
+    for b in np.unique(k):
+        v = values[k == b]
+        v = v[~np.isnan(v)]
+        out_max.append(float(v.max()) if v.size else None)
+        out_mean.append(float(v.mean()) if v.size else None)
+    return out_max, out_mean
+
+
 def _insert_results(db, point_id: int, n: int, t0: dt.datetime) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     from server.storage.tables import Record, Result
 
     rng = np.random.default_rng(3)
     amp = rng.uniform(0.1, 2.0, n)
     one_x = rng.uniform(1.0, 5.0, n)
+    gamma = _precursor_rates(n)
     ts = np.array([(t0 + dt.timedelta(hours=i)).timestamp() for i in range(n)])
     with db.unit_of_work() as s:
         for i in range(n):
@@ -32,7 +50,9 @@ def _insert_results(db, point_id: int, n: int, t0: dt.datetime) -> tuple[np.ndar
                          current=True, spectrum=b"", forcing_hz=24.75, sub_detected=True,
                          sub_amplitude=float(amp[i]), sub_velocity_mm_s=float(amp[i]) * 2,
                          data=json.dumps({"orders": {"1X": {"amplitude": float(one_x[i]),
-                                                            "velocity_mm_s": float(one_x[i]) * 3}}})))
+                                                            "velocity_mm_s": float(one_x[i]) * 3}},
+                                          "subharmonic": {"precursor": None if np.isnan(gamma[i]) else
+                                                          {"narrow_rate_per_s": float(gamma[i])}}})))
     return ts, amp, one_x
 
 
@@ -57,6 +77,11 @@ def test_series_buckets_match_numpy_on_the_same_rows(client, users, plant, migra
         assert d[name]["max"] == pytest.approx(ref_max), name
         assert d[name]["mean"] == pytest.approx(ref_mean), name
     assert sum(d["count"]) == n
+    # the precursor's decay rate: buckets without any precursor are absent (null), not zero
+    ref_max, ref_mean = _precursor_ref(_precursor_rates(n), k)
+    assert d["precursor_rate"]["max"] == pytest.approx(ref_max)
+    assert d["precursor_rate"]["mean"] == pytest.approx(ref_mean)
+    assert None in ref_mean and ref_mean[0] is not None
     # the extremes survive the downsampling
     assert max(d["half_velocity"]["max"]) == pytest.approx(2 * amp.max())
     assert min(d["half_velocity"]["min"]) == pytest.approx(2 * amp.min())
@@ -133,6 +158,8 @@ def test_series_and_window_on_postgres(pg_settings):
         k = ((ts - t0.timestamp()) / width).astype(int)
         ref = [(one_x * 3)[k == b].max() for b in np.unique(k)]
         assert d["one_x_velocity"]["max"] == pytest.approx(ref)  # numpy as the reference
+        ref_max, ref_mean = _precursor_ref(_precursor_rates(300), k)  # JSON null -> SQL NULL on JSONB too
+        assert d["precursor_rate"]["mean"] == pytest.approx(ref_mean) and None in ref_mean
         w = c.get(f"/api/v1/dashboard/points/{plant.point_id}/window",
                   params={"start": t0.isoformat(), "end": end.isoformat()}).json()
         assert sorted(r["one_x"] for r in w["readings"]) == pytest.approx(sorted(one_x))
