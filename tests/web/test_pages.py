@@ -109,6 +109,9 @@ def test_asset_page_draws_every_chart_with_data(login, site, screenshot):
     annotations = page.evaluate("document.getElementById('chart-overall').layout.annotations"
                                 ".map(a => a.text)")
     assert annotations == ["zone A", "zone B", "zone C", "zone D"]
+    # readings with a half-order line carry no 0.5X precursor: its chart says so instead of staying blank
+    none = page.evaluate("document.getElementById('chart-precursor').layout.annotations.map(a => a.text)")
+    assert none == ["no 0.5X precursor in this period"]
     screenshot(page, "asset")
     no_js_errors(page)
 

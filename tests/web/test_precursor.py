@@ -93,6 +93,7 @@ def test_asset_page_trends_the_precursor_decay_rate(login, site, screenshot):
     assert line["y"] == pytest.approx(expected)
     title = page.evaluate("document.getElementById('chart-precursor').layout.yaxis.title.text")
     assert "(1/s)" in title
+    assert page.evaluate("(document.getElementById('chart-precursor').layout.annotations || []).length") == 0
     assert "falling γ− means the machine is approaching" in page.locator("#precursor-note").inner_text()
     # a point whose readings have a half-order line and no precursor: the series is absent (all null)
     pid = site.seeded.growing_point

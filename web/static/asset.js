@@ -98,7 +98,9 @@
       + "γ− = π × half-power width of the noise-excited bump at 0.5X. A falling γ− means the machine is approaching "
       + "the parametric threshold (γ− reaches 0 at onset); it is an early warning, not a detected half-order line.";
     return HW.plot("chart-precursor", seriesTraces(d, x, "precursor_rate", "precursor γ−", HW.palette.precursor, "1/s"),
-      { xaxis: xaxis(), yaxis: { title: { text: "narrow decay rate γ− (1/s)" }, rangemode: "tozero" } });
+      { xaxis: xaxis(), yaxis: { title: { text: "narrow decay rate γ− (1/s)" }, rangemode: "tozero" },
+        annotations: n ? [] : [{ xref: "paper", yref: "paper", x: 0.5, y: 0.5, showarrow: false,
+          text: "no 0.5X precursor in this period", font: { size: 13, color: "#5b6670" } }] });
   }
 
   function drawSpeed(d, x) {
