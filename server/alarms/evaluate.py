@@ -4,6 +4,11 @@ Order of work for one record: data-quality check (a bad or off-speed record beco
 ``data-quality`` event and touches no machine state) -> metrics from the result and the point's
 history (trend, forecast, threshold margin) -> one state step per rule -> an immutable event per
 transition -> outbox rows for the subscribers, all in the caller's session (no commit here).
+
+The slow rules (trend, forecast) read a fit over 6-hour buckets of the readings and the conservative
+end of its interval (:mod:`.checks`), and hold a level for ``SLOW_RULES_DWELL_S`` of measurement time
+before it may drop. Planners are emailed escalations and clears; a drop from danger to alert is in
+the audit trail and on the dashboard, not in their inbox.
 """
 
 from __future__ import annotations
