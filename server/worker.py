@@ -258,7 +258,7 @@ def _prepare(item: Analysed) -> tuple[dict, dict, tuple | None]:
     return values, data, packed
 
 
-def _store_one(s, item: Analysed, prepared, settings, alarms: bool) -> int:
+def _store_one(s, item: Analysed, prepared, settings, alarms: bool, now=None) -> int:
     values, data, packed = prepared
     conn, record = s.connection(), item.record
     _fence(conn, item.claim, _DONE)
@@ -270,20 +270,22 @@ def _store_one(s, item: Analysed, prepared, settings, alarms: bool) -> int:
         from server.alarms import evaluate_result
 
         evaluate_result(s, record, SimpleNamespace(**{**values, "id": result_id, "data": data}),
-                        settings=settings)
+                        settings=settings, now=now)
     return result_id
 
 
-def store(db, c: Claim, record, analysis, settings=None, samples=None, *, alarms: bool = True) -> int:
+def store(db, c: Claim, record, analysis, settings=None, samples=None, *, alarms: bool = True,
+          now=None) -> int:
     """Store the result, mark the job done and run the alarm rules, all in one transaction.
 
     With ``samples``, a waveform still stored raw is compacted in the same transaction. The alarm rules get
     ``record`` and a ``result`` object with the ``results`` columns as attributes (``data`` as a dict).
-    ``alarms=False`` skips the rules (benchmarks only: it measures the worker's own share)."""
+    ``alarms=False`` skips the rules (benchmarks only: it measures the worker's own share); ``now`` is the
+    alarm rules' clock (default the current time; the demo backfill passes each reading's own time)."""
     item = Analysed(c, record, analysis, samples)
     prepared = _prepare(item)
     with db.unit_of_work() as s:
-        return _store_one(s, item, prepared, settings, alarms)
+        return _store_one(s, item, prepared, settings, alarms, now)
 
 
 def store_batch(db, items: list[Analysed], settings=None, *, alarms: bool = True) -> list[int | Exception]:
