@@ -4,8 +4,8 @@ Each reading goes the way a real one goes: :func:`server.services.ingest.ingest_
 its analysis job, the job is claimed and loaded like the worker does, the analysis is the worker's own
 (:func:`server.worker.analyse`) and :func:`server.worker.store` stores the result and runs the alarm
 rules in the same transaction. Only the simulation and the analysis run ahead in a small process pool
-(``jobs``), which is what makes 90 days take minutes. When ``store`` takes a ``now`` clock, the alarm
-rules run at the record's own time, so alarm histories and emails carry the backfilled dates.
+(``jobs``), which is what makes 90 days take minutes. ``store`` runs the alarm rules at the record's own
+time (its ``now``), so alarm histories and emails carry the backfilled dates.
 
 Records carry a ``client_ref`` made from the point and the time, so an interrupted backfill resumes
 where it stopped and a second run stores nothing twice.
@@ -15,7 +15,6 @@ from __future__ import annotations
 
 import collections
 import datetime as dt
-import functools
 import logging
 import os
 import signal
@@ -103,15 +102,6 @@ def existing_refs(db, point_ids) -> set[str]:
                                                              Record.client_ref.like("demo:%"))))
 
 
-@functools.cache
-def _store_accepts_clock() -> bool:
-    import inspect
-
-    from server.worker import store
-
-    return "now" in inspect.signature(store).parameters
-
-
 def store_one(db, settings, task: Task, x, analysis, error) -> bool:
     """Ingest one reading, then claim, load and store it the way ``server.worker.run_once`` does.
 
@@ -135,8 +125,7 @@ def store_one(db, settings, task: Task, x, analysis, error) -> bool:
         fail(db, c, error, permanent=True, settings=settings)
         return True
     record, _asset, samples = load(db, c.record_id)
-    clock = {"now": task.when} if _store_accepts_clock() else {}  # alarm times follow the record
-    store(db, c, record, analysis, settings, samples=samples, **clock)
+    store(db, c, record, analysis, settings, samples=samples, now=task.when)  # alarm times follow the record
     return True
 
 
