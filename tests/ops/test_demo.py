@@ -86,6 +86,10 @@ def test_backfill_stores_readings_raises_alarms_and_writes_emails(demo_folder):
                                    on r.id = e.record_id join points p on p.id = e.point_id
                                    where p.name = 'BFP-2 pump drive end H' and e.to_level = 'alert'""")[0][0]
     assert dt.datetime.fromisoformat(first_alert) < dt.datetime.now() - dt.timedelta(hours=24)
+    # the rules ran at each reading's own time: every event is dated by its record, not by the backfill
+    late = query(folder, """select count(*) from alarm_events e join records r on r.id = e.record_id
+                            where abs(julianday(e.created_at) - julianday(r.measured_at)) > 1e-5""")[0][0]
+    assert late == 0
     # the emails went through the real mailer to the sink and read like alerts with the cautions
     mails = messages(folder)
     assert mails
