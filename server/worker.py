@@ -295,6 +295,9 @@ def store_batch(db, items: list[Analysed], settings=None, *, alarms: bool = True
     together. A job whose lease was lost is skipped (``LeaseLost``: the fence, its first statement, wrote
     nothing). Any other error rolls the batch back and the jobs are stored again one transaction each, so
     one job's failure never costs another its result (and the common case pays for no savepoints)."""
+    # One lock order for every worker: the alarm evaluation locks each record's point (PostgreSQL), so two
+    # batches that touch the same points in different orders could deadlock.
+    items = sorted(items, key=lambda item: (item.record.point_id, item.claim.job_id))
     prepared = [_prepare(item) for item in items]
     try:
         out: list[int | Exception] = []

@@ -8,9 +8,12 @@ windows, last metrics). State rows are written only when something in them chang
 rule that governs it, an inactive reason), and only the columns that changed, so an acknowledgement
 or a shelving written meanwhile by the API is never overwritten with an older value.
 
-On PostgreSQL the read takes ``FOR NO KEY UPDATE OF points``: two workers that store records of the
-same point at once take turns instead of losing one another's window update (ingest only needs the
-weaker key-share lock on the point, so it is not held up).
+On PostgreSQL the point row is first locked ``FOR NO KEY UPDATE`` by a statement of its own: two workers
+that store records of the same point at once take turns instead of losing one another's window update
+(ingest only needs the weaker key-share lock on the point, so it is not held up). The read runs after
+the lock as a separate statement, so under READ COMMITTED it sees the status and state rows the other
+worker committed while this one waited (a lock taken inside the joined read would re-check only the
+point row and return the other tables as they were before the wait).
 """
 
 from __future__ import annotations
@@ -39,7 +42,10 @@ STATUS_WRITE = ("speeds_hz", "history", "windows", "last_metrics", "last_record_
                 "data_quality_reason", "updated_at")
 
 
-def _read_statement(lock: bool):
+_LOCK_POINT = select(_P.c.id).where(_P.c.id == bindparam("pid")).with_for_update(key_share=True)
+
+
+def _read_statement():
     # The status JSON is read as text and parsed once: the row repeats once per rule.
     stmt = (
         select(_P.c.id.label("p_id"), _P.c.name.label("p_name"), _P.c.asset_id.label("p_asset_id"),
@@ -61,11 +67,10 @@ def _read_statement(lock: bool):
         .where(_P.c.id == bindparam("pid"))
         .order_by(_R.c.id)
     )
-    return stmt.with_for_update(of=_P, key_share=True) if lock else stmt
+    return stmt
 
 
-_READ = _read_statement(lock=False)
-_READ_LOCKED = _read_statement(lock=True)
+_READ = _read_statement()
 _UPDATE_STATUS = (update(_ST).where(_ST.c.point_id == bindparam("b_point_id"))
                   .values({name: bindparam(name, type_=_ST.c[name].type) for name in STATUS_WRITE}))
 _UPDATE_HISTORY = (update(_ST).where(_ST.c.point_id == bindparam("b_point_id"))
@@ -158,7 +163,9 @@ def read_point(conn, point_id: int) -> PointData:
     """Everything one record's evaluation needs, in one query (raises if the point does not exist).
 
     Rows are read by position (precomputed), not by name: the row repeats once per rule."""
-    rows = conn.execute(_READ_LOCKED if conn.dialect.name == "postgresql" else _READ, {"pid": point_id}).all()
+    if conn.dialect.name == "postgresql":
+        conn.execute(_LOCK_POINT, {"pid": point_id})
+    rows = conn.execute(_READ, {"pid": point_id}).all()
     if not rows:
         from sqlalchemy.exc import NoResultFound
 
