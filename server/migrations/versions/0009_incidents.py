@@ -1,0 +1,26 @@
+"""Alarm incidents per machine and editable machine fields.
+
+Revision ID: 0009
+Revises: 0008
+Create Date: 2026-12-02
+
+Placeholder in the migration chain: upgrade and downgrade do nothing until the owner fills them in.
+"""
+
+from __future__ import annotations
+
+import sqlalchemy as sa  # noqa: F401
+from alembic import op  # noqa: F401
+
+revision = "0009"
+down_revision = "0008"
+branch_labels = None
+depends_on = None
+
+
+def upgrade() -> None:
+    pass
+
+
+def downgrade() -> None:
+    pass
