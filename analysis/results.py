@@ -7,7 +7,11 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-ANALYSIS_VERSION = "1.0"
+#: "2.0": every amplitude key names its measure (``accel_peak``, ``velocity_peak_mm_s``,
+#: ``velocity_rms_mm_s``, ``zone_limits_rms_mm_s``); "1.0" results are read through
+#: :func:`analysis.result_compat.upgrade_result_dict`.
+ANALYSIS_VERSION = "2.0"
+SQRT2 = math.sqrt(2.0)
 
 
 def max_hold(x: np.ndarray, y: np.ndarray, max_points: int) -> tuple[np.ndarray, np.ndarray]:
@@ -86,7 +90,7 @@ class Tone:
         return {
             "frequency_hz": _num(self.frequency_hz),
             "order": _num(self.order),
-            "amplitude": _num(self.amplitude),
+            "accel_peak": _num(self.amplitude),
             "snr_db": _num(self.snr_db),
         }
 
@@ -133,6 +137,9 @@ class Precursor:
 
 @dataclass(frozen=True)
 class Subharmonic:
+    """The strongest line in 0.30X-0.70X: ``amplitude`` is its acceleration peak (record units),
+    ``velocity_mm_s`` its velocity peak in mm/s (JSON: ``accel_peak``, ``velocity_peak_mm_s``)."""
+
     detected: bool
     klass: str  # "half-order" | "sub-synchronous" | "none"
     frequency_hz: float | None
@@ -146,14 +153,20 @@ class Subharmonic:
     precursor: Precursor | None = None  # a noise-excited bump at 0.5X that was not taken for a line
     spectrum: str = "average"  # which spectrum detected the line: "average" | "last-segments"
 
+    @property
+    def velocity_rms_mm_s(self) -> float | None:
+        """r.m.s. velocity of the line (a sine): peak / sqrt 2, the measure of the ISO 20816 zones."""
+        return None if self.velocity_mm_s is None else self.velocity_mm_s / SQRT2
+
     def to_dict(self) -> dict:
         return {
             "detected": bool(self.detected),
             "class": self.klass,
             "frequency_hz": _num(self.frequency_hz),
             "order": _num(self.order),
-            "amplitude": _num(self.amplitude),
-            "velocity_mm_s": _num(self.velocity_mm_s),
+            "accel_peak": _num(self.amplitude),
+            "velocity_peak_mm_s": _num(self.velocity_mm_s),
+            "velocity_rms_mm_s": _num(self.velocity_rms_mm_s),
             "snr_db": _num(self.snr_db),
             "threshold_db": _num(self.threshold_db),
             "pfa": _num(self.pfa),
@@ -187,7 +200,7 @@ class Growth:
         return {
             "rate_per_s": _num(self.rate_per_s),
             "doubling_time_s": _num(self.doubling_time_s),
-            "end_amplitude": _num(self.end_amplitude),
+            "end_accel_peak": _num(self.end_amplitude),
             "ci95_per_s": [_num(v) for v in self.ci95_per_s],
             "onset_s": _num(self.onset_s),
             "state": self.state,
@@ -216,22 +229,31 @@ class Overall:
             "band_hz": [_num(v) for v in self.band_hz],
             "machine_group": int(self.machine_group),
             "foundation": self.foundation,
-            "zone_limits_mm_s": [_num(v) for v in self.zone_limits_mm_s],
+            "zone_limits_rms_mm_s": [_num(v) for v in self.zone_limits_mm_s],
             "standard": self.standard,
         }
 
 
 @dataclass(frozen=True)
 class OrderLine:
+    """One order line: ``amplitude`` is the acceleration peak (record units), ``velocity_mm_s`` the velocity
+    peak in mm/s."""
+
     frequency_hz: float | None
     amplitude: float | None
     velocity_mm_s: float | None
 
+    @property
+    def velocity_rms_mm_s(self) -> float | None:
+        """r.m.s. velocity of the line (a sine): peak / sqrt 2, the measure of the ISO 20816 zones."""
+        return None if self.velocity_mm_s is None else self.velocity_mm_s / SQRT2
+
     def to_dict(self) -> dict:
         return {
             "frequency_hz": _num(self.frequency_hz),
-            "amplitude": _num(self.amplitude),
-            "velocity_mm_s": _num(self.velocity_mm_s),
+            "accel_peak": _num(self.amplitude),
+            "velocity_peak_mm_s": _num(self.velocity_mm_s),
+            "velocity_rms_mm_s": _num(self.velocity_rms_mm_s),
         }
 
 
@@ -244,8 +266,8 @@ class Waveform:
 
     def to_dict(self) -> dict:
         return {
-            "rms": _num(self.rms),
-            "peak": _num(self.peak),
+            "accel_rms": _num(self.rms),
+            "accel_peak": _num(self.peak),
             "crest_factor": _num(self.crest_factor),
             "kurtosis": _num(self.kurtosis),
         }
@@ -291,6 +313,13 @@ class RecordAnalysis:
     def envelope_chart(self, max_points: int = 2000) -> tuple[np.ndarray, np.ndarray]:
         """(t_s, envelope) of the subharmonic band (input units, peak), max-hold decimated."""
         return max_hold(self.envelope_t_s, self.envelope, max_points)
+
+    @classmethod
+    def from_dict(cls, data: dict) -> RecordAnalysis:
+        """Read a stored ``to_dict()`` of any version back (see :mod:`analysis.result_compat`)."""
+        from .result_compat import record_analysis_from_dict
+
+        return record_analysis_from_dict(data)
 
     def to_dict(self) -> dict:
         return {

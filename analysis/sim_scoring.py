@@ -54,7 +54,7 @@ def score(truth: dict, result: dict) -> dict:
     out["spectrum"] = sub_r.get("spectrum")
     f_t, f_r = sub_t.get("frequency_hz"), sub_r.get("frequency_hz")
     out["freq_err_hz"] = f_r - f_t if detected and f_t is not None and f_r is not None else None
-    a_t, a_r = sub_t.get("amplitude"), sub_r.get("amplitude")
+    a_t, a_r = sub_t.get("amplitude"), sub_r.get("accel_peak", sub_r.get("amplitude"))  # truth, result
     steady = sub_t.get("growth_rate_per_s") == 0.0
     out["amp_rel_err"] = a_r / a_t - 1.0 if detected and steady and a_t and a_r else None
     g_t, g_r = sub_t.get("growth_rate_per_s"), growth.get("rate_per_s")

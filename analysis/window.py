@@ -1,6 +1,6 @@
 """Operating window: the instability tongue in (1X frequency, 1X amplitude) fitted to a point's history.
 
-Model (first-order damped Mathieu, Landau & Lifshitz sections 27 and 29): the 1X amplitude a sets the
+Model (first-order damped Mathieu, Landau & Lifshitz, Mechanics §27): the 1X amplitude a sets the
 modulation depth h = k a; at 1X frequency f the threshold is h_c(f) = 2 sqrt(((f - 2 f0) / f0)^2 + 4 zeta^2),
 so the amplitude threshold is a_c(f) = h_c(f) / k and the growth rate is
 lambda = -zeta w0 + 1/2 sqrt((k a w0 / 2)^2 - (2 pi (f - 2 f0))^2).
@@ -21,7 +21,7 @@ import numpy as np
 from scipy import optimize
 from scipy.special import log_ndtr
 
-__all__ = ["WindowFit", "fit_operating_window"]
+__all__ = ["WindowFit", "fit_operating_window", "threshold_amplitude", "threshold_margin"]
 
 LABEL_NOISE = 0.01
 MIN_RECORDS = 10
@@ -65,8 +65,58 @@ class WindowFit:
         return d
 
 
-def _threshold_amp(f, f0, zeta, k):
-    return 2.0 * np.sqrt(((f - 2.0 * f0) / f0) ** 2 + 4.0 * zeta**2) / k
+def threshold_amplitude(f, f0, zeta, k):
+    """The 1X amplitude threshold of the first-order damped Mathieu tongue (the one home of a_c(f)).
+
+    Parameters
+    ----------
+    f : float or array_like
+        1X (forcing) frequency in Hz.
+    f0 : float
+        Natural frequency of the subharmonic mode in Hz.
+    zeta : float
+        Damping ratio of that mode.
+    k : float
+        Modulation depth per unit of 1X amplitude (h = k a).
+
+    Returns
+    -------
+    float or ndarray
+        a_c(f) = 2 sqrt(((f - 2 f0) / f0)^2 + 4 zeta^2) / k, in the units of the 1X amplitude.
+
+    References
+    ----------
+    L. D. Landau and E. M. Lifshitz, *Mechanics*, 3rd ed., §27 (parametric resonance, with friction).
+    """
+    return 2.0 * np.sqrt(((np.asarray(f, dtype=float) - 2.0 * f0) / f0) ** 2 + 4.0 * zeta**2) / k
+
+
+_threshold_amp = threshold_amplitude
+
+
+def threshold_margin(speed_hz: float, amp_1x: float, f0: float, zeta: float, k: float) -> float | None:
+    """Margin to the instability threshold, ``1 - a_1X / a_c(f)``.
+
+    Parameters
+    ----------
+    speed_hz, amp_1x : float
+        Today's 1X frequency (Hz) and 1X amplitude (the fit's units).
+    f0, zeta, k : float
+        Parameters of an operating-window fit (see :func:`threshold_amplitude`).
+
+    Returns
+    -------
+    float or None
+        1 far from the threshold, 0 on it, negative beyond it; ``None`` when an input is missing,
+        not finite or not positive.
+    """
+    vals = (speed_hz, amp_1x, f0, zeta, k)
+    if not all(isinstance(v, int | float) and not isinstance(v, bool) and math.isfinite(v) for v in vals):
+        return None
+    if not (f0 > 0 and zeta > 0 and k > 0):
+        return None
+    a_c = float(threshold_amplitude(speed_hz, f0, zeta, k))
+    return 1.0 - amp_1x / a_c if a_c > 0 else None
 
 
 def _growth(f, a, f0, zeta, k):

@@ -26,6 +26,7 @@ from sqlalchemy import and_, bindparam, insert, or_, select, update
 from analysis.results import max_hold
 from server.storage import blobs
 from server.storage.packing import pack_arrays
+from server.storage.result_columns import result_columns
 from server.storage.tables import Asset, Job, Point, Record, Result, Waveform, utcnow
 
 log = logging.getLogger("halfwatch.worker")
@@ -190,21 +191,13 @@ def result_values(record, analysis) -> tuple[dict, dict]:
     data = analysis.to_dict()
     f, a = max_hold(analysis.spectrum.freqs_hz, analysis.spectrum.amplitude, SPECTRUM_POINTS)
     et, ev = max_hold(analysis.envelope_t_s, analysis.envelope, ENVELOPE_POINTS)
-    sub, growth = data.get("subharmonic", {}), data.get("growth", {})
-    overall, forcing = data.get("overall", {}), data.get("forcing", {})
     values = dict(
         record_id=record.id, point_id=record.point_id, measured_ts=record.measured_at.timestamp(),
         analysis_version=str(data.get("version", "")), current=True, created_at=utcnow(),
         data=json.dumps(data, separators=(",", ":"), check_circular=False),
         spectrum=pack_arrays({"units": record.units, "amplitude": "peak"}, freqs_hz=f, amplitude=a,
                              envelope_t_s=et, envelope=ev),
-        forcing_hz=forcing.get("frequency_hz"), sub_detected=bool(sub.get("detected")),
-        sub_class=sub.get("class"), sub_frequency_hz=sub.get("frequency_hz"),
-        sub_amplitude=sub.get("amplitude"),
-        sub_velocity_mm_s=sub.get("velocity_mm_s"), sub_snr_db=sub.get("snr_db"),
-        growth_rate_per_s=growth.get("rate_per_s"),
-        overall_velocity_rms_mm_s=overall.get("velocity_rms_mm_s"),
-        zone=overall.get("zone"), quality_ok=bool((data.get("quality") or {}).get("ok", True)),
+        **result_columns(analysis),
     )
     return values, data
 

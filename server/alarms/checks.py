@@ -19,6 +19,8 @@ import statistics
 
 import numpy as np
 
+from analysis.trend import DB_PER_NEPER
+
 # Flags of the measurement chain that make a record unfit for machine alarms. A record the analysis
 # marks not ok is unfit too, unless its only flags are notes such as "too-short-for-resolution".
 BLOCKING_FLAGS = ("flat-line", "clipping", "dc-jump", "impulsive")
@@ -29,7 +31,6 @@ FLAG_WORDS = {
     "dc-jump": "DC offset jump (sensor bias fault)",
     "impulsive": "excessive kurtosis from impacts (cable or connector)",
 }
-DB_PER_NEPER = 20.0 / math.log(10.0)  # 8.6859 dB per unit of ln(amplitude)
 NO_FORECAST_DAYS = 9999.0  # "not growing": reads as far beyond any time-to-limit level
 SPEED_HISTORY = 20
 MIN_USUAL_SPEEDS = 3
@@ -214,19 +215,35 @@ def trend_and_forecast(
     return db_per_day, min(NO_FORECAST_DAYS, (math.log(limit) - now_log) / slope)
 
 
-def detailed_forecast(history: list[list[float]], *, limit: float | None) -> dict:
-    """The trend model of ``analysis.trend`` (model choice, change point, Fieller interval) for emails.
+def detailed_forecast(history: list[list[float]], *, limit: float | None, band_points: int = 2) -> dict:
+    """The one forecast planners read, in alarm emails and on the machine page's chart.
 
-    It costs milliseconds, so the engine calls it only when a level changes, not for every record.
+    ``history`` is the rule's trend history (:func:`trend_history` of the 6-hour buckets, r.m.s. mm/s);
+    the model is :func:`analysis.trend.fit_trend` (model choice by AICc, change point, Fieller interval
+    of the crossing) on its buckets with a line. Emails and charts call this with the same buckets, so
+    they give the same date. It costs milliseconds, so the engine calls it only when a level changes.
     """
     from analysis.trend import fit_trend
 
     points = [(ts / 86400.0, a) for ts, a in history if a and a > 0]
     if len(points) < 5:
-        return {"status": "not_enough_data"}
+        return {"status": "not_enough_data",
+                "message": "fewer than five 6-hour buckets with a half-order line"}
     try:
-        res = fit_trend([p[0] for p in points], [p[1] for p in points], limit=limit, band_points=2)
+        res = fit_trend([p[0] for p in points], [p[1] for p in points], limit=limit, band_points=band_points)
     except ValueError as exc:
         return {"status": "failed", "message": str(exc)}
-    return {k: getattr(res, k) for k in ("status", "message", "model", "growth_db_per_day", "days_to_limit",
-                                         "days_to_limit_lo", "days_to_limit_hi")}
+    return res.to_dict()
+
+
+EMAIL_FORECAST_KEYS = ("status", "message", "model", "growth_db_per_day", "days_to_limit", "days_to_limit_lo",
+                       "days_to_limit_hi", "limit", "last_day", "limit_iso")
+
+
+def buckets_of(readings) -> list[list[float]]:
+    """The rule's trend buckets from ``(epoch_s, half-order velocity r.m.s. or 0)`` readings, oldest first
+    (what :mod:`.evaluate` accumulates one reading at a time)."""
+    buckets: list[list[float]] = []
+    for ts, value in readings:
+        buckets = add_to_buckets(buckets, float(ts), float(value or 0.0))
+    return buckets

@@ -21,13 +21,23 @@ from types import SimpleNamespace
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
+from analysis.result_compat import upgrade_result_dict
+from analysis.results import RecordAnalysis
 from server.storage.tables import Asset, Point, utcnow
 
 from . import checks, margin
 from .engine import Reading, step
 from .notify import queue_for_events
 from .pointstate import PointData, StateRow, effective, read_point, write_states, write_status
-from .rules import LEVEL_RANK, METRICS, SLOW_RULES_DWELL_S, RuleSpec, default_rules, result_metrics
+from .rules import (
+    LEVEL_RANK,
+    METRICS,
+    SLOW_RULES_DWELL_S,
+    RuleSpec,
+    default_rules,
+    result_metrics,
+    rules_in_force,
+)
 from .tables import AlarmEvent, AlarmRule
 
 HISTORY_LEN = 30
@@ -77,17 +87,13 @@ def effective_rules(session: Session, point: Point, asset: Asset | None = None, 
         | ((AlarmRule.asset_id == point.asset_id) & AlarmRule.point_id.is_(None)))).all()
     point_rules = ensure_default_rules(session, point, asset, [r for r in rows if r.point_id == point.id],
                                        persist=persist)
-    by_metric = {r.metric: r for r in rows if r.point_id is None}
-    # A point's own rule that an engineer edited wins; a default point rule yields to an asset rule.
-    for r in point_rules:
-        if not r.is_default or r.metric not in by_metric:
-            by_metric[r.metric] = r
-    return list(by_metric.values())
+    return rules_in_force([*point_rules, *(r for r in rows if r.point_id is None)], point.id)
 
 
 def _result_data(result) -> dict:
+    """The stored result as a version 2.0 dict (older results are read through the key map)."""
     data = getattr(result, "data", result)
-    return json.loads(data) if isinstance(data, str) else dict(data)
+    return upgrade_result_dict(json.loads(data) if isinstance(data, str) else dict(data))
 
 
 def _measured_ts(record, result) -> float:
@@ -147,7 +153,8 @@ def _evaluate(session: Session, record, result, settings, now: dt.datetime) -> l
             queue_for_events(session, [event], now=now)
         return [event]
 
-    metrics = result_metrics(data)
+    typed = RecordAnalysis.from_dict(data)
+    metrics = result_metrics(typed)
     ts = _measured_ts(record, result)
     old = list(status.history)
     if old and ts <= old[-1][0]:
@@ -170,7 +177,7 @@ def _evaluate(session: Session, record, result, settings, now: dt.datetime) -> l
         trend_points, limit=danger_of.get("half_order_velocity"), conservative=True,
         min_points=checks.RULE_MIN_POINTS, min_span_days=checks.RULE_MIN_SPAN_DAYS,
     )
-    metrics["threshold_margin"], margin_reason = margin.threshold_margin(status, data)
+    metrics["threshold_margin"], margin_reason = margin.threshold_margin(status, typed)
     status.history = history
     status.speeds_hz = checks.remember_speed(list(status.speeds_hz), (data.get("forcing") or {})
                                              .get("frequency_hz"))
@@ -206,7 +213,8 @@ def _evaluate(session: Session, record, result, settings, now: dt.datetime) -> l
         if row.metric in SLOW_RULES_DWELL_S:
             since[row.metric] = ts
         if forecast is None:
-            forecast = checks.detailed_forecast(trend_points, limit=danger_of.get("half_order_velocity"))
+            full = checks.detailed_forecast(trend_points, limit=danger_of.get("half_order_velocity"))
+            forecast = {k: full.get(k) for k in checks.EMAIL_FORECAST_KEYS if k in full}
         for name, v in (("window", windows[row.metric]), ("last_value", value), ("last_record_id", record.id),
                         ("updated_at", now)):
             state.set(name, v)
@@ -283,11 +291,12 @@ def _finding(data: dict) -> dict:
     """The parts of the result an email needs to describe the finding in the trade's words."""
     sub = data.get("subharmonic") or {}
     return {
-        "subharmonic": {k: sub.get(k) for k in ("detected", "class", "frequency_hz", "order", "amplitude",
-                                                 "velocity_mm_s", "snr_db", "family")},
+        "subharmonic": {k: sub.get(k) for k in ("detected", "class", "frequency_hz", "order", "accel_peak",
+                                                 "velocity_peak_mm_s", "velocity_rms_mm_s", "snr_db",
+                                                 "family")},
         "growth": data.get("growth") or {},
         "overall": {k: (data.get("overall") or {}).get(k) for k in ("velocity_rms_mm_s", "zone",
-                                                                     "zone_limits_mm_s")},
+                                                                     "zone_limits_rms_mm_s")},
         "forcing_hz": (data.get("forcing") or {}).get("frequency_hz"),
         "orders": data.get("orders") or {},
         "units": data.get("units"),

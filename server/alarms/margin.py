@@ -8,17 +8,19 @@ closed form from the first-order threshold used by that fit:
 
     a_c(f) = 2 sqrt(((f - 2 f0) / f0)^2 + 4 zeta^2) / k,     margin = 1 - a_1X / a_c(f)
 
-(1 far from the threshold, 0 on it, negative beyond it). Only a fit with status ``fit`` is used; a
-weakly constrained one leaves the rule inactive with the fit's own message as the reason.
+(1 far from the threshold, 0 on it, negative beyond it), computed by
+:func:`analysis.window.threshold_margin` (the one home of a_c(f)). Only a fit with status ``fit`` is
+used; a weakly constrained one leaves the rule inactive with the fit's own message as the reason.
 """
 
 from __future__ import annotations
 
 import datetime as dt
 import logging
-import math
 
 from sqlalchemy import func, select
+
+from analysis.window import threshold_margin as _threshold_margin
 
 log = logging.getLogger(__name__)
 
@@ -28,47 +30,29 @@ REFIT_AFTER = 5  # new results since the last fit
 HISTORY_LIMIT = 2000
 
 
-def _finite(v) -> bool:
-    return isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v)
-
-
 def margin_from_fit(fit: dict, speed_hz, amp_1x) -> float | None:
-    f0, zeta, k = fit.get("f0_hz"), fit.get("zeta"), fit.get("k_per_unit")
-    if not all(_finite(v) and v > 0 for v in (f0, zeta, k)) or not (_finite(speed_hz) and _finite(amp_1x)):
-        return None
-    a_c = 2.0 * math.sqrt(((speed_hz - 2.0 * f0) / f0) ** 2 + 4.0 * zeta**2) / k
-    return 1.0 - amp_1x / a_c if a_c > 0 else None
+    return _threshold_margin(speed_hz, amp_1x, fit.get("f0_hz"), fit.get("zeta"), fit.get("k_per_unit"))
 
 
-def threshold_margin(status, data: dict) -> tuple[float | None, str | None]:
-    """``(margin, None)`` when a usable fit exists, else ``(None, reason)``."""
+def threshold_margin(status, result) -> tuple[float | None, str | None]:
+    """``(margin, None)`` when a usable fit exists, else ``(None, reason)``; ``result`` is typed or a
+    stored dict of any version."""
+    from .rules import typed_result
+
     fit = (status.window_fit if status is not None else None) or {}
     if not fit:
         return None, NO_FIT
     if fit.get("status") != "fit":
         return None, f"{NO_FIT}: {fit.get('message') or fit.get('status')}"
-    speed = (data.get("forcing") or {}).get("frequency_hz")
-    amp = ((data.get("orders") or {}).get("1X") or {}).get("amplitude")
-    value = margin_from_fit(fit, speed, amp)
+    r = typed_result(result)
+    one_x = r.orders.get("1X")
+    value = margin_from_fit(fit, r.forcing.frequency_hz, None if one_x is None else one_x.amplitude)
     return (value, None) if value is not None else (None, f"{NO_FIT}: no 1X reading in this record")
-
-
-def _history_rows(session, point_id: int):
-    from server.routes.dashboard_series import json_number
-    from server.storage.tables import Result
-
-    cols = (Result.measured_ts, Result.forcing_hz,
-            json_number(session.bind.dialect.name, "orders", "1X", "amplitude"), Result.sub_detected,
-            Result.sub_class, Result.growth_rate_per_s, Result.sub_amplitude, Result.record_id)
-    rows = session.execute(select(*cols).where(Result.point_id == point_id, Result.current.is_(True))
-                           .order_by(Result.measured_ts.desc()).limit(HISTORY_LIMIT)).all()
-    rows.reverse()
-    return rows
 
 
 def refresh_window_fits(db, *, now: dt.datetime | None = None) -> int:
     """Refit the points with enough new results; returns how many fits were stored."""
-    from server.routes.dashboard_window import fitted_window, readings
+    from server.services.window import fitted_window, history_rows, readings
     from server.storage.tables import Result, utcnow
 
     from .tables import AlarmPointStatus
@@ -83,7 +67,7 @@ def refresh_window_fits(db, *, now: dt.datetime | None = None) -> int:
     stored = 0
     for point_id in due:
         with db.read() as s:
-            pts = readings(_history_rows(s, point_id))
+            pts = readings(history_rows(s, point_id, limit=HISTORY_LIMIT))
         try:
             fit = fitted_window(pts) if len(pts) >= MIN_RECORDS else {"status": "not_enough_data"}
         except Exception as exc:  # a failed fit must not stop the loop; the rule stays inactive

@@ -194,14 +194,11 @@ def read_point(conn, point_id: int) -> PointData:
 
 
 def effective(rules: list[RuleRow], point_id: int) -> list[RuleRow]:
-    """Point rules, with asset rules for any metric the point does not set itself.
+    """Point rules, with asset rules for any metric the point does not set itself
+    (:func:`server.alarms.rules.rules_in_force`)."""
+    from .rules import rules_in_force
 
-    A point's own rule that an engineer edited wins; a default point rule yields to an asset rule."""
-    by_metric = {r.metric: r for r in rules if r.point_id is None}
-    for r in rules:
-        if r.point_id == point_id and (not r.is_default or r.metric not in by_metric):
-            by_metric[r.metric] = r
-    return list(by_metric.values())
+    return rules_in_force(rules, point_id)
 
 
 def write_status(conn, point_id: int, status: Status, now: dt.datetime, *, history_only: bool = False,

@@ -29,8 +29,11 @@ def describe_finding(finding: dict) -> str:
         text = f"{kind} at {_f(sub.get('frequency_hz'))} Hz"
         if sub.get("order") is not None:
             text += f" ({sub['order']:.2f}X)"
-        if sub.get("velocity_mm_s") is not None:  # a sine peak in the result: shown as r.m.s.
-            text += f", {sub['velocity_mm_s'] / 2 ** 0.5:.2g} mm/s r.m.s."
+        rms = sub.get("velocity_rms_mm_s")
+        if rms is None and sub.get("velocity_mm_s") is not None:  # events before revision 0005: a sine peak
+            rms = sub["velocity_mm_s"] / 2 ** 0.5
+        if rms is not None:
+            text += f", {rms:.2g} mm/s r.m.s."
         growth = finding.get("growth") or {}
         ci = growth.get("ci95_per_s") or [None, None]
         rate = growth.get("rate_per_s")

@@ -21,18 +21,15 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass, field, replace
 
+from analysis.results import RecordAnalysis
+from analysis.severity import ZONE_LIMITS_MM_S
+
 LEVELS = ("normal", "alert", "danger")
 LEVEL_RANK = {name: i for i, name in enumerate(LEVELS)}
 ZONE_RANK = {"A": 0, "B": 1, "C": 2, "D": 3}
 
-# ISO 20816-3 / 10816-3 Annex A, broad-band velocity r.m.s. in mm/s (A/B, B/C, C/D). Values from
-# memory (see the module docstring); used only when a result carries no zone limits of its own.
-ISO_ZONE_LIMITS_MM_S = {
-    (1, "rigid"): (2.3, 4.5, 7.1),
-    (1, "flexible"): (3.5, 7.1, 11.0),
-    (2, "rigid"): (1.4, 2.8, 4.5),
-    (2, "flexible"): (2.3, 4.5, 7.1),
-}
+# ISO 20816-3 / 10816-3 Annex A zone boundaries (velocity r.m.s., mm/s): one table, in analysis.severity.
+ISO_ZONE_LIMITS_MM_S = ZONE_LIMITS_MM_S
 
 
 @dataclass(frozen=True, slots=True)
@@ -45,16 +42,16 @@ class MetricInfo:
 
 
 METRICS: dict[str, MetricInfo] = {
-    "half_order_velocity": MetricInfo("half-order velocity", "mm/s r.m.s."),
-    "half_order_amplitude": MetricInfo("half-order amplitude (record units)", ""),
+    "half_order_velocity": MetricInfo("half-order velocity r.m.s.", "mm/s r.m.s."),
+    "half_order_amplitude": MetricInfo("half-order acceleration peak (record units)", ""),
     "half_order_ratio": MetricInfo("half-order / 1X ratio", ""),
     "growth_rate": MetricInfo("within-record growth rate", "1/s"),
     "trend_db_per_day": MetricInfo("half-order trend (at least, 95 % one-sided)", "dB/day"),
     "time_to_limit_days": MetricInfo("forecast time to the danger level (at most)", "days", "below"),
     "overall_velocity": MetricInfo("overall velocity r.m.s. (ISO 20816 zone)", "mm/s"),
     "threshold_margin": MetricInfo("margin to the instability threshold", "", "below"),
-    "order_1x_velocity": MetricInfo("1X velocity", "mm/s r.m.s."),
-    "order_2x_velocity": MetricInfo("2X velocity", "mm/s r.m.s."),
+    "order_1x_velocity": MetricInfo("1X velocity r.m.s.", "mm/s r.m.s."),
+    "order_2x_velocity": MetricInfo("2X velocity r.m.s.", "mm/s r.m.s."),
     "crest_factor": MetricInfo("crest factor", ""),
 }
 
@@ -121,8 +118,10 @@ class RuleSpec:
 
 
 def zone_limits(result: dict, *, group: int = 2, support: str = "rigid") -> tuple[float, float, float] | None:
-    """ISO zone boundaries (A/B, B/C, C/D) in mm/s from the result, else the table for group/support."""
-    limits = (result.get("overall") or {}).get("zone_limits_mm_s")
+    """ISO zone boundaries (A/B, B/C, C/D, velocity r.m.s. in mm/s) from the result, else the table for
+    group/support. Reads results of any version (``zone_limits_rms_mm_s``, formerly ``zone_limits_mm_s``)."""
+    overall = (result.get("overall") or {}) if isinstance(result, dict) else {}
+    limits = overall.get("zone_limits_rms_mm_s", overall.get("zone_limits_mm_s"))
     if isinstance(limits, dict):
         limits = [limits.get(key) for key in ("A/B", "B/C", "C/D")]
     if isinstance(limits, (list, tuple)) and len(limits) == 3 and all(_finite(v) for v in limits):
@@ -154,6 +153,21 @@ def default_rules(*, group: int = 2, support: str = "rigid") -> list[RuleSpec]:
     ]
 
 
+def rules_in_force(rules, point_id: int) -> list:
+    """The one rule-precedence rule: which of a point's and its asset's rules apply to the point.
+
+    ``rules`` are any objects with ``metric``, ``point_id`` (``None`` for an asset rule) and
+    ``is_default``. A point's own rule that an engineer edited wins; a default point rule yields to an
+    asset rule; an asset rule applies to a metric the point does not set. Rules of other points are
+    ignored. Disabled rules are returned too (the caller decides what "disabled" shows).
+    """
+    by_metric = {r.metric: r for r in rules if r.point_id is None}
+    for r in rules:
+        if r.point_id == point_id and (not r.is_default or r.metric not in by_metric):
+            by_metric[r.metric] = r
+    return list(by_metric.values())
+
+
 def with_levels(rule: RuleSpec, **changes) -> RuleSpec:
     """A copy of ``rule`` with some fields changed (validated)."""
     new = replace(rule, **changes)
@@ -169,45 +183,38 @@ def _num(value) -> float | None:
     return float(value) if _finite(value) else None
 
 
-def _rms(peak) -> float | None:
-    """Line velocities in the analysis JSON are sine peaks; rules compare r.m.s. (peak / sqrt 2)."""
-    value = _num(peak)
-    return None if value is None else value / math.sqrt(2.0)
+def typed_result(result: dict | RecordAnalysis) -> RecordAnalysis:
+    """The typed result of a stored dict (any version) or the result itself."""
+    return result if isinstance(result, RecordAnalysis) else RecordAnalysis.from_dict(result)
 
 
-def result_metrics(result: dict) -> dict[str, float | None]:
-    """Metrics that come straight from one analysis result (``RecordAnalysis.to_dict()``).
+def result_metrics(result: dict | RecordAnalysis) -> dict[str, float | None]:
+    """Metrics that come straight from one analysis result (typed, or a stored dict of any version).
 
     ``None`` means "this reading says nothing about the metric" (it neither raises nor clears).
-    Line velocities are turned from peak into r.m.s., the measure of the ISO zones.
+    Line velocities are compared in r.m.s. (``velocity_rms_mm_s``), the measure of the ISO zones.
     """
-    sub = result.get("subharmonic") or {}
-    orders = result.get("orders") or {}
-    one_x = orders.get("1X") or {}
-    two_x = orders.get("2X") or {}
-    growth = result.get("growth") or {}
-    overall = result.get("overall") or {}
-    waveform = result.get("waveform") or {}
-    detected = bool(sub.get("detected"))
-
-    half_v = _rms(sub.get("velocity_mm_s")) if detected else 0.0
-    half_a = _num(sub.get("amplitude")) if detected else 0.0
+    r = typed_result(result)
+    sub, one_x, two_x = r.subharmonic, r.orders.get("1X"), r.orders.get("2X")
+    detected = bool(sub.detected)
+    half_v = _num(sub.velocity_rms_mm_s) if detected else 0.0
+    half_a = _num(sub.amplitude) if detected else 0.0
     ratio = None
-    one_x_amp = _num(one_x.get("amplitude"))
+    one_x_amp = None if one_x is None else _num(one_x.amplitude)
     if not detected:
         ratio = 0.0
     elif half_a is not None and one_x_amp and one_x_amp > 0:
         ratio = half_a / one_x_amp
-
+    g = r.growth
     return {
         "half_order_velocity": half_v,
         "half_order_amplitude": half_a,
         "half_order_ratio": ratio,
-        "growth_rate": significant_growth(growth),
-        "overall_velocity": _num(overall.get("velocity_rms_mm_s")),
-        "order_1x_velocity": _rms(one_x.get("velocity_mm_s")),
-        "order_2x_velocity": _rms(two_x.get("velocity_mm_s")),
-        "crest_factor": _num(waveform.get("crest_factor")),
+        "growth_rate": significant_growth({"rate_per_s": g.rate_per_s, "ci95_per_s": list(g.ci95_per_s)}),
+        "overall_velocity": _num(r.overall.velocity_rms_mm_s),
+        "order_1x_velocity": None if one_x is None else _num(one_x.velocity_rms_mm_s),
+        "order_2x_velocity": None if two_x is None else _num(two_x.velocity_rms_mm_s),
+        "crest_factor": _num(r.waveform.crest_factor),
     }
 
 

@@ -52,7 +52,7 @@ def _growth_text(g: dict, s: dict, units: str) -> str:
         text += f", doubling every {g['doubling_time_s']:.2g} s"
         if g["onset_s"] is not None:
             text += f", out of the floor near {g['onset_s']:.1f} s"
-        v_end = velocity_mm_s(g["end_amplitude"], s["frequency_hz"], units)
+        v_end = velocity_mm_s(g["end_accel_peak"], s["frequency_hz"], units)
         if v_end is not None:
             text += f", {v_end:.2g} mm/s peak at {g['fit_window_s'][1]:.1f} s"
     return text
@@ -76,7 +76,8 @@ def summary(d: dict) -> str:
         fam = [k for k, v in s["family"].items() if v is not None]
         lines.append(
             f"{name} at {s['frequency_hz']:.4g} Hz ({s['order']:.2f}X), "
-            f"{_fmt(s['velocity_mm_s'], '.2g')} mm/s peak ({_fmt(s['amplitude'], '.3g')} {d['units']}) "
+            f"{_fmt(s['velocity_rms_mm_s'], '.2g')} mm/s r.m.s. = {_fmt(s['velocity_peak_mm_s'], '.2g')} mm/s peak "
+            f"({_fmt(s['accel_peak'], '.3g')} {d['units']} peak) "
             f"averaged over the record, {s['snr_db']:.1f} dB over the floor "
             f"(threshold {s['threshold_db']:.1f} dB at Pfa {s['pfa']:g})"
             + (f"; family lines {', '.join(fam)}" if fam else "")
@@ -88,15 +89,15 @@ def summary(d: dict) -> str:
             f"at Pfa {s['pfa']:g})"
         )
     lines.append(
-        f"overall {o['velocity_rms_mm_s']:.2f} mm/s RMS ({o['band_hz'][0]:g}-{o['band_hz'][1]:g} Hz), "
+        f"overall {o['velocity_rms_mm_s']:.2f} mm/s r.m.s. ({o['band_hz'][0]:g}-{o['band_hz'][1]:g} Hz), "
         f"zone {o['zone']} (group {o['machine_group']}, {o['foundation']}; "
-        f"limits {'/'.join(f'{v:g}' for v in o['zone_limits_mm_s'])} "
-        "mm/s, from memory of ISO 10816-3 / 20816-3)"
+        f"limits {'/'.join(f'{v:g}' for v in o['zone_limits_rms_mm_s'])} "
+        "mm/s r.m.s., from memory of ISO 10816-3 / 20816-3)"
     )
     lines.append(
-        "1X {} mm/s peak, 2X {} mm/s peak; crest factor {}, kurtosis {}".format(
-            _fmt(d["orders"]["1X"]["velocity_mm_s"], ".2f"),
-            _fmt(d["orders"]["2X"]["velocity_mm_s"], ".2f"),
+        "1X {} mm/s r.m.s., 2X {} mm/s r.m.s.; crest factor {}, kurtosis {}".format(
+            _fmt(d["orders"]["1X"]["velocity_rms_mm_s"], ".2f"),
+            _fmt(d["orders"]["2X"]["velocity_rms_mm_s"], ".2f"),
             _fmt(d["waveform"]["crest_factor"], ".2f"),
             _fmt(d["waveform"]["kurtosis"], ".2f"),
         )

@@ -8,6 +8,7 @@ import json
 import numpy as np
 from sqlalchemy import Float, Integer, cast, func, select
 
+from analysis.result_compat import upgrade_result_dict
 from server.errors import AppError, NotFound
 from server.storage import blobs
 from server.storage.packing import unpack_arrays
@@ -19,10 +20,14 @@ def iso(t: dt.datetime | None) -> str | None:
 
 
 #: trend metrics that are real columns of ``results`` (bucketed in SQL); other dotted paths into the
-#: result JSON (e.g. ``orders.1X.amplitude``) are read from the JSON.
+#: result JSON (e.g. ``orders.2X.accel_peak``) are read from the JSON.
 METRIC_COLUMNS = {
-    "subharmonic.amplitude": Result.sub_amplitude,
-    "subharmonic.velocity_mm_s": Result.sub_velocity_mm_s,
+    "subharmonic.accel_peak": Result.sub_accel_peak,
+    "subharmonic.velocity_peak_mm_s": Result.sub_velocity_peak_mm_s,
+    "subharmonic.velocity_rms_mm_s": Result.sub_velocity_rms_mm_s,
+    "orders.1X.accel_peak": Result.one_x_accel_peak,
+    "orders.1X.velocity_rms_mm_s": Result.one_x_velocity_rms_mm_s,
+    "subharmonic.precursor.narrow_rate_per_s": Result.precursor_rate_per_s,
     "subharmonic.snr_db": Result.sub_snr_db,
     "subharmonic.frequency_hz": Result.sub_frequency_hz,
     "growth.rate_per_s": Result.growth_rate_per_s,
@@ -63,7 +68,8 @@ def record_detail(s, record_id: int) -> dict:
     res = current_result(s, record_id)
     return {"ok": True, "record": record_dict(rec), "job": job_dict(job) if job else None,
             "result": None if res is None else {"id": res.id, "analysis_version": res.analysis_version,
-                                                "created_at": iso(res.created_at), **json.loads(res.data)}}
+                                                "created_at": iso(res.created_at),
+                                                **upgrade_result_dict(json.loads(res.data))}}
 
 
 def record_spectrum(s, record_id: int) -> dict:
@@ -123,9 +129,7 @@ def trend(s, point_id: int, metric: str, t0: dt.datetime, t1: dt.datetime, max_p
             rows = s.execute(select(Result.measured_ts, col).where(*scope, col.is_not(None))
                              .order_by(Result.measured_ts)).all()
             return _raw(metric, rows)
-        width = bucket_width(a, b, max_points)
-        pos = (Result.measured_ts - a) / width
-        bucket = (func.floor(pos) if s.bind.dialect.name == "postgresql" else cast(pos, Integer)).label("k")
+        bucket = time_bucket(s.bind.dialect.name, a, b, max_points)
         rows = s.execute(
             select(bucket, func.min(col), func.max(col), func.avg(cast(col, Float)), func.count(),
                    func.min(Result.measured_ts), func.max(Result.measured_ts))
@@ -135,7 +139,7 @@ def trend(s, point_id: int, metric: str, t0: dt.datetime, t1: dt.datetime, max_p
     if not all(p.replace("_", "").replace("X", "").isalnum() for p in metric.split(".")):
         raise AppError(f"metric {metric!r} is not a dotted name such as overall.velocity_rms_mm_s",
                        field="metric")
-    pairs = [(ts, _json_path(json.loads(d), metric))
+    pairs = [(ts, _json_path(upgrade_result_dict(json.loads(d)), metric))
              for ts, d in s.execute(select(Result.measured_ts, Result.data).where(*scope)
                                     .order_by(Result.measured_ts))]
     pairs = [(ts, v) for ts, v in pairs if v is not None]
@@ -153,6 +157,13 @@ def trend(s, point_id: int, metric: str, t0: dt.datetime, t1: dt.datetime, max_p
 def bucket_width(a: float, b: float, n: int) -> float:
     """Seconds per trend bucket; slightly wider than (b - a) / n so t1 itself falls in the last bucket."""
     return (b - a) * (1 + 1e-9) / n
+
+
+def time_bucket(dialect: str, a: float, b: float, n: int):
+    """The SQL bucket number 0..n-1 of ``results.measured_ts`` in [a, b] (the one bucketing rule of
+    every chart query; :func:`bucket_width` per bucket, labelled ``k``)."""
+    pos = (Result.measured_ts - a) / bucket_width(a, b, n)
+    return (func.floor(pos) if dialect == "postgresql" else cast(pos, Integer)).label("k")
 
 
 def _ts_iso(ts: float) -> str:

@@ -201,7 +201,9 @@ class Result(Base):
     """One analysis of one record by one analysis version; the newest is ``current``.
 
     The main metrics are real columns (with ``point_id`` and ``measured_ts``, epoch seconds) so a
-    trend query can bucket them in SQL; the full output is in ``data`` (JSON text).
+    trend query can bucket them in SQL; each names its measure (peak / r.m.s., acceleration in record
+    units or velocity in mm/s; see server/storage/result_columns.py). The full output is in ``data``
+    (JSON text, ``RecordAnalysis.to_dict()``; read it back with ``RecordAnalysis.from_dict``).
     """
 
     __tablename__ = "results"
@@ -219,13 +221,17 @@ class Result(Base):
     sub_detected: Mapped[bool] = mapped_column(Boolean, default=False)
     sub_class: Mapped[str | None] = mapped_column(String(32))
     sub_frequency_hz: Mapped[float | None] = mapped_column(Float)
-    sub_amplitude: Mapped[float | None] = mapped_column(Float)
-    sub_velocity_mm_s: Mapped[float | None] = mapped_column(Float)
+    sub_accel_peak: Mapped[float | None] = mapped_column(Float)  # record units, sine peak
+    sub_velocity_peak_mm_s: Mapped[float | None] = mapped_column(Float)
+    sub_velocity_rms_mm_s: Mapped[float | None] = mapped_column(Float)  # what charts and rules compare
     sub_snr_db: Mapped[float | None] = mapped_column(Float)
     growth_rate_per_s: Mapped[float | None] = mapped_column(Float)
     overall_velocity_rms_mm_s: Mapped[float | None] = mapped_column(Float)
     zone: Mapped[str | None] = mapped_column(String(4))
     quality_ok: Mapped[bool] = mapped_column(Boolean, default=True)
+    one_x_accel_peak: Mapped[float | None] = mapped_column(Float)  # record units, sine peak
+    one_x_velocity_rms_mm_s: Mapped[float | None] = mapped_column(Float)
+    precursor_rate_per_s: Mapped[float | None] = mapped_column(Float)  # 0.5X precursor γ−
 
 
 class User(Base):

@@ -14,26 +14,32 @@ from support.servers import free_port
 def make_result(*, half_v: float = 0.0, f1x: float = 24.75, one_x_v: float = 20.0, overall: float = 1.0,
                 growth: float | None = None, ci: tuple | None = None, flags: tuple = (), ok: bool = True,
                 klass: str = "half-order", family: dict | None = None, zone_limits=(1.4, 2.8, 4.5)) -> dict:
-    """An analysis JSON in the shape of ``RecordAnalysis.to_dict()`` (invented values for tests)."""
+    """An analysis JSON in the shape of ``RecordAnalysis.to_dict()`` version 2.0 (invented values for tests).
+
+    ``half_v``, ``one_x_v`` and ``overall`` are velocities r.m.s. in mm/s (what the rules compare)."""
     detected = half_v > 0
     zone = "A" if overall < zone_limits[0] else "B" if overall < zone_limits[1] else \
         "C" if overall < zone_limits[2] else "D"
     return {
+        "version": "2.0",
         "units": "m/s2",
         "forcing": {"frequency_hz": f1x, "source": "refined", "nominal_hz": f1x},
         "subharmonic": {"detected": detected, "class": klass if detected else "none",
                         "frequency_hz": f1x / 2 if detected else None, "order": 0.5 if detected else None,
-                        "amplitude": half_v * 0.1 if detected else None,
-                        # the JSON carries line velocities as sine peaks
-                        "velocity_mm_s": half_v * SQRT2 if detected else None,
+                        "accel_peak": half_v * 0.1 if detected else None,
+                        # a sine: peak = r.m.s. x sqrt 2
+                        "velocity_peak_mm_s": half_v * SQRT2 if detected else None,
+                        "velocity_rms_mm_s": half_v if detected else None,
                         "snr_db": 20.0 if detected else None,
                         "family": family or {"1.5X": None, "2.5X": None}},
         "growth": {"rate_per_s": growth, "ci95_per_s": list(ci) if ci else [None, None], "onset_s": None,
                    "state": "growing" if growth and ci and ci[0] > 0 else "steady"},
-        "overall": {"velocity_rms_mm_s": overall, "zone": zone, "zone_limits_mm_s": list(zone_limits)},
-        "orders": {"1X": {"frequency_hz": f1x, "amplitude": one_x_v * 0.1, "velocity_mm_s": one_x_v * SQRT2},
-                   "2X": {"frequency_hz": 2 * f1x, "amplitude": 0.01, "velocity_mm_s": 0.2}},
-        "waveform": {"rms": 1.0, "peak": 3.0, "crest_factor": 3.0, "kurtosis": 3.0},
+        "overall": {"velocity_rms_mm_s": overall, "zone": zone, "zone_limits_rms_mm_s": list(zone_limits)},
+        "orders": {"1X": {"frequency_hz": f1x, "accel_peak": one_x_v * 0.1, "velocity_peak_mm_s": one_x_v * SQRT2,
+                          "velocity_rms_mm_s": one_x_v},
+                   "2X": {"frequency_hz": 2 * f1x, "accel_peak": 0.01, "velocity_peak_mm_s": 0.2,
+                          "velocity_rms_mm_s": 0.2 / SQRT2}},
+        "waveform": {"accel_rms": 1.0, "accel_peak": 3.0, "crest_factor": 3.0, "kurtosis": 3.0},
         "quality": {"ok": ok, "flags": list(flags)},
     }
 
@@ -49,7 +55,9 @@ class Feeder:
         self.db, self.settings, self.n = db, settings, 0
 
     def feed(self, point_id: int, data: dict, *, at: dt.datetime | None = None) -> list:
+        from analysis.results import RecordAnalysis
         from server.alarms import evaluate_result
+        from server.storage.result_columns import result_columns
         from server.storage.tables import Record, Result
 
         self.n += 1
@@ -59,15 +67,9 @@ class Feeder:
                          origin="api", uploader="test", checksum=f"{self.n:064x}")
             s.add(rec)
             s.flush()
-            sub, overall = data["subharmonic"], data["overall"]
             res = Result(record_id=rec.id, point_id=point_id, measured_ts=at.timestamp(),
                          analysis_version="test", data=json.dumps(data), spectrum=b"",
-                         forcing_hz=data["forcing"]["frequency_hz"], sub_detected=sub["detected"],
-                         sub_class=sub["class"], sub_frequency_hz=sub["frequency_hz"],
-                         sub_amplitude=sub["amplitude"], sub_velocity_mm_s=sub["velocity_mm_s"],
-                         sub_snr_db=sub["snr_db"], growth_rate_per_s=data["growth"]["rate_per_s"],
-                         overall_velocity_rms_mm_s=overall["velocity_rms_mm_s"], zone=overall["zone"],
-                         quality_ok=data["quality"]["ok"])
+                         **result_columns(RecordAnalysis.from_dict(data)))
             s.add(res)
             s.flush()
             events = evaluate_result(s, rec, res, settings=self.settings, now=at)

@@ -59,8 +59,8 @@ def test_simulated_onset_alerts_emails_survives_outage_and_is_acknowledged(
     ids = {m["msg"]["Message-ID"] for m in smtp.messages}
     assert len(subjects) == len(records_with_changes) == len(ids)
     bodies = [m["msg"].get_body(preferencelist=("plain",)).get_content() for m in smtp.messages]
-    assert any("half-order velocity: normal -> ALERT" in b for b in bodies)
-    danger_mail = [b for b in bodies if "half-order velocity: ALERT -> DANGER" in b]
+    assert any("half-order velocity r.m.s.: normal -> ALERT" in b for b in bodies)
+    danger_mail = [b for b in bodies if "half-order velocity r.m.s.: ALERT -> DANGER" in b]
     assert len(danger_mail) == 1 and "half-order component at 12.4 Hz (0.50X)" in danger_mail[0]
     # The engineer acknowledges the danger alarm through the API.
     engineer = users.login("engineer")
@@ -95,5 +95,5 @@ def test_the_worker_loop_sends_the_emails_itself(migrated_db, plant, smtp, mail_
         stop.set()
         thread.join(30)
     assert not thread.is_alive()
-    assert any("half-order velocity: normal -> ALERT" in m["msg"].get_body(preferencelist=("plain",))
+    assert any("half-order velocity r.m.s.: normal -> ALERT" in m["msg"].get_body(preferencelist=("plain",))
                .get_content() for m in smtp.messages)

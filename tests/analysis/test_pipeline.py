@@ -13,11 +13,11 @@ from analysis import SignalError, analyze_record
 
 KEYS = {
     "forcing": {"frequency_hz", "source", "nominal_hz"},
-    "subharmonic": {"detected", "class", "frequency_hz", "order", "amplitude", "velocity_mm_s", "snr_db",
-                    "threshold_db", "pfa", "family"},
+    "subharmonic": {"detected", "class", "frequency_hz", "order", "accel_peak", "velocity_peak_mm_s",
+                    "velocity_rms_mm_s", "snr_db", "threshold_db", "pfa", "family"},
     "growth": {"rate_per_s", "ci95_per_s", "onset_s", "state", "intercept", "fit_window_s"},
-    "overall": {"velocity_rms_mm_s", "zone", "band_hz", "machine_group", "foundation", "zone_limits_mm_s"},
-    "waveform": {"rms", "peak", "crest_factor", "kurtosis"},
+    "overall": {"velocity_rms_mm_s", "zone", "band_hz", "machine_group", "foundation", "zone_limits_rms_mm_s"},
+    "waveform": {"accel_rms", "accel_peak", "crest_factor", "kurtosis"},
     "quality": {"ok", "flags"},
 }  # fmt: skip
 

@@ -33,7 +33,7 @@ def year_of_hourly(migrated_db, plant, rng):
         s.execute(insert(Result), [
             {"record_id": i + 1, "point_id": plant.point_id, "measured_ts": float(ts[i]),
              "analysis_version": "t", "current": True, "spectrum": b"",
-             "data": json.dumps({"orders": {"1X": {"amplitude": float(values[i])}}}),
+             "data": json.dumps({"version": "2.0", "orders": {"2X": {"accel_peak": float(values[i])}}}),
              "overall_velocity_rms_mm_s": float(values[i]), "sub_detected": False, "quality_ok": True}
             for i in range(HOURS)])
     return ts, values
@@ -46,7 +46,7 @@ def reference_buckets(ts, values, a, b, n):
     return np.minimum.reduceat(values, starts), np.maximum.reduceat(values, starts)
 
 
-@pytest.mark.parametrize("metric", ["overall.velocity_rms_mm_s", "orders.1X.amplitude"])
+@pytest.mark.parametrize("metric", ["overall.velocity_rms_mm_s", "orders.2X.accel_peak"])
 def test_trend_of_a_year_keeps_every_bucket_extreme(client, plant, plant_key_headers, year_of_hourly, metric):
     ts, values = year_of_hourly
     a, b = START, START + dt.timedelta(days=365)

@@ -87,9 +87,9 @@ def test_asset_page_draws_every_chart_with_data(login, site, screenshot):
                                f"document.getElementById('{chart}').layout.yaxis.title.text]")
         assert "(" in titles[0] and "(" in titles[1], (chart, titles)  # every axis names its unit
     half = page.evaluate("document.getElementById('chart-half').data")
-    line = next(t for t in half if t["name"] == "half-order velocity (mm/s)")
+    line = next(t for t in half if t["name"] == "half-order velocity r.m.s. (mm/s r.m.s.)")
     with site.db.read() as s:
-        stored = [v for (v,) in s.execute(select(Result.sub_velocity_mm_s).where(
+        stored = [v for (v,) in s.execute(select(Result.sub_velocity_rms_mm_s).where(
             Result.point_id == site.seeded.growing_point, Result.current.is_(True))
             .order_by(Result.measured_ts))]
     assert line["y"] == pytest.approx(stored)

@@ -48,11 +48,10 @@ def _insert_results(db, point_id: int, n: int, t0: dt.datetime) -> tuple[np.ndar
             s.flush()
             s.add(Result(record_id=rec.id, point_id=point_id, measured_ts=ts[i], analysis_version="t",
                          current=True, spectrum=b"", forcing_hz=24.75, sub_detected=True,
-                         sub_amplitude=float(amp[i]), sub_velocity_mm_s=float(amp[i]) * 2,
-                         data=json.dumps({"orders": {"1X": {"amplitude": float(one_x[i]),
-                                                            "velocity_mm_s": float(one_x[i]) * 3}},
-                                          "subharmonic": {"precursor": None if np.isnan(gamma[i]) else
-                                                          {"narrow_rate_per_s": float(gamma[i])}}})))
+                         sub_accel_peak=float(amp[i]), sub_velocity_rms_mm_s=float(amp[i]) * 2,
+                         one_x_accel_peak=float(one_x[i]), one_x_velocity_rms_mm_s=float(one_x[i]) * 3,
+                         precursor_rate_per_s=None if np.isnan(gamma[i]) else float(gamma[i]),
+                         data=json.dumps({"version": "2.0", "orders": {"1X": {"accel_peak": float(one_x[i])}}})))
     return ts, amp, one_x
 
 
@@ -71,7 +70,8 @@ def test_series_buckets_match_numpy_on_the_same_rows(client, users, plant, migra
     width = (end.timestamp() - start.timestamp()) * (1 + 1e-9) / max_points
     k = ((ts - start.timestamp()) / width).astype(int)
     ratio = amp / one_x
-    for name, values in (("half_velocity", amp * 2), ("ratio", ratio), ("one_x_velocity", one_x * 3)):
+    for name, values in (("half_order_velocity_rms_mm_s", amp * 2), ("half_order_to_1x_ratio", ratio),
+                         ("one_x_velocity_rms_mm_s", one_x * 3)):
         ref_max = [values[k == b].max() for b in np.unique(k)]
         ref_mean = [values[k == b].mean() for b in np.unique(k)]
         assert d[name]["max"] == pytest.approx(ref_max), name
@@ -79,12 +79,12 @@ def test_series_buckets_match_numpy_on_the_same_rows(client, users, plant, migra
     assert sum(d["count"]) == n
     # the precursor's decay rate: buckets without any precursor are absent (null), not zero
     ref_max, ref_mean = _precursor_ref(_precursor_rates(n), k)
-    assert d["precursor_rate"]["max"] == pytest.approx(ref_max)
-    assert d["precursor_rate"]["mean"] == pytest.approx(ref_mean)
+    assert d["precursor_rate_per_s"]["max"] == pytest.approx(ref_max)
+    assert d["precursor_rate_per_s"]["mean"] == pytest.approx(ref_mean)
     assert None in ref_mean and ref_mean[0] is not None
     # the extremes survive the downsampling
-    assert max(d["half_velocity"]["max"]) == pytest.approx(2 * amp.max())
-    assert min(d["half_velocity"]["min"]) == pytest.approx(2 * amp.min())
+    assert max(d["half_order_velocity_rms_mm_s"]["max"]) == pytest.approx(2 * amp.max())
+    assert min(d["half_order_velocity_rms_mm_s"]["min"]) == pytest.approx(2 * amp.min())
 
 
 def test_series_refuses_a_reversed_period_with_a_named_field(client, users, plant):
@@ -132,7 +132,7 @@ def test_overview_for_an_api_key_is_limited_to_its_site(client, plant, plant_key
 
 @pytest.mark.postgres
 def test_series_and_window_on_postgres(pg_settings):
-    """The same bucketing and JSON reads on PostgreSQL (JSONB path instead of SQLite's json_extract)."""
+    """The same bucketing and typed-column reads on PostgreSQL."""
     from fastapi.testclient import TestClient
     from support.fixtures import PASSWORD
     from support.plant import make_plant
@@ -157,12 +157,12 @@ def test_series_and_window_on_postgres(pg_settings):
         width = (end.timestamp() - t0.timestamp()) * (1 + 1e-9) / 30
         k = ((ts - t0.timestamp()) / width).astype(int)
         ref = [(one_x * 3)[k == b].max() for b in np.unique(k)]
-        assert d["one_x_velocity"]["max"] == pytest.approx(ref)  # numpy as the reference
-        ref_max, ref_mean = _precursor_ref(_precursor_rates(300), k)  # JSON null -> SQL NULL on JSONB too
-        assert d["precursor_rate"]["mean"] == pytest.approx(ref_mean) and None in ref_mean
+        assert d["one_x_velocity_rms_mm_s"]["max"] == pytest.approx(ref)  # numpy as the reference
+        ref_max, ref_mean = _precursor_ref(_precursor_rates(300), k)  # no precursor -> SQL NULL
+        assert d["precursor_rate_per_s"]["mean"] == pytest.approx(ref_mean) and None in ref_mean
         w = c.get(f"/api/v1/dashboard/points/{plant.point_id}/window",
                   params={"start": t0.isoformat(), "end": end.isoformat()}).json()
-        assert sorted(r["one_x"] for r in w["readings"]) == pytest.approx(sorted(one_x))
+        assert sorted(r["one_x_accel_peak"] for r in w["readings"]) == pytest.approx(sorted(one_x))
         over = c.get("/api/v1/dashboard/overview")  # results without a zone must not break it
         assert over.status_code == 200, over.text
         pump = next(a for s in over.json()["sites"] for ar in s["areas"] for a in ar["assets"]

@@ -34,8 +34,11 @@
     return tr;
   }
 
+  /* The half-order line in the measure its alarm rule compares: velocity r.m.s. (peak / √2 of the line),
+     against the rule's alert and danger levels (mm/s r.m.s.) and the forecast the alarm emails give. */
   function drawHalf(d, x, levels) {
-    const traces = seriesTraces(d, x, "half_velocity", "half-order velocity", HW.palette.half, "mm/s");
+    const traces = seriesTraces(d, x, "half_order_velocity_rms_mm_s", "half-order velocity r.m.s.",
+      HW.palette.half, "mm/s r.m.s.");
     const shapes = [];
     const t = d.trend || {};
     if (t.band) {
@@ -51,25 +54,40 @@
       traces.push({ x: f.t.map((v) => HW.wall(v, tz)), y: f.value, type: "scatter", mode: "lines",
         line: { color: HW.palette.fit, width: 2, dash: "dash" }, name: "forecast to the danger level" });
       if (f.cross_lo && f.cross_hi) {
-        traces.push({ x: [HW.wall(f.cross_lo, tz), HW.wall(f.cross_hi, tz)], y: [t.limit, t.limit], type: "scatter",
+        traces.push({ x: [HW.wall(f.cross_lo, tz), HW.wall(f.cross_hi, tz)],
+          y: [t.limit_rms_mm_s, t.limit_rms_mm_s], type: "scatter",
           mode: "lines+markers", marker: { symbol: "line-ns-open", size: 14, color: HW.palette.limit },
           line: { color: HW.palette.limit, width: 6 }, opacity: 0.55, name: "90 % interval of the crossing" });
       }
     }
-    if (levels && levels.danger) shapes.push(HW.hline(levels.danger, HW.palette.limit, "dash", `danger ${HW.num(levels.danger)} mm/s`));
-    if (levels && levels.alert) shapes.push(HW.hline(levels.alert, HW.palette.alert, "dot", `alert ${HW.num(levels.alert)} mm/s`));
+    if (levels && levels.danger) {
+      shapes.push(HW.hline(levels.danger, HW.palette.limit, "dash", `danger ${HW.num(levels.danger)} mm/s r.m.s.`));
+    }
+    if (levels && levels.alert) {
+      shapes.push(HW.hline(levels.alert, HW.palette.alert, "dot", `alert ${HW.num(levels.alert)} mm/s r.m.s.`));
+    }
     const note = [];
-    if (t.status === "forecast") note.push(`Growth ${HW.num(t.growth_db_per_day)} dB/day (95 %: ${HW.num(t.growth_db_per_day_lo)} to ${HW.num(t.growth_db_per_day_hi)}); reaches the danger level in about ${HW.num(t.days_to_limit, 2)} days (90 %: ${HW.num(t.days_to_limit_lo, 2)} to ${t.days_to_limit_hi == null ? "not bounded" : HW.num(t.days_to_limit_hi, 2)}).`);
+    if (t.status === "forecast") {
+      const hi = t.days_to_limit_hi == null ? "not bounded" : HW.num(t.days_to_limit_hi, 2);
+      note.push(`Growth ${HW.num(t.growth_db_per_day)} dB/day (95 %: ${HW.num(t.growth_db_per_day_lo)} to `
+        + `${HW.num(t.growth_db_per_day_hi)}); reaches the danger level `
+        + `(${HW.num(t.limit_rms_mm_s)} mm/s r.m.s.) in about ${HW.num(t.days_to_limit, 2)} days, `
+        + `${HW.when(t.limit_iso, tz)} (90 %: ${HW.num(t.days_to_limit_lo, 2)} to ${hi}). `
+        + "The same forecast as the alarm emails (6-hour buckets of the half-order velocity r.m.s.).");
+    }
     else if (t.message) note.push(`Trend: ${t.message}.`);
     if (t.onset_iso) note.push(`Onset about ${HW.when(t.onset_iso, tz)}.`);
     note.push("Markers: ◆ half-order detected, ○ not detected.");
     $("#trend-note").textContent = note.join(" ");
-    return HW.plot("chart-half", traces, { xaxis: xaxis(), yaxis: { title: { text: "half-order velocity (mm/s)" }, rangemode: "tozero" }, shapes });
+    return HW.plot("chart-half", traces, { xaxis: xaxis(),
+      yaxis: { title: { text: "half-order velocity r.m.s. (mm/s r.m.s.)" }, rangemode: "tozero" }, shapes });
   }
 
   function drawOverall(d, x, limits) {
-    const traces = seriesTraces(d, x, "overall", "overall velocity r.m.s.", HW.palette.overall, "mm/s");
-    const vals = (d.overall.max || d.overall.mean).filter((v) => v != null);
+    const o = d.overall_velocity_rms_mm_s;
+    const traces = seriesTraces(d, x, "overall_velocity_rms_mm_s", "overall velocity r.m.s.", HW.palette.overall,
+      "mm/s r.m.s.");
+    const vals = (o.max || o.mean).filter((v) => v != null);
     const top = Math.max(...vals, limits ? limits[2] * 1.25 : 1) * 1.08;
     const shapes = [], annotations = [];
     if (limits) {
@@ -80,7 +98,8 @@
       });
       $("#zone-note").textContent = `ISO 20816 zone boundaries for group ${asset.asset.machine_group}, ${asset.asset.foundation} support: A/B ${limits[0]}, B/C ${limits[1]}, C/D ${limits[2]} mm/s r.m.s.`;
     }
-    return HW.plot("chart-overall", traces, { xaxis: xaxis(), yaxis: { title: { text: "velocity r.m.s. (mm/s)" }, range: [0, top] }, shapes, annotations });
+    return HW.plot("chart-overall", traces, { xaxis: xaxis(),
+      yaxis: { title: { text: "velocity r.m.s. (mm/s r.m.s.)" }, range: [0, top] }, shapes, annotations });
   }
 
   function simple(id, d, x, key, name, color, unit, ytitle, extra) {
@@ -90,14 +109,15 @@
   /* γ− of the noise-excited 0.5X bump (below threshold): it falls towards 0 as the machine nears the
      parametric threshold. Readings without a precursor leave gaps (the server sends null). */
   function drawPrecursor(d, x) {
-    const s = d.precursor_rate || { mean: [] };
+    const s = d.precursor_rate_per_s || { mean: [] };
     const n = s.mean.filter((v) => v != null).length;
     $("#precursor-note").textContent = (n
       ? `${n} ${d.bucketed ? "buckets" : "readings"} with a 0.5X precursor in this period; gaps are readings without one. `
       : "No 0.5X precursor in this period. ")
       + "γ− = π × half-power width of the noise-excited bump at 0.5X. A falling γ− means the machine is approaching "
       + "the parametric threshold (γ− reaches 0 at onset); it is an early warning, not a detected half-order line.";
-    return HW.plot("chart-precursor", seriesTraces(d, x, "precursor_rate", "precursor γ−", HW.palette.precursor, "1/s"),
+    return HW.plot("chart-precursor",
+      seriesTraces(d, x, "precursor_rate_per_s", "precursor γ−", HW.palette.precursor, "1/s"),
       { xaxis: xaxis(), yaxis: { title: { text: "narrow decay rate γ− (1/s)" }, rangemode: "tozero" },
         annotations: n ? [] : [{ xref: "paper", yref: "paper", x: 0.5, y: 0.5, showarrow: false,
           text: "no 0.5X precursor in this period", font: { size: 13, color: "#5b6670" } }] });
@@ -106,7 +126,7 @@
   function drawSpeed(d, x) {
     const mult = asset.asset.forcing_multiplier || 1;
     const conv = (s) => s && { min: s.min && s.min.map((v) => v == null ? null : v / mult), max: s.max && s.max.map((v) => v == null ? null : v / mult), mean: s.mean.map((v) => v == null ? null : v / mult) };
-    const dd = Object.assign({}, d, { speed: conv(d.forcing) });
+    const dd = Object.assign({}, d, { speed: conv(d.forcing_hz) });
     const tr = seriesTraces(dd, x, "speed", "shaft speed", HW.palette.speed, "Hz");
     tr[tr.length - 1].hovertemplate = "%{y:.4g} Hz = %{customdata} rpm<extra></extra>";
     tr[tr.length - 1].customdata = dd.speed.mean.map((v) => v == null ? null : Math.round(v * 60));
@@ -142,11 +162,13 @@
     const x = d.t.map((v) => HW.wall(v, tz));
     await Promise.all([
       drawHalf(d, x, levels),
-      drawOverall(d, x, asset.zone_limits_mm_s),
-      simple("chart-onex", d, x, "one_x_velocity", "1X velocity", HW.palette.onex, "mm/s", "1X velocity (mm/s)"),
-      simple("chart-ratio", d, x, "ratio", "half-order / 1X", HW.palette.ratio, "ratio", "amplitude ratio (1 = equal)",
+      drawOverall(d, x, asset.zone_limits_rms_mm_s),
+      simple("chart-onex", d, x, "one_x_velocity_rms_mm_s", "1X velocity r.m.s.", HW.palette.onex, "mm/s r.m.s.",
+        "1X velocity r.m.s. (mm/s r.m.s.)"),
+      simple("chart-ratio", d, x, "half_order_to_1x_ratio", "half-order / 1X", HW.palette.ratio, "ratio",
+        "amplitude ratio, peak / peak (1 = equal)",
         { shapes: point.levels.half_order_ratio ? [HW.hline(point.levels.half_order_ratio.danger, HW.palette.limit, "dash", "danger"), HW.hline(point.levels.half_order_ratio.alert, HW.palette.alert, "dot", "alert")] : [] }),
-      simple("chart-growth", d, x, "growth", "growth rate", HW.palette.growth, "1/s", "growth rate (1/s)"),
+      simple("chart-growth", d, x, "growth_rate_per_s", "growth rate", HW.palette.growth, "1/s", "growth rate (1/s)"),
       drawPrecursor(d, x),
       drawSpeed(d, x),
     ]);

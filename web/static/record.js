@@ -24,16 +24,20 @@
     box.append(
       number("Forcing frequency (1X)", HW.num(f.frequency_hz, 5), "Hz", `${f.source}${f.nominal_hz ? `, nominal ${HW.num(f.nominal_hz, 5)} Hz` : ""}`),
       number("Subharmonic", s.detected ? `${s.class} found` : "none found", "", s.detected ? `at ${HW.num(s.frequency_hz, 5)} Hz = ${HW.num(s.order, 4)}X` : `false-alarm rate ${HW.num(s.pfa)} per search`),
-      number("Subharmonic amplitude", HW.num(s.amplitude), u, `velocity ${HW.num(s.velocity_mm_s)} mm/s`),
+      number("Subharmonic velocity r.m.s.", HW.num(s.velocity_rms_mm_s), "mm/s r.m.s.",
+        `peak ${HW.num(s.velocity_peak_mm_s)} mm/s · acceleration ${HW.num(s.accel_peak)} ${u} peak`),
       number("Signal to noise", HW.num(s.snr_db), "dB", `detection threshold ${HW.num(s.threshold_db)} dB (false-alarm rate ${HW.num(s.pfa)})`),
       number("Growth rate", HW.num(g.rate_per_s), "1/s",
         g.ci95_per_s && g.ci95_per_s[0] != null ? `95 % interval ${HW.num(g.ci95_per_s[0])} to ${HW.num(g.ci95_per_s[1])} 1/s · ${g.state}` : `${g.state || "not estimated"}${g.note ? ` · ${g.note}` : ""}`),
       number("Doubling time", g.rate_per_s > 0 ? HW.num(Math.LN2 / g.rate_per_s) : "—", g.rate_per_s > 0 ? "s" : "", g.onset_s != null ? `onset at ${HW.num(g.onset_s)} s into the reading` : null),
-      number("Overall velocity r.m.s.", HW.num(o.velocity_rms_mm_s), "mm/s", o.band_hz ? `${HW.num(o.band_hz[0])} – ${HW.num(o.band_hz[1])} Hz · ${o.standard || "ISO 20816"}` : null),
+      number("Overall velocity r.m.s.", HW.num(o.velocity_rms_mm_s), "mm/s r.m.s.", o.band_hz ? `${HW.num(o.band_hz[0])} – ${HW.num(o.band_hz[1])} Hz · ${o.standard || "ISO 20816"}` : null),
       el("div", { class: "n" }, el("div", { class: "k" }, "ISO 20816 zone"), el("div", { class: "v" }, HW.zoneBadge(o.zone)),
-        el("div", { class: "ci" }, o.zone_limits_mm_s ? `group ${o.machine_group}, ${o.foundation}: ${o.zone_limits_mm_s.join(" / ")} mm/s` : "")),
-      number("1X", HW.num(one.amplitude), u, `velocity ${HW.num(one.velocity_mm_s)} mm/s`),
-      number("2X", HW.num(two.amplitude), u, `velocity ${HW.num(two.velocity_mm_s)} mm/s`),
+        el("div", { class: "ci" }, o.zone_limits_rms_mm_s
+          ? `group ${o.machine_group}, ${o.foundation}: ${o.zone_limits_rms_mm_s.join(" / ")} mm/s r.m.s.` : "")),
+      number("1X velocity r.m.s.", HW.num(one.velocity_rms_mm_s), "mm/s r.m.s.",
+        `peak ${HW.num(one.velocity_peak_mm_s)} mm/s · acceleration ${HW.num(one.accel_peak)} ${u} peak`),
+      number("2X velocity r.m.s.", HW.num(two.velocity_rms_mm_s), "mm/s r.m.s.",
+        `peak ${HW.num(two.velocity_peak_mm_s)} mm/s · acceleration ${HW.num(two.accel_peak)} ${u} peak`),
       number("Crest factor / kurtosis", `${HW.num((r.waveform || {}).crest_factor)} / ${HW.num((r.waveform || {}).kurtosis)}`, "", "kurtosis 3 for Gaussian noise, 1.5 for a sine"),
       number("Spectrum", `${HW.num((r.spectrum_summary || {}).df_hz)} Hz`, "lines", `${(r.spectrum_summary || {}).n_segments} averages (Welch)`),
     );
@@ -95,7 +99,7 @@
     const band = pre && precursorBand(pre, Math.min(...spec.amplitude.filter((v) => v > 0)),
       1.25 * peakIn(pre.frequency_hz - near, pre.frequency_hz + near));
     if (band) traces.push(band);
-    if (s.detected) traces.push({ x: [s.frequency_hz], y: [s.amplitude], type: "scatter", mode: "markers",
+    if (s.detected) traces.push({ x: [s.frequency_hz], y: [s.accel_peak], type: "scatter", mode: "markers",
       marker: { symbol: "diamond", size: 11, color: HW.palette.half, line: { color: "#fff", width: 1 } }, name: `${s.class} line found` });
     return HW.plot("chart-spectrum", traces, {
       xaxis: { title: { text: "frequency (Hz)" }, range: [0, Math.min(fmax, 5.2 * F)] },

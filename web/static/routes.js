@@ -20,7 +20,8 @@
     }
     const s = r.subharmonic || {}, o = r.overall || {};
     box.append(el("div", { class: "notice result-ready", "data-record-id": rec.id },
-      el("strong", {}, s.detected ? `${s.class} line at ${HW.num(s.frequency_hz, 4)} Hz (${HW.num(s.order, 3)}X), ${HW.num(s.velocity_mm_s)} mm/s` : "No subharmonic line found"),
+      el("strong", {}, s.detected ? `${s.class} line at ${HW.num(s.frequency_hz, 4)} Hz (${HW.num(s.order, 3)}X), ${HW.num(s.velocity_rms_mm_s)} mm/s r.m.s.`
+        : "No subharmonic line found"),
       el("br"), `Overall ${HW.num(o.velocity_rms_mm_s)} mm/s r.m.s. `, HW.zoneBadge(o.zone),
       ` · forcing ${HW.num((r.forcing || {}).frequency_hz, 4)} Hz · `, el("a", { href: `/records/${rec.id}` }, "open reading")));
     return false;
