@@ -13,7 +13,8 @@ from contextlib import asynccontextmanager
 
 from fastapi import FastAPI
 
-from server.errors import ERROR_RESPONSES, PayloadTooLarge, error_body, install_error_handlers
+from server.errors import ERROR_RESPONSES, PayloadTooLarge, error_body
+from server.http_errors import install_error_handlers
 from server.settings import Settings
 from server.storage import Database
 

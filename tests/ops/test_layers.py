@@ -1,0 +1,97 @@
+"""Layers and one home per rule, checked on the source text (ast and grep, no running server).
+
+* Import layers: ``server/alarms`` never imports ``server.routes``; no module below the HTTP layer
+  (analysis, storage, services, alarms, the worker, MQTT, errors) imports FastAPI or Starlette.
+* One home per rule: each formula, table, precedence, bucketing and forecast below is written once; a
+  second copy anywhere in ``server/`` or ``analysis/`` fails the test with the file that holds it.
+"""
+
+from __future__ import annotations
+
+import ast
+import re
+from pathlib import Path
+
+import pytest
+
+ROOT = Path(__file__).resolve().parents[2]
+HTTP_FREE = ["analysis", "server/storage", "server/services", "server/alarms", "server/mqtt", "server/ops",
+             "server/audit", "server/worker.py", "server/errors.py", "server/settings.py"]
+
+
+def _py(*parts: str) -> list[Path]:
+    out = []
+    for part in parts:
+        p = ROOT / part
+        out += [p] if p.is_file() else sorted(p.rglob("*.py"))
+    return out
+
+
+def _imports(path: Path) -> set[str]:
+    names = set()
+    for node in ast.walk(ast.parse(path.read_text(), str(path))):
+        if isinstance(node, ast.Import):
+            names |= {a.name for a in node.names}
+        elif isinstance(node, ast.ImportFrom) and node.module and node.level == 0:
+            names.add(node.module)
+        elif isinstance(node, ast.ImportFrom) and node.level:  # relative: resolve against the package
+            pkg = ".".join(path.relative_to(ROOT).with_suffix("").parts[:-node.level])
+            names.add(f"{pkg}.{node.module}" if node.module else pkg)
+    return names
+
+
+def test_alarms_never_import_the_routes():
+    bad = {str(p.relative_to(ROOT)): sorted(n for n in _imports(p) if n.startswith("server.routes"))
+           for p in _py("server/alarms")}
+    assert not {k: v for k, v in bad.items() if v}
+
+
+@pytest.mark.parametrize("part", HTTP_FREE)
+def test_no_web_framework_below_the_http_layer(part):
+    bad = {}
+    for p in _py(part):
+        web = sorted(n for n in _imports(p) if n.split(".")[0] in ("fastapi", "starlette")
+                     or n.startswith("server.routes") or n in ("server.app", "server.http_errors"))
+        if web:
+            bad[str(p.relative_to(ROOT))] = web
+    assert not bad
+
+
+def test_the_layer_check_sees_a_violation():
+    """The checker itself can fail: the HTTP layer's own modules are seen importing FastAPI and routes."""
+    assert "fastapi" in _imports(ROOT / "server/http_errors.py")
+    assert any(n.startswith("server.routes") for n in _imports(ROOT / "server/app.py"))
+
+
+# rule -> (regular expression of its formula/table/call, the one file allowed to hold it)
+ONE_HOME = {
+    "instability threshold a_c(f) = 2 sqrt(((f - 2 f0)/f0)^2 + 4 zeta^2) / k":
+        (r"\*\*\s*2\s*\+\s*4(\.0)?\s*\*\s*zeta\s*\*\*\s*2", "analysis/window.py"),
+    "ISO 20816 zone table (group 2 rigid row)":
+        (r"\(\s*1\.4\s*,\s*2\.8\s*,\s*4\.5\s*\)", "analysis/severity.py"),
+    "rule precedence (edited point rule > asset rule > default point rule)":
+        (r"not\s+\w+\.is_default\s+or", "server/alarms/rules.py"),
+    "chart time buckets (width slightly above (b - a) / n)":
+        (r"1\s*\+\s*1e-9\)\s*/", "server/storage/queries.py"),
+    "trend forecast for charts and emails (a call of analysis.trend.fit_trend)":
+        (r"(?<!def )\bfit_trend\(", "server/alarms/checks.py"),
+    "dB per neper": (r"20(\.0)?\s*/\s*(math|np)\.log\(10", "analysis/trend.py"),
+}
+# the CLI runs each method on a user's own data; the numerics below are the method's definition
+ONE_HOME_SCOPE = ["server/alarms", "server/services", "server/routes", "server/storage", "server/worker.py",
+                  "analysis/window.py", "analysis/severity.py", "analysis/trend.py", "server/demo"]
+
+
+@pytest.mark.parametrize("rule", list(ONE_HOME))
+def test_each_rule_has_one_home(rule):
+    pattern, home = ONE_HOME[rule]
+    rx = re.compile(pattern)
+    holders = sorted({str(p.relative_to(ROOT)) for p in _py(*ONE_HOME_SCOPE)
+                      if "migrations" not in p.parts and rx.search(p.read_text())})
+    assert holders == [home], f"{rule}: defined in {holders}, should be only in {home}"
+
+
+def test_the_one_home_patterns_match_their_home():
+    """Each pattern still finds its own definition (a renamed formula would make the check vacuous)."""
+    for rule, (pattern, home) in ONE_HOME.items():
+        assert re.search(pattern, (ROOT / home).read_text()), rule
