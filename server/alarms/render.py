@@ -68,6 +68,8 @@ def forecast_text(metrics: dict, danger: float | None, detailed: dict | None = N
     d = detailed or {}
     if d.get("status") == "forecast" and d.get("days_to_limit") is not None:
         text = f"about {d['days_to_limit']:.0f} days to the danger level{limit}"
+        if d.get("limit_iso"):  # the date the machine page's chart shows for the same readings
+            text += f", around {d['limit_iso'][:16].replace('T', ' ')} UTC"
         lo, hi = d.get("days_to_limit_lo"), d.get("days_to_limit_hi")
         if lo is not None and hi is not None:
             text += f" (90 % interval {lo:.0f} to {hi:.0f} days)"
