@@ -114,6 +114,9 @@ def create_app(settings: Settings | None = None) -> FastAPI:
 
     app.state.login_throttle = LoginThrottle(settings.login_max_failures, settings.login_window_s)
     app.add_middleware(IngestAdmission, settings=settings, db=db)  # before the body is read: cheap refusal
+    from server.origin import OriginCheck
+
+    app.add_middleware(OriginCheck, settings=settings)  # cross-site cookie writes and logins: 403
     app.add_middleware(SecurityHeaders, settings=settings)
     from server.metrics import install_metrics
 

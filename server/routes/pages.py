@@ -8,8 +8,9 @@ scripts read the JSON API (``/api/v1/...`` and the helpers in :mod:`server.route
 from __future__ import annotations
 
 import mimetypes
+import unicodedata
 from pathlib import Path
-from urllib.parse import quote
+from urllib.parse import quote, urlsplit
 
 from fastapi import APIRouter, Depends, Request
 from fastapi.responses import FileResponse, HTMLResponse, RedirectResponse, Response
@@ -96,11 +97,28 @@ def _page(request: Request, principal: Principal | None, name: str, *, need: str
     return templates().TemplateResponse(request, f"{name}.html", ctx)
 
 
+def safe_next_path(value: str | None) -> str:
+    """Where the login page may send the browser afterwards: a path on this server, else ``/``.
+
+    Browsers read ``\\`` as ``/`` and drop tabs and line breaks inside a URL, so ``/\\evil.example``
+    and ``/<TAB>/evil.example`` mean ``//evil.example``, another host. A safe target starts with one
+    ``/`` followed by neither ``/`` nor ``\\``, holds no backslash, whitespace or control character,
+    and names no scheme or host. The login script (web/static/login.js) checks the same again."""
+    v = value or ""
+    if not v.startswith("/") or v[1:2] in ("/", "\\") or "\\" in v:
+        return "/"
+    if any(ch.isspace() or unicodedata.category(ch) in ("Cc", "Cf") for ch in v):
+        return "/"
+    parts = urlsplit(v)
+    if parts.scheme or parts.netloc:
+        return "/"
+    return v
+
+
 @router.get("/login", response_class=HTMLResponse)
 async def login_page(request: Request, next: str = "/"):
-    safe_next = next if next.startswith("/") and not next.startswith("//") else "/"
     return templates().TemplateResponse(request, "login.html", {
-        "principal": None, "next": safe_next, "page": "login",
+        "principal": None, "next": safe_next_path(next), "page": "login",
         "simulated": request.app.state.settings.simulated_data})
 
 
