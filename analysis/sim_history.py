@@ -3,7 +3,8 @@
 A variable-speed machine visited at irregular times: each record has a 1X frequency, a 1X amplitude that
 rises with speed squared (unbalance-like) and slowly with time (wear), and a half-order line that is present
 when the 1X amplitude exceeds the first-order tongue threshold a_c(f) = h_c(f) / k of the damped Mathieu
-model (Landau & Lifshitz sections 27 and 29), with a little label noise. Growing records carry the first-order
+model (Landau & Lifshitz, Mechanics §27, with friction), with a little label noise. Growing records carry the
+first-order
 growth rate plus noise. Invented data, never measurements.
 """
 

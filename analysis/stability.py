@@ -12,7 +12,7 @@ Two ways to get the growth rate (exponent of the amplitude envelope, 1/s):
 
 * Floquet: the monodromy matrix over one forcing period, integrated with DOP853 at tight tolerances
   (Floquet theory; Liouville's formula det M = exp(-2 zeta w0 T) is checked on every call).
-* First order (Landau & Lifshitz, *Mechanics*, section 27; damping section 29):
+* First order (Landau & Lifshitz, *Mechanics*, §27, damping included at the end of §27):
   lambda = -zeta w0 + 1/2 sqrt((h w0 / 2)^2 - eps^2), eps = W - 2 w0,
   threshold h_c = 2 sqrt((eps/w0)^2 + 4 zeta^2).
 
@@ -165,7 +165,7 @@ def floquet_growth(
 
 
 def growth_rate_first_order(f0_hz: float, zeta: float, forcing_hz: float, modulation):
-    """First-order growth rate near W = 2 w0 (Landau & Lifshitz section 27, damping section 29).
+    """First-order growth rate near W = 2 w0 (Landau & Lifshitz, Mechanics §27, with friction).
 
     lambda = -zeta w0 + 1/2 sqrt((h w0/2)^2 - eps^2) inside the undamped tongue, -zeta w0 outside.
     ``modulation`` may be an array; the result then has its shape.
@@ -231,7 +231,7 @@ def _onset_function(f0: float, z: float):
 def tongue_edges_first_order(f0_hz: float, zeta: float, modulation: float) -> tuple[float, float] | None:
     """Forcing frequencies (Hz) bounding the first-order damped tongue at depth h; None below 4 zeta.
 
-    |W - 2 w0| < w0 sqrt(h^2/4 - 4 zeta^2) (Landau & Lifshitz sections 27 and 29).
+    |W - 2 w0| < w0 sqrt(h^2/4 - 4 zeta^2) (Landau & Lifshitz, Mechanics §27, with friction).
     """
     f0 = _check("f0_hz", f0_hz)
     z = _check("zeta", zeta, low_ok=True, high=1.0)

@@ -76,7 +76,8 @@ def summary(d: dict) -> str:
         fam = [k for k, v in s["family"].items() if v is not None]
         lines.append(
             f"{name} at {s['frequency_hz']:.4g} Hz ({s['order']:.2f}X), "
-            f"{_fmt(s['velocity_rms_mm_s'], '.2g')} mm/s r.m.s. = {_fmt(s['velocity_peak_mm_s'], '.2g')} mm/s peak "
+            f"{_fmt(s['velocity_rms_mm_s'], '.2g')} mm/s r.m.s. "
+            f"= {_fmt(s['velocity_peak_mm_s'], '.2g')} mm/s peak "
             f"({_fmt(s['accel_peak'], '.3g')} {d['units']} peak) "
             f"averaged over the record, {s['snr_db']:.1f} dB over the floor "
             f"(threshold {s['threshold_db']:.1f} dB at Pfa {s['pfa']:g})"

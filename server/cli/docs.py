@@ -1,7 +1,8 @@
-"""``halfwatch config-table``: the README's configuration table, generated from the Settings class.
+"""``halfwatch config-table``: the configuration table of docs/configuration.md, from the Settings class.
 
-The README keeps the table between ``<!-- config-table:begin -->`` and ``<!-- config-table:end -->``;
-``halfwatch config-table --write README.md`` replaces it there, and a test fails when it is stale.
+The table sits between ``<!-- config-table:begin -->`` and ``<!-- config-table:end -->`` in
+docs/configuration.md;
+``halfwatch config-table --write docs/configuration.md`` replaces it there, and a test fails when it is stale.
 A field's ``description`` is its meaning; fields without one take the short text in ``MEANINGS``.
 """
 
@@ -104,5 +105,6 @@ def cmd_config_table(args) -> int:
 def register(sub: argparse._SubParsersAction) -> None:
     p = sub.add_parser("config-table", help="print the configuration table (Markdown) from the settings")
     p.add_argument("--write", metavar="FILE", default=None,
-                   help="replace the table between the config-table markers in FILE (e.g. README.md)")
+                   help="replace the table between the config-table markers in FILE "
+                        "(e.g. docs/configuration.md)")
     p.set_defaults(func=cmd_config_table)

@@ -71,7 +71,8 @@ def latest_dict(res: Result) -> dict:
             "subharmonic_detected": res.sub_detected, "subharmonic_class": res.sub_class,
             "subharmonic_frequency_hz": res.sub_frequency_hz, "subharmonic_accel_peak": res.sub_accel_peak,
             "subharmonic_velocity_peak_mm_s": res.sub_velocity_peak_mm_s,
-            "subharmonic_velocity_rms_mm_s": res.sub_velocity_rms_mm_s, "growth_rate_per_s": res.growth_rate_per_s,
+            "subharmonic_velocity_rms_mm_s": res.sub_velocity_rms_mm_s, "growth_rate_per_s":
+            res.growth_rate_per_s,
             "overall_velocity_rms_mm_s": res.overall_velocity_rms_mm_s, "zone": res.zone,
             "forcing_hz": res.forcing_hz, "quality_ok": res.quality_ok}
 

@@ -12,11 +12,11 @@ from server.alarms.tables import AlarmPointStatus, AlarmState
 
 def test_margin_at_exact_tuning_is_one_minus_a_over_4_zeta_over_k():
     # First-order damped Mathieu at exact tuning (forcing = 2 f0): h_c = 4 zeta (Landau & Lifshitz
-    # section 27/29, from memory; methods.md 6.3). With h = k a: a_c = 4 zeta / k = 0.4 here.
+    # §27, with friction). With h = k a: a_c = 4 zeta / k = 0.4 here.
     fit = {"f0_hz": 25.0, "zeta": 0.01, "k_per_unit": 0.1}
     assert margin_from_fit(fit, 50.0, 0.3) == pytest.approx(0.25)
     assert margin_from_fit(fit, 50.0, 0.4) == pytest.approx(0.0, abs=1e-12)
-    # Detuned by 2 %: h_c = 2 sqrt(0.02^2 + 4 zeta^2) = 0.056569 (same formula, T5 of methods.md).
+    # Detuned by 2 %: h_c = 2 sqrt(0.02^2 + 4 zeta^2) = 0.056569 (same formula).
     assert margin_from_fit(fit, 50.5, 0.3) == pytest.approx(1 - 0.3 / (2 * (0.02**2 + 4e-4) ** 0.5 / 0.1))
     assert margin_from_fit({"f0_hz": None}, 50.0, 0.3) is None
 

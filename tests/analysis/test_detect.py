@@ -28,7 +28,8 @@ def test_false_alarm_rate_on_pure_noise_matches_stated_pfa(n, pfa):
 
 
 def test_detects_half_order_with_family(make_record):
-    # parametric subharmonic with its half-order family 1.5X, 2.5X (odd multiples of Ω/2, methods note §1.1)
+    # parametric subharmonic with its half-order family 1.5X, 2.5X (odd multiples of Ω/2: Landau & Lifshitz,
+    # Mechanics §27)
     f1 = 29.5
     x = make_record(
         2560.0,
@@ -58,7 +59,8 @@ def test_whirl_at_045x_is_sub_synchronous(make_record):
 
 
 def test_whirl_at_047x_is_resolved_from_half_order(make_record):
-    # 0.47X and 0.50X both present: resolution f1x/200 separates them (methods note §7.5); the half-order
+    # 0.47X and 0.50X both present: resolution f1x/200 separates them (Rayleigh resolution 1/T, common
+    # practice); the half-order
     # line wins the class, the whirl line stays among the tones
     f1 = 50.0
     x = make_record(

@@ -18,7 +18,8 @@ def _growing(rng, lam, snr_db, fs=2048.0, f1=50.0, seconds=20.0):
 
 
 def test_growth_rate_within_3pct_and_ci_coverage_at_30db():
-    # truth: the rate λ used to synthesise A(t) ∝ e^{λt}; the estimator follows methods note §5.1
+    # truth: the rate λ used to synthesise A(t) ∝ e^{λt}; the estimator: band-pass, analytic signal (Marple
+    # 1999), log-linear fit
     # (Butterworth + sosfiltfilt, Hilbert envelope, OLS + t-distribution CI); 95 % CIs must cover the
     # truth in at least 90 % of seeded trials (issue 2 acceptance)
     rng = np.random.default_rng(2026)
@@ -65,7 +66,8 @@ def test_growth_interval_coverage_when_snr_rises_through_the_window():
 
 
 def test_saturating_growth_fits_the_exponential_stage_only(rng):
-    # A(t) = A0 e^{λt}/sqrt(1 + (A0 e^{λt}/A_sat)²): exponential, then a plateau (methods note §5.5 P7)
+    # A(t) = A0 e^{λt}/sqrt(1 + (A0 e^{λt}/A_sat)²): exponential, then a plateau (logistic-type saturation,
+    # common practice for a limit cycle)
     fs, f1, lam = 2048.0, 50.0, 0.5
     t = np.arange(int(fs * 40)) / fs
     a0, a_sat = 1e-6, 0.05
@@ -116,7 +118,8 @@ def test_interval_covers_a_line_growing_out_of_narrowband_noise():
     # a line e^{λt} at 0.5X plus a noise-excited mode at the same frequency (complex Ornstein-Uhlenbeck
     # amplitude, decay 0.25 1/s: coherence time 4 s, far longer than the 1.5/B envelope spacing); truth: the
     # λ used to synthesise the line. Residuals of the log-envelope are then correlated for seconds, so the
-    # interval needs the autocorrelation-aware (Newey & West 1987) error to cover the truth (methods §5.4)
+    # interval needs the autocorrelation-aware (Newey & West 1987, Econometrica 55(3)) error to cover the
+    # truth
     from scipy import signal
 
     fs, f1, lam, seconds = 1024.0, 25.0, 0.3, 24.0

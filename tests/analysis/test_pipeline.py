@@ -16,7 +16,8 @@ KEYS = {
     "subharmonic": {"detected", "class", "frequency_hz", "order", "accel_peak", "velocity_peak_mm_s",
                     "velocity_rms_mm_s", "snr_db", "threshold_db", "pfa", "family"},
     "growth": {"rate_per_s", "ci95_per_s", "onset_s", "state", "intercept", "fit_window_s"},
-    "overall": {"velocity_rms_mm_s", "zone", "band_hz", "machine_group", "foundation", "zone_limits_rms_mm_s"},
+    "overall": {"velocity_rms_mm_s", "zone", "band_hz", "machine_group", "foundation",
+                "zone_limits_rms_mm_s"},
     "waveform": {"accel_rms", "accel_peak", "crest_factor", "kurtosis"},
     "quality": {"ok", "flags"},
 }  # fmt: skip
@@ -47,7 +48,8 @@ def test_flat_record_is_flagged_and_json_safe():
 
 
 def test_short_record_is_flagged_or_rejected(make_record):
-    # 4 s at 30 Hz: 0.5X and 1X resolved, but not whirl at 0.48X from 0.5X (needs >= 250/f1x s, methods §7.5)
+    # 4 s at 30 Hz: 0.5X and 1X resolved, but not whirl at 0.48X from 0.5X (needs >= 250/f1x s: Rayleigh
+    # resolution 1/T, common practice)
     x = make_record(2560.0, 4.0, [(30.0, 0.4, 0)], noise=0.01)
     assert "too-short-for-resolution" in analyze_record(x, 2560.0, forcing_hz=30.0).quality.flags
     with pytest.raises(SignalError, match="too short for the requested resolution"):

@@ -3,7 +3,7 @@
 References: a complex Ornstein-Uhlenbeck process e^{-γt} shifted to f_c has the Lorentzian spectrum
 1/(γ² + (2πν)²), half-power full width γ/π (closed form; the half-power relation as in Ewins, *Modal
 Testing* (2000), from memory); below threshold the parametric mode is two Lorentzians on f_W/2 whose narrow
-decay rate is γ− = ζω0(1 − h/h_c) (noisy precursor, Wiesenfeld 1985, J. Stat. Phys.; methods note §6.2) —
+decay rate is γ− = ζω0(1 − h/h_c) (noisy precursor, Wiesenfeld 1985, J. Stat. Phys. 38, 1071-1097) —
 the simulator's truth carries it. Hann 3-dB width 1.44 bins: Harris (1978), Proc. IEEE 66(1).
 """
 

@@ -21,7 +21,8 @@ def test_standard_gravity_is_cgpm_value():
 
 
 def test_velocity_of_a_sine_is_a_over_2_pi_f():
-    # V = A/(2πf) (common practice); methods note §7.2: 1 g peak at 50 Hz -> 31.2155 mm/s peak
+    # V = A/(2πf) for a sine (common practice), g = 9.80665 m/s² (standard gravity, CGPM 1901):
+    # 1 g peak at 50 Hz -> 31.2155 mm/s peak
     assert velocity_mm_s(1.0, 50.0, "g") == pytest.approx(31.2155, rel=1e-5)
     assert velocity_mm_s(1000.0, 10.0, "mm/s2") == pytest.approx(1.0 / (2 * np.pi * 10) * 1e3, rel=1e-12)
 
@@ -36,7 +37,7 @@ def test_velocity_waveform_of_a_sine_within_1pct():
 
 
 def test_band_velocity_rms_of_1g_at_50hz():
-    # methods note §7.2 check value: 1 g peak at 50 Hz = 22.0727 mm/s RMS (V = A/(2πf)/√2)
+    # 1 g peak at 50 Hz = 22.0727 mm/s r.m.s. (V = A/(2πf)/√2 for a sine; g = 9.80665 m/s², CGPM 1901)
     fs = 2048.0
     t = np.arange(int(fs * 32)) / fs
     f, p, _, _ = welch_psd(np.sin(2 * np.pi * 50.0 * t), fs, 4096)
@@ -45,7 +46,7 @@ def test_band_velocity_rms_of_1g_at_50hz():
 
 @pytest.mark.parametrize(
     ("group", "support", "limits"),
-    [  # ISO 10816-3:2009 / ISO 20816-3:2022 Annex A, velocity RMS mm/s, from memory (methods note §7.1)
+    [  # ISO 10816-3:2009 / ISO 20816-3:2022 Annex A, velocity RMS mm/s, from memory
         (1, "rigid", (2.3, 4.5, 7.1)),
         (1, "flexible", (3.5, 7.1, 11.0)),
         (2, "rigid", (1.4, 2.8, 4.5)),

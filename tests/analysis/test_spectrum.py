@@ -27,7 +27,7 @@ def test_hann_matches_scipy_get_window():
 
 def test_hann_coherent_gain_and_enbw_match_harris_1978():
     # Harris (1978), Proc. IEEE 66(1), 51-83, window table: Hann coherent gain 0.50, ENBW 1.50 bins;
-    # rectangle 1.00 / 1.00 (values recalled in methods note §7.3, confirmed there with scipy)
+    # rectangle 1.00 / 1.00 (Harris 1978, Proc. IEEE 66(1), Table 1; confirmed with scipy.signal.get_window)
     cg, enbw = window_figures(hann(4096))
     assert cg == pytest.approx(0.5, abs=1e-4)
     assert enbw == pytest.approx(1.5, abs=1e-4)
@@ -36,7 +36,8 @@ def test_hann_coherent_gain_and_enbw_match_harris_1978():
 
 
 def test_hann_scallop_loss_matches_harris_1978():
-    # Harris (1978): Hann scalloping loss 1.42 dB at half-bin offset (methods note §7.3: 1.4236 dB)
+    # Harris (1978): Hann scalloping loss 1.42 dB at half-bin offset (scipy.signal.get_window computation:
+    # 1.4236 dB)
     n = 4096
     w = hann(n)
     k = np.arange(n)
@@ -83,7 +84,8 @@ def test_density_matches_scipy_welch_and_parseval(rng):
 
 def test_nu_eff_hann_50pct_matches_welch_1967():
     # Welch (1967), IEEE Trans. Audio Electroacoust. AU-15: ν = 2K/(1 + 2Σ(1-j/K)ρ²(j)), Hann 50 %:
-    # ρ(1) = 1/6, so 16 segments give 30.416 (methods note §8.4 worked example)
+    # ρ(1) = 1/6, so 16 segments give 30.416 (Welch 1967: variance of overlapped averages; ρ(1) for Hann at 50
+    # % overlap)
     assert welch_nu_eff(hann(1024), 512, 16) == pytest.approx(30.416, abs=1e-3)
     assert welch_nu_eff(hann(1024), 1024, 16) == pytest.approx(32.0)  # no overlap: 2K
 
@@ -116,10 +118,11 @@ def test_f_quantile_matches_scipy_stats(p, d1, d2):
 
 
 def test_cfar_threshold_matches_chi2_table():
-    # methods note §8.2 (scipy.stats.chi2): K = 16 independent averages, Pfa 1e-3 per bin -> τ = 1.953 over a
+    # scipy.stats.chi2 (the chi-square law of the averages): K = 16 independent averages, Pfa 1e-3 per bin ->
+    # τ = 1.953 over a
     # known floor; with a floor of ~infinite degrees of freedom the F threshold tends to it
     assert cfar_threshold(1e-3, 1, 32.0, 1e9) == pytest.approx(1.953, abs=1e-3)
     assert cfar_threshold(1e-3, 1, 32.0, 1e9) == pytest.approx(stats.chi2.isf(1e-3, 32) / 32, rel=1e-6)
-    # the family-wise correction: 21 bins at 1 % total -> 4.785e-4 per bin (methods note §8.4 worked example)
+    # the family-wise correction: 21 bins at 1 % total -> 4.785e-4 per bin (Šidák correction 1 - 0.99^(1/21))
     tau = cfar_threshold(0.01, 21, 30.416, 1e9)
     assert tau == pytest.approx(2.0683, abs=1e-3)

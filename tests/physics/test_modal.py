@@ -3,7 +3,8 @@
 References: the single-degree-of-freedom response to white force (a Lorentzian near resonance; half-power
 relation zeta = (f2 - f1) / (2 f_n), Ewins, *Modal Testing*, from memory), generated here with scipy's own
 state-space discretisation (scipy.signal.cont2discrete, reference library) independently of our simulator;
-the two-Lorentzian precursor below threshold (our methods note 6.2, check T17: h/h_c = 0.8 -> 0.78 +- 0.05,
+the two-Lorentzian precursor below threshold (Wiesenfeld 1985, J. Stat. Phys. 38; our simulation with scipy:
+h/h_c = 0.8 -> 0.78 +- 0.05,
 narrow rate within 5 %, checked numerically against scipy) after Wiesenfeld (1985, J. Stat. Phys.).
 """
 
@@ -39,10 +40,12 @@ def test_lorentzian_fit_recovers_sdof_frequency_and_damping(rng):
     fit = fit_mode(f, p, band_hz=(9.0, 16.0))
     assert fit.message == "ok"
     assert fit.f0_hz == pytest.approx(f_n, rel=2e-3)
-    # methods note 6.1 (checked numerically against scipy): Lorentzian fit ~ +2 % bias, 2 % sd at 8 bins/B_r
+    # checked numerically with scipy (simulated randomly excited mode): Lorentzian fit ~ +2 % bias, 2 % sd at
+    # 8 bins/B_r
     assert fit.zeta == pytest.approx(zeta, rel=0.08)
     assert abs(fit.zeta - zeta) < 5 * fit.zeta_se + 0.03 * zeta
-    # half-power start: textbook relation, within 20 % at this resolution (methods note 6.1: +0.9 %, sd 12 %)
+    # half-power start: textbook relation, within 20 % at this resolution (our scipy simulation: +0.9 %, sd 12
+    # %; half-power method, Ewins, Modal Testing, 2000)
     assert fit.half_power_zeta == pytest.approx(zeta, rel=0.2)
 
 

@@ -1,10 +1,10 @@
 """Simulator: growth and saturation of the invented records against outside references.
 
-References: Landau & Lifshitz, *Mechanics* sections 27/29 (first-order growth rate of the damped Mathieu
+References: Landau & Lifshitz, *Mechanics* §27, with friction (first-order growth rate of the damped Mathieu
 equation); Nayfeh & Mook, *Nonlinear Oscillations* 6.5 (2:1 autoparametric saturation: the forced mode stays
 at a2c, the excess goes into the subharmonic mode); scipy.signal (Butterworth, Hilbert, Welch) as the
 reference library for envelopes and spectra. Values "checked numerically against scipy" come from our
-methods note (its own DOP853 simulations) and are labelled so.
+own computations with scipy.integrate.solve_ivp (DOP853, rtol 1e-10) and are labelled so.
 """
 
 from __future__ import annotations
@@ -65,13 +65,14 @@ def test_parametric_envelope_grows_at_floquet_rate(ratio, detune):
     assert lam_fit == pytest.approx(
         lam_true, rel=0.01
     )  # issue 3: simulated envelope = Floquet rate within 1 %
-    # outside check: L&L section 29 first-order rate, within 1 % near tuning for h <= 0.1
+    # outside check: L&L Mechanics §27 (with friction) first-order rate, within 1 % near tuning for h <= 0.1
     assert lam_fit == pytest.approx(
         growth_rate_first_order(f0, 0.01, fw, truth["floquet"]["modulation"]), rel=0.015
     )
 
 
-# methods note 4.4 tuned case: 1X 50 Hz, quiet background so only the two modes show
+# tuned case of the 2:1 model (Nayfeh & Mook, Nonlinear Oscillations, §6.5): 1X 50 Hz, quiet background so
+# only the two modes show
 TUNED_PAIR = {
     "fs_hz": 1024.0,
     "duration_s": 30.0,
@@ -86,7 +87,7 @@ TUNED_PAIR = {
 
 
 def test_two_mode_exact_ode_growth_and_saturation():
-    # The tuned case of our methods note 4.4 (f1 = 25, f2 = 50 Hz, zeta1 0.01, zeta2 0.02, a2/a2c = 2):
+    # The tuned 2:1 case (Nayfeh & Mook §6.5 model; f1 = 25, f2 = 50 Hz, zeta1 0.01, zeta2 0.02, a2/a2c = 2):
     # checked numerically against scipy: fitted growth 1.57031 1/s vs first order 1.570796 (T8),
     # saturation 1X -> a2c (T9, within 1 %), 0.5X -> a1_ss = 0.16 model units (within 2 %).
     rec = simulate("two-mode", seed=1, method="ode", **TUNED_PAIR)
@@ -96,7 +97,8 @@ def test_two_mode_exact_ode_growth_and_saturation():
     t0 = sub["onset_s"]
     lam = _envelope_rate(rec.samples, rec.fs_hz, 25.0, t0 + 2.5, t0 + 5.0)
     assert lam == pytest.approx(1.570796, rel=0.01)
-    assert sub["growth_rate_per_s"] == pytest.approx(1.57032, rel=1e-4)  # Floquet value, methods note 4.4
+    # Floquet value computed with scipy solve_ivp DOP853
+    assert sub["growth_rate_per_s"] == pytest.approx(1.57032, rel=1e-4)
     # saturation over the last 8 s (bin-centred rectangular DFT: 1X and 0.5X fall on bins)
     n = int(8 * rec.fs_hz)
     spec = np.abs(np.fft.rfft(rec.samples[-n:])) * 2 / n
@@ -149,7 +151,7 @@ def test_below_threshold_parametric_has_no_line_and_negative_growth():
     rec = simulate("parametric", seed=4, ratio=0.7)
     sub = rec.truth["subharmonic"]
     assert not sub["present"] and sub["class"] == "none"
-    # L&L section 29 at tuning: lambda = zeta w0 (h/h_c - 1) = -0.3 zeta w0
+    # L&L Mechanics §27 (with friction) at tuning: lambda = zeta w0 (h/h_c - 1) = -0.3 zeta w0
     assert sub["growth_rate_per_s"] == pytest.approx(-0.3 * 0.01 * 2 * math.pi * 24.75 / 2, rel=2e-3)
 
 

@@ -2,13 +2,15 @@
 
 References used below:
 * Landau & Lifshitz, *Mechanics* (3rd ed.), section 27 (parametric resonance, small-h growth s = h w0 / 4 at
-  tuning, tongue |eps| < h w0 / 2) and section 29 (with friction: threshold h_c = 4 lambda / w0 = 4 zeta).
+  tuning, tongue |eps| < h w0 / 2) and the end of §27 (with friction: threshold h_c = 4 lambda / w0 = 4 zeta).
 * scipy.special.mathieu_a / mathieu_b (characteristic values; scipy is the general-purpose reference library).
-* Abramowitz & Stegun, Handbook of Mathematical Functions, Table 20.1 (values from memory, confirmed equal to
-  scipy to 8 decimals in our methods note).
+* Abramowitz & Stegun, Handbook of Mathematical Functions, Table 20.1 tabulates the same characteristic
+  values; the numbers in AS_TABLE below were taken from scipy.special.mathieu_a / mathieu_b (8 decimals),
+  not from the table.
 * Liouville/Abel formula det M = exp(integral of tr A) (Floquet theory, any ODE text).
-* Numbers marked "checked numerically against scipy" are our own earlier computations with scipy's DOP853
-  (methods note tables 1.2-1.3); the formula each one checks is named beside it.
+* Numbers marked "checked numerically against scipy" are our own earlier computations with
+  scipy.integrate.solve_ivp (DOP853, rtol 1e-10, monodromy matrix over one period); the formula each one
+  checks is named beside it.
 """
 
 from __future__ import annotations
@@ -28,7 +30,7 @@ W0 = 2 * math.pi * F0
 
 def test_undamped_growth_at_tuning_matches_reference_value_and_landau_lifshitz():
     res = st.floquet_growth(F0, 0.0, 2 * F0, 0.1)
-    # checked numerically against scipy (DOP853 monodromy, methods note T1): 3.925841 1/s
+    # checked numerically against scipy (scipy solve_ivp DOP853 monodromy): 3.925841 1/s
     assert res.growth_rate_per_s == pytest.approx(3.925841, rel=1e-5)
     # Landau & Lifshitz section 27: s = h w0 / 4 at exact tuning; first-order error ~0.03 % at h = 0.1
     assert res.growth_rate_per_s == pytest.approx(0.1 * W0 / 4, rel=1e-3)
@@ -39,7 +41,9 @@ def test_undamped_growth_at_tuning_matches_reference_value_and_landau_lifshitz()
 
 @pytest.mark.parametrize(
     ("zeta", "h", "detune", "expected"),
-    [  # checked numerically against scipy (methods note table 1.2); formula: L&L sections 27 and 29
+    # checked numerically against scipy (solve_ivp DOP853 monodromy); formula: L&L Mechanics §27 (with
+    # friction)
+    [
         (0.0, 0.01, 0.0, 0.392698),
         (0.0, 0.20, 0.0, 7.844804),
         (0.01, 0.03, 0.0, -0.392712),
@@ -55,8 +59,9 @@ def test_growth_table(zeta, h, detune, expected):
 
 @pytest.mark.parametrize("h", [0.01, 0.05, 0.1])
 def test_small_h_damped_growth_matches_landau_lifshitz_section_29(h):
-    # L&L section 29: lambda_net = -zeta w0 + 1/2 sqrt((h w0/2)^2 - eps^2); within 1 % for h <= 0.1
-    # and |eps| <= h w0 / 4 (tolerance as in our methods note, 1.2)
+    # L&L Mechanics §27 (with friction): lambda_net = -zeta w0 + 1/2 sqrt((h w0/2)^2 - eps^2); within 1 % for
+    # h <= 0.1
+    # and |eps| <= h w0 / 4 (our tolerance for the first-order formula)
     for eps in (0.0, 0.25 * h * W0):
         fw = (2 * W0 + eps) / (2 * math.pi)
         flo = st.floquet_growth(F0, 0.005, fw, h).growth_rate_per_s + 0.005 * W0
@@ -72,7 +77,8 @@ def test_liouville_determinant():
 
 
 def test_threshold_is_four_zeta_at_tuning():
-    # L&L section 29: h_c = 4 lambda / w0 = 4 zeta (first order); Floquet within 0.06 % for zeta <= 0.05
+    # L&L Mechanics §27 (with friction): h_c = 4 lambda / w0 = 4 zeta (first order); Floquet within 0.06 % for
+    # zeta <= 0.05
     for zeta in (0.005, 0.01, 0.02, 0.05):
         assert st.threshold_first_order(F0, zeta, 2 * F0) == pytest.approx(4 * zeta, rel=1e-12)
         assert st.threshold_floquet(F0, zeta, 2 * F0) == pytest.approx(4 * zeta, rel=6e-4)
@@ -80,7 +86,7 @@ def test_threshold_is_four_zeta_at_tuning():
 
 @pytest.mark.parametrize(
     ("zeta", "detune", "expected"),
-    [  # checked numerically against scipy (methods note table 1.3, T5); formula 2 sqrt((eps/w0)^2 + 4 zeta^2)
+    [  # checked numerically against scipy (solve_ivp DOP853 + brentq); formula 2 sqrt((eps/w0)^2 + 4 zeta^2)
         (0.005, 0.02, 0.044880),
         (0.01, 0.0, 0.040001),
         (0.01, 0.02, 0.056855),
@@ -113,7 +119,7 @@ def test_undamped_edges_match_scipy_mathieu_characteristic_values(q):
 
 
 def test_undamped_tongue_edges_from_mathieu_values():
-    # checked numerically against scipy (methods note 1.3): h = 0.1 -> 1.949698, 2.049679 (W / w0)
+    # checked numerically against scipy (solve_ivp DOP853 + brentq): h = 0.1 -> 1.949698, 2.049679 (W / w0)
     lo, hi = st.tongue_edges_undamped(0.1)
     assert (lo, hi) == pytest.approx((1.949698, 2.049679), abs=1e-6)
     # Floquet edges with zeta = 0 agree with the Mathieu characteristic values (scipy) to 1e-8
@@ -124,16 +130,18 @@ def test_undamped_tongue_edges_from_mathieu_values():
 
 
 def test_damped_tongue_edges():
-    # checked numerically against scipy (methods note 1.3): zeta = 0.01, h = 0.1 -> 1.953771, 2.045406
+    # checked numerically against scipy (solve_ivp DOP853 + brentq): zeta = 0.01, h = 0.1 -> 1.953771,
+    # 2.045406
     assert st.tongue_edges_floquet(1.0, 0.01, 0.1) == pytest.approx((1.953771, 2.045406), abs=2e-6)
-    # L&L section 29: |W - 2 w0| < w0 sqrt(h^2/4 - 4 zeta^2)
+    # L&L Mechanics §27 (with friction): |W - 2 w0| < w0 sqrt(h^2/4 - 4 zeta^2)
     lo, hi = st.tongue_edges_first_order(1.0, 0.01, 0.1)
     assert hi - 2.0 == pytest.approx(math.sqrt(0.0025 - 0.0004), rel=1e-12)
     assert st.tongue_edges_first_order(1.0, 0.01, 0.03) is None  # below 4 zeta
     assert st.tongue_edges_floquet(1.0, 0.01, 0.03) is None
 
 
-# Abramowitz & Stegun Table 20.1 (values from memory; equal to scipy to 8 decimals): (q, kind, order, value)
+# Values from scipy.special.mathieu_a / mathieu_b to 8 decimals (the functions Abramowitz & Stegun
+# Table 20.1 tabulates): (q, kind, order, value)
 AS_TABLE = [
     (5, "a", 0, -5.80004602),
     (5, "b", 1, -5.79008060),
@@ -199,7 +207,8 @@ def test_cli_stability_json_and_errors(capsys):
     args = ["stability", "--f0", "25", "--zeta", "0.01", "--forcing-hz", "50", "--modulation", "0.1"]
     assert cli_main([*args, "--json"]) == 0
     d = json.loads(capsys.readouterr().out)
-    # methods note T3 (checked numerically against scipy): 2.355184 1/s; L&L: h_c = 4 zeta at tuning
+    # checked numerically against scipy (solve_ivp DOP853 monodromy): 2.355184 1/s; L&L: h_c = 4 zeta at
+    # tuning
     assert d["growth_rate_per_s"] == pytest.approx(2.355184, rel=1e-5)
     assert d["threshold_modulation"] == pytest.approx(0.04, rel=1e-4)
     assert d["margin_pct"] == pytest.approx(100 * (1 - 0.1 / d["threshold_modulation"]), rel=1e-12)
@@ -214,9 +223,10 @@ def test_vectorised_threshold_curve_matches_brentq_floquet():
     ratios = np.array([1.8, 1.96, 2.0, 2.02, 2.1, 2.2])
     curve = st.threshold_curve(F0, 0.01, ratios)
     for r, hc in zip(ratios, curve, strict=True):
-        # DOP853 + brentq threshold (checked against the methods-note table 1.3 above)
+        # DOP853 + brentq threshold (checked against the scipy values of test_threshold_* above)
         assert hc == pytest.approx(st.threshold_floquet(F0, 0.01, r * F0), rel=1e-5)
-    # L&L section 29 at tuning: 4 zeta; checked numerically against scipy: 0.056855 at eps = 0.02 w0
+    # L&L Mechanics §27 (with friction) at tuning: 4 zeta; checked numerically against scipy: 0.056855 at eps
+    # = 0.02 w0
     assert curve[2] == pytest.approx(0.04, rel=1e-3)
     assert curve[3] == pytest.approx(0.056855, abs=1e-5)
     assert np.isinf(st.threshold_curve(1.0, 0.05, [1.2], h_max=0.5)[0])

@@ -3,7 +3,7 @@
 The seeded ID fan point has three below-threshold readings from the parametric simulator at h/h_c 0.4, 0.6
 and 0.8 (tests/web/conftest.py). Outside reference for what the pages must show: below threshold the damped
 Mathieu mode near f_W/2 is a Lorentzian bump whose narrow decay rate is γ− = ζω0(1 − h/h_c), falling to 0 at
-onset (noisy precursor of period doubling, Wiesenfeld 1985, J. Stat. Phys.; our methods note §6.2), and a
+onset (noisy precursor of period doubling, Wiesenfeld 1985, J. Stat. Phys. 38, 1071-1097), and a
 Lorentzian's half-power full width is γ/π (closed form), so γ− = π × width.
 """
 
@@ -42,7 +42,8 @@ def test_seeded_readings_carry_a_precursor_that_narrows_towards_threshold(site):
     assert all(not r["subharmonic"]["detected"] for r in results)  # below threshold: no half-order line
     assert all(p is not None and p["narrow_rate_per_s"] is not None for p in pre)
     for p in pre:
-        # the bump sits on f_W/2 (Mathieu tongue centre; methods note §6.2), f_W = 16.5 Hz here
+        # the bump sits on f_W/2 (centre of the first Mathieu tongue, Landau & Lifshitz, Mechanics §27), f_W =
+        # 16.5 Hz here
         assert p["frequency_hz"] == pytest.approx(16.5 / 2, abs=0.1)
         assert p["narrow_rate_per_s"] == pytest.approx(math.pi * p["width_hz"], rel=1e-6)  # γ = π·width
     rates = [p["narrow_rate_per_s"] for p in pre]

@@ -51,7 +51,8 @@ def _insert_results(db, point_id: int, n: int, t0: dt.datetime) -> tuple[np.ndar
                          sub_accel_peak=float(amp[i]), sub_velocity_rms_mm_s=float(amp[i]) * 2,
                          one_x_accel_peak=float(one_x[i]), one_x_velocity_rms_mm_s=float(one_x[i]) * 3,
                          precursor_rate_per_s=None if np.isnan(gamma[i]) else float(gamma[i]),
-                         data=json.dumps({"version": "2.0", "orders": {"1X": {"accel_peak": float(one_x[i])}}})))
+                         data=json.dumps({"version": "2.0", "orders": {"1X": {"accel_peak":
+                         float(one_x[i])}}})))
     return ts, amp, one_x
 
 
