@@ -23,9 +23,8 @@ from types import SimpleNamespace
 
 from sqlalchemy import and_, bindparam, insert, or_, select, update
 
-from analysis.results import max_hold
 from server.storage import blobs
-from server.storage.packing import pack_arrays
+from server.storage.packing import pack_chart
 from server.storage.result_columns import result_columns
 from server.storage.tables import Asset, Job, Point, Record, Result, Waveform, utcnow
 
@@ -189,17 +188,22 @@ def analyse(record: Record, asset: Asset, samples):
 def result_values(record, analysis) -> tuple[dict, dict]:
     """(column values of the ``results`` row, the analysis as a dict); the JSON is encoded here, once."""
     data = analysis.to_dict()
-    f, a = max_hold(analysis.spectrum.freqs_hz, analysis.spectrum.amplitude, SPECTRUM_POINTS)
-    et, ev = max_hold(analysis.envelope_t_s, analysis.envelope, ENVELOPE_POINTS)
     values = dict(
         record_id=record.id, point_id=record.point_id, measured_ts=record.measured_at.timestamp(),
         analysis_version=str(data.get("version", "")), current=True, created_at=utcnow(),
         data=json.dumps(data, separators=(",", ":"), check_circular=False),
-        spectrum=pack_arrays({"units": record.units, "amplitude": "peak"}, freqs_hz=f, amplitude=a,
-                             envelope_t_s=et, envelope=ev),
+        spectrum=chart_blob(record.units, analysis),
         **result_columns(analysis),
     )
     return values, data
+
+
+def chart_blob(units: str, analysis) -> bytes:
+    """The compact chart arrays of a result (server/storage/packing.py): the spectrum and the 0.5X envelope,
+    max-hold decimated to SPECTRUM_POINTS / ENVELOPE_POINTS, log-quantised, compressed."""
+    return pack_chart({"units": units, "amplitude": "peak"}, {
+        ("freqs_hz", "amplitude"): (analysis.spectrum.freqs_hz, analysis.spectrum.amplitude, SPECTRUM_POINTS),
+        ("envelope_t_s", "envelope"): (analysis.envelope_t_s, analysis.envelope, ENVELOPE_POINTS)})
 
 
 def result_row(record, analysis) -> SimpleNamespace:
