@@ -98,6 +98,8 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         summary="Condition monitoring for subharmonic (0.5X) onset. Not a protection or trip system.",
         lifespan=lifespan,
         responses=ERROR_RESPONSES,
+        docs_url=None,  # /docs is served offline by server/routes/api_docs.py (no CDN, CSP-compatible)
+        redoc_url=None,
     )
     app.state.settings = settings
     app.state.db = db

@@ -26,8 +26,7 @@ POLICY = {
     ("GET", "/metrics"): "public",  # scraped by the plant's monitoring; carries no plant data (see README)
     ("GET", "/openapi.json"): "public",
     ("GET", "/docs"): "public",
-    ("GET", "/docs/oauth2-redirect"): "public",
-    ("GET", "/redoc"): "public",
+    ("GET", "/docs/assets/{name}"): "public",  # Swagger UI served from the installed package
     ("GET", "/login"): "public",
     ("GET", "/static/plotly.min.js"): "public",
     ("GET", "/static/{name:path}"): "public",

@@ -27,7 +27,6 @@ down_revision = "0004"
 branch_labels = None
 depends_on = None
 
-_RENAMED_COLUMNS = (("sub_amplitude", "sub_accel_peak"), ("sub_velocity_mm_s", "sub_velocity_peak_mm_s"))
 _NEW_COLUMNS = ("sub_velocity_rms_mm_s", "one_x_accel_peak", "one_x_velocity_rms_mm_s",
                 "precursor_rate_per_s")
 _SECTION_KEYS = (
@@ -121,8 +120,9 @@ def _rewrite(bind, fn, with_columns: bool) -> None:
 
 
 def upgrade() -> None:
-    for old, new in _RENAMED_COLUMNS:
-        op.execute(f"ALTER TABLE results RENAME COLUMN {old} TO {new}")
+    # RENAME COLUMN works in place on SQLite (3.25+) and PostgreSQL (fixed statements, no values)
+    op.execute("ALTER TABLE results RENAME COLUMN sub_amplitude TO sub_accel_peak")
+    op.execute("ALTER TABLE results RENAME COLUMN sub_velocity_mm_s TO sub_velocity_peak_mm_s")
     for name in _NEW_COLUMNS:
         op.add_column("results", sa.Column(name, sa.Float(), nullable=True))
     op.execute("UPDATE results SET sub_velocity_rms_mm_s = sub_velocity_peak_mm_s / sqrt(2.0)"
@@ -136,5 +136,5 @@ def downgrade() -> None:
     with op.batch_alter_table("results") as batch:
         for name in reversed(_NEW_COLUMNS):
             batch.drop_column(name)
-    for old, new in _RENAMED_COLUMNS:
-        op.execute(f"ALTER TABLE results RENAME COLUMN {new} TO {old}")
+    op.execute("ALTER TABLE results RENAME COLUMN sub_accel_peak TO sub_amplitude")
+    op.execute("ALTER TABLE results RENAME COLUMN sub_velocity_peak_mm_s TO sub_velocity_mm_s")
