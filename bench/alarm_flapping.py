@@ -15,7 +15,6 @@ from __future__ import annotations
 import argparse
 import datetime as dt
 import json
-import math
 import sqlite3
 import sys
 import tempfile
@@ -125,13 +124,13 @@ def demo_points(path: str) -> dict[str, tuple[list[tuple[float, float]], float]]
                                   "JOIN assets a ON a.id = p.asset_id"))
         limits = dict(conn.execute("SELECT point_id, danger_level FROM alarm_rules "
                                    "WHERE metric = 'half_order_velocity' AND point_id IS NOT NULL"))
-        rows = conn.execute("SELECT point_id, measured_ts, sub_detected, sub_velocity_mm_s FROM results "
+        rows = conn.execute("SELECT point_id, measured_ts, sub_detected, sub_velocity_rms_mm_s FROM results "
                             "WHERE current AND quality_ok ORDER BY point_id, measured_ts").fetchall()
     finally:
         conn.close()
     out: dict = {}
-    for pid, ts, detected, peak in rows:
-        v = (peak or 0.0) / math.sqrt(2.0) if detected else 0.0  # peak -> r.m.s., as result_metrics
+    for pid, ts, detected, rms in rows:
+        v = (rms or 0.0) if detected else 0.0  # the r.m.s. column, as result_metrics compares
         out.setdefault(names.get(pid, str(pid)), ([], limits.get(pid) or 2.8))[0].append((ts, v))
     return out
 

@@ -3,7 +3,7 @@ navigation-to-charts-drawn time of the machine page in headless Chromium.
 
 Result rows are inserted directly in bulk (no analysis), 365 days x 24 readings x 20 points. Then, in one
 run and interleaved: the existing trend endpoint (``/api/v1/points/{id}/trend``, one metric, bucketed to
-1000 points), the dashboard's series endpoint (seven metrics incl. three read from the result JSON,
+1000 points), the dashboard's series endpoint (seven metrics, all typed columns of results,
 among them the 0.5X precursor's decay rate, bucketed to 600, plus the trend fit), and the bare SQL query
 that fetches the same point-year rows of that one metric. Prints a table of medians and ratios.
 Usage: ``.venv/bin/python bench/dashboard.py [--runs 25]``.
@@ -65,13 +65,17 @@ def build(tmp: Path):
             # the first 60 % of the year below threshold: a 0.5X precursor whose decay rate falls
             pre = ({"narrow_rate_per_s": 1.5 * (1 - i / (0.62 * n)), "width_hz": 0.5 * (1 - i / (0.62 * n))}
                    if i < 0.6 * n else None)
-            data = {"orders": {"1X": {"amplitude": 1.0, "velocity_mm_s": 4.5}},
-                    "subharmonic": {"amplitude": float(amps[i]), "precursor": pre}}
+            data = {"version": "2.0", "orders": {"1X": {"accel_peak": 1.0, "velocity_peak_mm_s": 4.5,
+                                                         "velocity_rms_mm_s": 4.5 / 2 ** 0.5}},
+                    "subharmonic": {"accel_peak": float(amps[i]), "precursor": pre}}
             res.append({"record_id": rec_id, "point_id": pid, "measured_ts": t.timestamp(),
                         "analysis_version": "bench", "current": True, "data": json.dumps(data),
                         "spectrum": blob,
                         "forcing_hz": 24.75, "sub_detected": True, "sub_class": "half-order",
-                        "sub_amplitude": float(amps[i]), "sub_velocity_mm_s": float(amps[i]) * 6.4,
+                        "sub_accel_peak": float(amps[i]), "sub_velocity_peak_mm_s": float(amps[i]) * 6.4,
+                        "sub_velocity_rms_mm_s": float(amps[i]) * 6.4 / 2 ** 0.5,
+                        "one_x_accel_peak": 1.0, "one_x_velocity_rms_mm_s": 4.5 / 2 ** 0.5,
+                        "precursor_rate_per_s": None if pre is None else pre["narrow_rate_per_s"],
                         "overall_velocity_rms_mm_s": 3.0 + float(amps[i]), "growth_rate_per_s": 0.0,
                         "zone": "B", "quality_ok": True, "created_at": t})
         with db.unit_of_work() as s:
@@ -88,8 +92,8 @@ def bare_sql(db, pid, t0, t1):
     path = db.url.split("///", 1)[1]
     con = sqlite3.connect(path)
     try:
-        return con.execute("SELECT measured_ts, sub_amplitude FROM results WHERE point_id=? AND current=1 "
-                           "AND measured_ts BETWEEN ? AND ? ORDER BY measured_ts",
+        return con.execute("SELECT measured_ts, sub_velocity_rms_mm_s FROM results WHERE point_id=? "
+                           "AND current=1 AND measured_ts BETWEEN ? AND ? ORDER BY measured_ts",
                            (pid, t0.timestamp(), t1.timestamp())).fetchall()
     finally:
         con.close()
@@ -102,9 +106,9 @@ def bare_buckets(db, pid, t0, t1, buckets=1000):
     a, b = t0.timestamp(), t1.timestamp()
     con = sqlite3.connect(db.url.split("///", 1)[1])
     try:
-        return con.execute("SELECT CAST((measured_ts - ?) / ? AS INTEGER) AS k, min(sub_amplitude), "
-                           "max(sub_amplitude), avg(sub_amplitude), count(*), min(measured_ts), "
-                           "max(measured_ts) "
+        return con.execute("SELECT CAST((measured_ts - ?) / ? AS INTEGER) AS k, min(sub_velocity_rms_mm_s), "
+                           "max(sub_velocity_rms_mm_s), avg(sub_velocity_rms_mm_s), count(*), "
+                           "min(measured_ts), max(measured_ts) "
                            "FROM results WHERE point_id=? AND current=1 AND measured_ts BETWEEN ? AND ? "
                            "GROUP BY k ORDER BY k", (a, (b - a) * (1 + 1e-9) / buckets, pid, a, b)).fetchall()
     finally:
@@ -187,13 +191,13 @@ def main(argv=None) -> int:
                     lambda: c.get("/api/v1/me").raise_for_status(), 1)
                 rows["trend endpoint (1 metric, 1000 buckets)"] += timed(
                     lambda pid=pid: c.get(f"/api/v1/points/{pid}/trend",
-                                          params={**q, "metric": "subharmonic.amplitude",
+                                          params={**q, "metric": "subharmonic.velocity_rms_mm_s",
                                                   "max_points": 1000}).raise_for_status(), 1)
                 rows["series endpoint (7 metrics + fit, 600)"] += timed(
                     lambda pid=pid: c.get(f"/api/v1/dashboard/points/{pid}/series",
                                           params={**q, "max_points": 600, "limit": 20}).raise_for_status(), 1)
             n_rows = len(bare_sql(db, pids[0], t0, t1))
-            answer = c.get(f"/api/v1/points/{pids[0]}/trend", params={**q, "metric": "subharmonic.amplitude"})
+            answer = c.get(f"/api/v1/points/{pids[0]}/trend", params={**q, "metric": "subharmonic.velocity_rms_mm_s"})
             n_out = len(answer.json()["t"])
             floor = statistics.median(rows["bare SQL fetch of the same rows"])
             print(f"\none point-year: {n_rows} rows -> {n_out} buckets; medians of {args.runs} "

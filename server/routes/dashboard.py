@@ -12,6 +12,7 @@ from fastapi.responses import JSONResponse
 from pydantic import AwareDatetime
 from sqlalchemy import select
 
+from server.answers import SeriesAnswer, WindowAnswer
 from server.security import Principal, require_role
 from server.services import dashboard as dashboard_service
 from server.services import series
@@ -90,7 +91,8 @@ def asset_detail(request: Request, asset_id: int, principal: Principal = Depends
     return dashboard_service.asset_view(request.app.state.db, request.app.state.settings, principal, asset_id)
 
 
-@router.get("/points/{point_id}/series", summary="Chart series of a point, bucketed to <= max_points")
+@router.get("/points/{point_id}/series", summary="Chart series of a point, bucketed to <= max_points",
+            response_model=SeriesAnswer)
 def point_series(request: Request, point_id: int,
                  start: AwareDatetime | None = Query(None, description="default: 30 days before end"),
                  end: AwareDatetime | None = Query(None, description="default: now"),
@@ -111,7 +113,8 @@ def record_bundle(request: Request, record_id: int, principal: Principal = Depen
 
 
 @router.get("/points/{point_id}/window",
-            summary="Readings in (forcing frequency, 1X acceleration peak) and the fit")
+            summary="Readings in (forcing frequency, 1X acceleration peak) and the fit",
+            response_model=WindowAnswer)
 def operating_window(request: Request, point_id: int,
                      start: AwareDatetime | None = Query(None, description="default: 365 days before end"),
                      end: AwareDatetime | None = Query(None),
