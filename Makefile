@@ -23,6 +23,7 @@ demo: $(STAMP)
 
 lint: $(STAMP)
 	$(VENV)/bin/ruff check analysis server tests bench
+	$(VENV)/bin/mypy  # analysis/ and server/services ([tool.mypy] in pyproject.toml)
 
 bench: $(STAMP)
 	for b in bench/*.py; do $(PY) $$b || exit 1; done

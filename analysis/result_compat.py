@@ -46,7 +46,7 @@ def _rms(peak):
     return None if not isinstance(peak, int | float) or not math.isfinite(peak) else peak / SQRT2
 
 
-def _rename(section: dict, old: str, new: str) -> None:
+def _rename(section: object, old: str, new: str) -> None:
     if isinstance(section, dict) and old in section and new not in section:
         section[new] = section.pop(old)
 

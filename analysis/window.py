@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import asdict, dataclass
+from typing import Any
 
 import numpy as np
 from scipy import optimize
@@ -193,7 +194,7 @@ def fit_operating_window(
     ok = np.isfinite(f) & (f > 0) & np.isfinite(a) & (a > 0) & np.isfinite(y)
     f, a, y, g_all = f[ok], a[ok], (y[ok] > 0.5).astype(float), g_all[ok]
     n, npres = int(f.size), int(y.sum())
-    base = {
+    base: dict[str, Any] = {
         "n_records": n,
         "n_present": npres,
         "today_speed_hz": today_speed_hz,

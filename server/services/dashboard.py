@@ -97,7 +97,7 @@ def asset_view(db, settings, principal, asset_id: int) -> dict:
 def alarm_summary(alarms: list[dict]) -> dict:
     from server.alarms.rules import LEVEL_RANK
 
-    worst = max((a["level"] for a in alarms), key=LEVEL_RANK.get, default="normal")
+    worst = max((a["level"] for a in alarms), key=lambda level: LEVEL_RANK.get(level, 0), default="normal")
     return {"level": worst,
             "active": sum(1 for a in alarms if not a["acknowledged"] and not a["shelved"]),
             "acknowledged": sum(1 for a in alarms if a["acknowledged"] and not a["shelved"]),

@@ -62,8 +62,8 @@ def readings(rows) -> list[dict]:
 
 def region(fit: dict, speeds: list[float], *, points: int = 121) -> dict | None:
     """The fitted tongue boundary: the 1X acceleration-peak threshold a_c(f) over a speed grid."""
-    f0, zeta, k = fit.get("f0_hz"), fit.get("zeta"), fit.get("k_per_unit")
-    if not all(isinstance(v, int | float) and math.isfinite(v) and v > 0 for v in (f0, zeta, k)):
+    f0, zeta, k = _f(fit.get("f0_hz")), _f(fit.get("zeta")), _f(fit.get("k_per_unit"))
+    if f0 is None or zeta is None or k is None or not (f0 > 0 and zeta > 0 and k > 0):
         return None
     lo = min([*speeds, 2 * f0 * 0.85])
     hi = max([*speeds, 2 * f0 * 1.15])
