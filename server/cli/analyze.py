@@ -13,7 +13,8 @@ def register(subparsers) -> None:
         "analyze",
         help="analyse one accelerometer record (WAV, CSV or UFF-58) for subharmonic onset",
         description="Analyse one accelerometer record: 1X, half-order / sub-synchronous detection with a "
-        "stated false-alarm probability, growth rate with a 95%% interval, overall velocity, ISO 20816 zone.",
+        "stated false-alarm probability, growth rate with a 95 % interval, overall velocity r.m.s., "
+        "ISO 20816 zone.",
     )
     p.add_argument(
         "file", metavar="FILE", help="record: .wav, .csv (time,accel or accel) or .uff (dataset 58)"

@@ -53,14 +53,25 @@ def test_weak_fit_leaves_the_rule_inactive_with_its_reason(feeder, plant, migrat
 
 
 def test_refresh_stores_a_fit_after_enough_records(feeder, plant, migrated_db):
+    from analysis.window import fit_operating_window
+
     # Invented history: speeds 24.0-25.5 Hz, 1X amplitudes, half-order present above a tongue edge.
     speeds = [24.0, 24.3, 24.6, 24.75, 24.9, 25.2, 25.5, 24.5, 24.75, 25.0, 24.2, 24.8]
     amps = [2.0, 3.0, 4.0, 4.5, 4.0, 3.0, 2.0, 5.0, 1.0, 4.8, 4.9, 2.5]
-    for f, a in zip(speeds, amps, strict=True):
-        present = a >= 3.5 and abs(f - 24.75) < 0.35
-        feeder.feed(plant.point_id, make_result(half_v=1.0 if present else 0.0, f1x=f, one_x_v=a))
+    present = [a >= 3.5 and abs(f - 24.75) < 0.35 for f, a in zip(speeds, amps, strict=True)]
+    for f, a, p in zip(speeds, amps, present, strict=True):
+        feeder.feed(plant.point_id, make_result(half_v=1.0 if p else 0.0, f1x=f, one_x_v=a))
     assert refresh_window_fits(migrated_db) == 1
     with migrated_db.read() as s:
         fit = s.get(AlarmPointStatus, plant.point_id).window_fit
-    assert fit["n_results"] == 12 and fit["status"]
+    # the stored fit is the fit of exactly these readings (1X acceleration peak = 0.1 x velocity here,
+    # alarms.helpers), read back from the typed columns in time order
+    ref = fit_operating_window(speeds, [0.1 * a for a in amps], [1.0 if p else 0.0 for p in present],
+                               growth_rate_per_s=[float("nan")] * len(speeds),
+                               today_speed_hz=speeds[-1], today_amp_1x=0.1 * amps[-1]).to_dict()
+    assert fit["n_results"] == 12 and fit["status"] == ref["status"]
+    for key in ("f0_hz", "zeta", "k_per_unit", "margin_pct"):
+        assert fit[key] == pytest.approx(ref[key], rel=1e-9, abs=1e-12), key
+    if fit["status"] == "fit":  # the tongue is centred where the invented line appeared: 2 f0 near 24.75 Hz
+        assert 2 * fit["f0_hz"] == pytest.approx(24.75, abs=0.5)
     assert refresh_window_fits(migrated_db) == 0  # nothing new: no refit

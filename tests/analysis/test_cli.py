@@ -39,7 +39,15 @@ def test_json_reports_growing_half_order(growing_wav):
     assert d["growth"]["state"] == "growing"
     lo, hi = d["growth"]["ci95_per_s"]
     assert lo <= 0.25 <= hi and d["growth"]["rate_per_s"] == pytest.approx(0.25, rel=0.05)
-    assert d["overall"]["zone"] in "ABCD" and d["sample_rate_hz"] == 2560.0 and d["version"]
+    assert d["sample_rate_hz"] == 2560.0 and d["version"] == "2.0"
+    # overall velocity r.m.s. at least that of the steady 1X and 2X tones: V_rms = A g / (2 pi f) / sqrt 2
+    # for a sine (g = 9.80665 m/s2; the WAV is in g), and the zone is the one of ISO 20816-3 group 2,
+    # rigid (A/B 1.4, B/C 2.8, C/D 4.5 mm/s r.m.s., from memory)
+    steady = [0.4 * 9.80665e3 / (2 * np.pi * 29.6) / np.sqrt(2), 0.08 * 9.80665e3 / (2 * np.pi * 59.2) /
+    np.sqrt(2)]
+    v = d["overall"]["velocity_rms_mm_s"]
+    assert v >= 0.95 * float(np.hypot(*steady))
+    assert d["overall"]["zone"] == ("A" if v < 1.4 else "B" if v < 2.8 else "C" if v < 4.5 else "D")
 
 
 def test_summary_speaks_the_trade(growing_wav):
@@ -70,3 +78,10 @@ def test_missing_file_and_csv_without_rate_exit_2(tmp_path, capsys):
     assert "--sample-rate" in err and len(err.strip().splitlines()) == 1
     assert main(["analyze", str(one), "--forcing-hz", "30", "--sample-rate", "2560", "--json"]) == 0
     assert json.loads(capsys.readouterr().out)["sample_rate_hz"] == 2560.0
+
+
+def test_help_text_reads_as_written():
+    out = subprocess.run([str(SCRIPT), "analyze", "--help"], capture_output=True, text=True, timeout=60)
+    assert out.returncode == 0
+    text = " ".join(out.stdout.split())
+    assert "growth rate with a 95 % interval" in text and "%%" not in text

@@ -152,11 +152,20 @@ def test_csv_reader_on_mutated_and_generated_text(seeds, data):
 def test_read_any_dispatch(raw, name, units):
     from analysis.io import read_any
 
+    ext = name.rsplit(".", 1)[-1].lower() if "." in name else ""
     with time_limit():
         try:
-            read_any(raw, name, units=units)
-        except SignalError:
-            pass
+            rec = read_any(raw, name, units=units)
+        except SignalError as exc:
+            assert str(exc)
+            if ext not in ("wav", "csv", "uff", "unv") and units in ("g", "m/s2"):  # unknown type: the file
+                assert exc.field == "file" and "unknown file type" in str(exc)
+            return
+    # read: only a known type, with finite samples, a positive finite rate and a normalised unit
+    assert ext in ("wav", "csv", "uff", "unv")
+    assert rec.samples.ndim == 1 and rec.samples.size > 0 and np.all(np.isfinite(rec.samples))
+    assert np.isfinite(rec.fs_hz) and rec.fs_hz > 0
+    assert rec.units in ("g", "m/s2", "mm/s2")
 
 
 JSON_VALUE = st.recursive(
