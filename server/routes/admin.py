@@ -1,4 +1,9 @@
-"""Users and API keys (admin)."""
+"""Users and API keys (admin).
+
+Users are not limited to a site, so a key limited to one site cannot list or manage them; such a key
+lists, creates and revokes only keys limited to its own site (never an unlimited key: that would
+widen its own reach).
+"""
 
 from __future__ import annotations
 
@@ -8,12 +13,21 @@ from fastapi import APIRouter, Depends, Request
 from fastapi.responses import JSONResponse
 from pydantic import BaseModel, ConfigDict
 
+from server.errors import Forbidden
 from server.schemas import ApiKeyIn, UserIn
 from server.security import Principal, require_role
-from server.services import users
+from server.services import access, users
 
 router = APIRouter(prefix="/api/v1", tags=["admin"])
 admin = require_role("admin")
+
+
+def user_admin(principal: Principal = Depends(admin)) -> Principal:
+    """Managing users needs an admin who is not limited to one site (users see every site)."""
+    if principal.site_id is not None:
+        raise Forbidden("users can see every site; a key limited to one site cannot list or manage them "
+                        "(use an admin login or an unlimited admin key)", field="site_id")
+    return principal
 
 
 class UserPatch(BaseModel):
@@ -23,12 +37,12 @@ class UserPatch(BaseModel):
 
 
 @router.get("/users", summary="List users (admin)")
-def list_users(request: Request, principal: Principal = Depends(admin)):
+def list_users(request: Request, principal: Principal = Depends(user_admin)):
     return {"ok": True, "users": users.list_users(request.app.state.db)}
 
 
 @router.post("/users", status_code=201, summary="Add a user (admin)")
-def add_user(request: Request, body: UserIn, principal: Principal = Depends(admin)):
+def add_user(request: Request, body: UserIn, principal: Principal = Depends(user_admin)):
     app = request.app
     user = users.add_user(app.state.db, app.state.settings, username=body.username, password=body.password,
                           role=body.role, email=body.email, hashing=app.state.passwords,
@@ -37,7 +51,7 @@ def add_user(request: Request, body: UserIn, principal: Principal = Depends(admi
 
 
 @router.patch("/users/{user_id}", summary="Change a user's role or deactivate them (admin)")
-def patch_user(request: Request, user_id: int, body: UserPatch, principal: Principal = Depends(admin)):
+def patch_user(request: Request, user_id: int, body: UserPatch, principal: Principal = Depends(user_admin)):
     user = users.set_user(request.app.state.db, user_id, role=body.role, active=body.active,
                           actor=principal.label)
     return {"ok": True, "user": user}
@@ -45,11 +59,18 @@ def patch_user(request: Request, user_id: int, body: UserPatch, principal: Princ
 
 @router.get("/apikeys", summary="List API keys, without the secrets (admin)")
 def list_keys(request: Request, principal: Principal = Depends(admin)):
-    return {"ok": True, "api_keys": users.list_api_keys(request.app.state.db)}
+    keys = users.list_api_keys(request.app.state.db)
+    if principal.site_id is not None:
+        keys = [k for k in keys if k["site_id"] == principal.site_id]
+    return {"ok": True, "api_keys": keys}
 
 
 @router.post("/apikeys", status_code=201, summary="Create an API key; the key is shown only in this answer")
 def create_key(request: Request, body: ApiKeyIn, principal: Principal = Depends(admin)):
+    if principal.site_id is not None and body.site_id != principal.site_id:
+        raise Forbidden(f"a key limited to site {principal.site_id} can only create keys limited to that "
+                        "site; "
+                        f"send site_id {principal.site_id}", field="site_id")
     key, info = users.create_api_key(request.app.state.db, name=body.name, role=body.role, site=body.site_id,
                                      created_by=principal.name)
     return JSONResponse({"ok": True, "key": key, "api_key": info}, status_code=201)
@@ -57,4 +78,11 @@ def create_key(request: Request, body: ApiKeyIn, principal: Principal = Depends(
 
 @router.delete("/apikeys/{key_id}", summary="Revoke an API key (admin)")
 def revoke_key(request: Request, key_id: int, principal: Principal = Depends(admin)):
+    if principal.site_id is not None:
+        from server.storage.tables import ApiKey
+
+        with request.app.state.db.read() as s:
+            row = s.get(ApiKey, key_id)
+        if row is not None and row.site_id != principal.site_id:
+            raise access.outside(f"API key {key_id}", "key_id")
     return {"ok": True, "api_key": users.revoke_api_key(request.app.state.db, key_id, actor=principal.label)}

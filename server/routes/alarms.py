@@ -11,6 +11,7 @@ from pydantic import BaseModel, Field
 from server.alarms import service
 from server.errors import AppError, Forbidden, NotFound
 from server.security import Principal, require_role
+from server.services import access
 
 router = APIRouter(prefix="/api/v1/alarms", tags=["alarms"])
 
@@ -95,17 +96,27 @@ def data_quality(request: Request, site_id: IdQ = None,
                                                             site_id=_site_scope(principal, site_id))}
 
 
-def _check_state_site(request: Request, principal: Principal, state_id: int) -> None:
+def _check_site(request: Request, principal: Principal, kind: str, obj_id: int, field: str) -> None:
+    """403 for another site's object (a missing one is left to the service's 404)."""
     if principal.site_id is None:
         return
-    site = service.state_site_id(request.app.state.db, state_id)
-    if site is not None and site != principal.site_id:
-        raise Forbidden(f"alarm {state_id} is outside the site this key is limited to", field="alarm_id")
+    with request.app.state.db.read() as s:
+        try:
+            access.check(s, principal, kind, obj_id, field=field)
+        except NotFound:
+            return
+
+
+def _check_state_site(request: Request, principal: Principal, state_id: int) -> None:
+    _check_site(request, principal, "alarm", state_id, "alarm_id")
 
 
 @router.get("/outbox", summary="Recent alert emails and their delivery state (admin)")
 def outbox(request: Request, status: Literal["pending", "sending", "sent", "failed"] | None = None,
            limit: int = Query(100, ge=1, le=1000), principal: Principal = Depends(require_role("admin"))):
+    if principal.site_id is not None:
+        raise Forbidden("the outbox lists the emails of every site; a key limited to one site cannot read "
+                        "it (use an admin login or an unlimited admin key)", field="site_id")
     return {"ok": True, "emails": call(service.outbox_list, request.app.state.db, status=status, limit=limit)}
 
 
@@ -136,10 +147,15 @@ def unshelve(request: Request, alarm_id: AlarmId, principal: Principal = Depends
 @router.get("/rules", summary="The rules in force at a measurement point (defaults included)")
 def rules(request: Request, point_id: Annotated[int, Query(ge=1, le=MAX_ID)],
           principal: Principal = Depends(require_role("viewer"))):
+    _check_site(request, principal, "point", point_id, "point_id")
     return {"ok": True, "rules": call(service.list_rules, request.app.state.db, point_id=point_id)}
 
 
 @router.put("/rules", summary="Set the rule for one metric on a point or an asset (engineer)")
 def set_rule(request: Request, body: RuleIn, principal: Principal = Depends(require_role("engineer"))):
     data = body.model_dump(exclude_none=True)
+    if body.point_id is not None:
+        _check_site(request, principal, "point", body.point_id, "point_id")
+    if body.asset_id is not None:
+        _check_site(request, principal, "asset", body.asset_id, "asset_id")
     return {"ok": True, "rule": call(service.set_rule, request.app.state.db, data, actor=principal.name)}

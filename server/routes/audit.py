@@ -15,6 +15,7 @@ from server.alarms import service
 from server.audit.tables import ConfigChange
 from server.errors import Forbidden
 from server.security import Principal, require_role
+from server.services import access
 
 router = APIRouter(prefix="/api/v1", tags=["audit"])
 AUDIT_COLUMNS = ["id", "created_at", "actor", "action", "target", "target_id", "details"]
@@ -23,8 +24,13 @@ HISTORY_COLUMNS = ["id", "created_at", "kind", "site_id", "area_id", "asset_id",
                    "summary"]
 
 
-def _changes(request: Request, target: str | None, limit: int, before_id: int | None) -> list[dict]:
+def _changes(request: Request, principal: Principal, target: str | None, limit: int,
+             before_id: int | None) -> list[dict]:
+    """Newest first; a caller limited to one site sees only changes of that site's objects."""
     stmt = select(ConfigChange).order_by(ConfigChange.id.desc()).limit(limit)
+    scope = access.audit_condition(principal.site_id)
+    if scope is not None:
+        stmt = stmt.where(scope)
     if target is not None:
         stmt = stmt.where(ConfigChange.target == target)
     if before_id is not None:
@@ -44,7 +50,7 @@ def list_changes(request: Request, target: str | None = Query(None, max_length=4
                  limit: int = Query(200, ge=1, le=1000),
                  before_id: int | None = Query(None, ge=1, le=2**63 - 1),
                  principal: Principal = Depends(require_role("engineer"))):
-    return {"ok": True, "changes": _changes(request, target, limit, before_id)}
+    return {"ok": True, "changes": _changes(request, principal, target, limit, before_id)}
 
 
 @router.get("/audit.csv", summary="Configuration changes as CSV (formula-safe)",
@@ -52,7 +58,7 @@ def list_changes(request: Request, target: str | None = Query(None, max_length=4
 def export_changes(request: Request, target: str | None = Query(None, max_length=40),
                    limit: int = Query(1000, ge=1, le=1000),
                    principal: Principal = Depends(require_role("engineer"))):
-    rows = _changes(request, target, limit, None)
+    rows = _changes(request, principal, target, limit, None)
     return _csv(audit.to_csv(AUDIT_COLUMNS, [[r[c] if c != "details" else _flat(r[c]) for c in AUDIT_COLUMNS]
                                              for r in rows]), "halfwatch-config-changes.csv")
 

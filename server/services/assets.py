@@ -53,7 +53,7 @@ def create(db, kind: str, data: dict, principal) -> dict:
             if kind == "point":
                 _default_alarm_rules(s, row)
             if stops is not None:
-                _set_stops(s, row, stops)
+                _set_stops(s, row, stops, principal)
             out = _row_dict(row)
             audit.record(s, actor=principal.label, action="create", target=kind, target_id=row.id, values=out)
             return {"ok": True, kind: out}
@@ -70,7 +70,7 @@ def _default_alarm_rules(s, point: Point) -> None:
     ensure_default_rules(s, point)
 
 
-def _set_stops(s, route: Route, stops: list[dict]) -> None:
+def _set_stops(s, route: Route, stops: list[dict], principal=None) -> None:
     seen = set()
     for i, st in enumerate(stops):
         pid = st["point_id"]
@@ -81,6 +81,9 @@ def _set_stops(s, route: Route, stops: list[dict]) -> None:
             site = point_site_id(s, pid)
         except NotFound:
             raise NotFound(f"no measurement point {pid}", field=f"stops.{i}.point_id") from None
+        if principal is not None and not principal.may_access_site(site):
+            raise Forbidden(f"point {pid} is outside the site this key is limited to",
+                            field=f"stops.{i}.point_id")
         if site != route.site_id:
             raise AppError(f"point {pid} belongs to another site than the route", field=f"stops.{i}.point_id")
     for st in list(route.stops):
@@ -91,21 +94,34 @@ def _set_stops(s, route: Route, stops: list[dict]) -> None:
                         due_interval_h=st.get("due_interval_h", 720.0)))
 
 
+PARENT_FIELD = {"area": "site_id", "route": "site_id", "asset": "area_id", "point": "asset_id"}
+
+
 def update(db, kind: str, row_id: int, data: dict, principal) -> dict:
+    """Change an object. The caller must have access to its site as it is and as it will be (a new
+    parent on another site): a site-limited key can neither change another site's object nor move one
+    into or out of its own site."""
     model = KINDS[kind]
     with db.unit_of_work() as s:
         row = s.get(model, row_id)
         if row is None:
             raise NotFound(f"no {kind} {row_id}", field=f"{kind}_id")
         current = _row_dict(row)
-        site_id = _parent_site(s, kind, {**current, **data}) if kind != "site" else row.id
-        if not principal.may_access_site(site_id):
+        site_now = row.id if kind == "site" else _parent_site(s, kind, current)
+        if not principal.may_access_site(site_now):
             raise Forbidden(f"{kind} {row_id} is outside the site this key is limited to", field=f"{kind}_id")
+        site_then = site_now if kind == "site" else _parent_site(s, kind, {**current, **data})
+        if not principal.may_access_site(site_then):
+            parent = PARENT_FIELD[kind]
+            raise Forbidden(f"{parent} {data.get(parent)} is on site {site_then}, outside the site this key "
+                            f"is limited to; a {kind} can only be moved within that site", field=parent)
         stops = data.pop("stops", None) if kind == "route" else None
+        if site_then != site_now:
+            _check_move(s, kind, row, site_then, stops)
         for key, value in data.items():
             setattr(row, key, value)
         if stops is not None:
-            _set_stops(s, row, stops)
+            _set_stops(s, row, stops, principal)
         try:
             s.flush()
         except IntegrityError:
@@ -115,6 +131,25 @@ def update(db, kind: str, row_id: int, data: dict, principal) -> dict:
         audit.record(s, actor=principal.label, action="update", target=kind, target_id=row_id,
                      changed=changed, stops_set=stops is not None)
         return {"ok": True, kind: out}
+
+
+def _check_move(s, kind: str, row, site_then: int, stops) -> None:
+    """A move to another site keeps routes on one site: a route's stops must be on the route's site."""
+    if kind == "route":
+        if stops is None and any(point_site_id(s, st.point_id) != site_then for st in row.stops):
+            raise AppError(f"route {row.id} has stops on its present site; send the stops of site "
+                           f"{site_then} with the new site_id", field="stops", status=422, code="invalid")
+        return
+    points = {"point": lambda: [row.id],
+              "asset": lambda: [p.id for p in row.points],
+              "area": lambda: [p.id for a in row.assets for p in a.points]}[kind]()
+    if not points:
+        return
+    clash = s.execute(select(RouteStop.point_id, Route.name).join(Route, Route.id == RouteStop.route_id)
+                      .where(RouteStop.point_id.in_(points), Route.site_id != site_then)).first()
+    if clash is not None:
+        raise Conflict(f"point {clash[0]} is a stop of route {clash[1]!r} on another site; take it off that "
+                       "route before moving it", field=PARENT_FIELD[kind])
 
 
 def find_site(s, name_or_id: str) -> Site | None:

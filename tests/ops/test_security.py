@@ -15,6 +15,7 @@ from pathlib import Path
 
 import pytest
 from support.fixtures import PASSWORD
+from support.routes import app_routes
 
 ROOT = Path(__file__).resolve().parents[2]
 RANKS = ("public", "viewer", "technician", "engineer", "admin")
@@ -95,20 +96,6 @@ POLICY = {
     ("POST", "/api/v1/apikeys"): "admin",
     ("DELETE", "/api/v1/apikeys/{key_id}"): "admin",
 }
-
-
-def app_routes(app) -> set[tuple[str, str]]:
-    """(method, path) of every route the app serves, walking included routers."""
-
-    def walk(routes):
-        for r in routes:
-            if hasattr(r, "original_router"):
-                prefix = getattr(getattr(r, "include_context", None), "prefix", "") or ""
-                yield from ((m, prefix + p) for m, p in walk(r.original_router.routes))
-            elif hasattr(r, "methods") and r.methods:
-                yield from ((m, r.path) for m in r.methods if m != "HEAD")
-
-    return set(walk(app.routes))
 
 
 def test_every_route_has_an_access_rule(app):

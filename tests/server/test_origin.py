@@ -90,7 +90,8 @@ def test_api_key_requests_are_not_affected(app, plant):
     key, _ = create_api_key(app.state.db, name="script", role="engineer")
     with TestClient(app) as c:
         for i, headers in enumerate(({"Authorization": f"Bearer {key}"}, {"X-API-Key": key})):
-            r = c.post("/api/v1/sites", json={"name": f"Quarry pumps {i}"}, headers={**headers, "Origin": EVIL})
+            r = c.post("/api/v1/sites", json={"name": f"Quarry pumps {i}"},
+                       headers={**headers, "Origin": EVIL})
             assert r.status_code == 201, r.text
 
 
