@@ -53,8 +53,14 @@ def test_parametric_envelope_grows_at_floquet_rate(ratio, detune):
         bearing_tone_g=0.0,
     )
     truth = rec.truth
-    lam_true = floquet_growth(f0, 0.01, fw, truth["floquet"]["modulation"]).growth_rate_per_s
+    h = truth["floquet"]["modulation"]
+    lam_true = floquet_growth(f0, 0.01, fw, h).growth_rate_per_s
     assert truth["subharmonic"]["growth_rate_per_s"] == pytest.approx(lam_true, rel=1e-12)
+    # and independently of our Floquet code: the first-order rate of Landau & Lifshitz, Mechanics §27
+    # (with friction), lambda = -zeta w0 + 1/2 sqrt((h w0 / 2)^2 - eps^2), eps = 2 pi fw - 2 w0 (h small)
+    w0 = 2 * math.pi * f0
+    eps = 2 * math.pi * fw - 2 * w0
+    assert lam_true == pytest.approx(-0.01 * w0 + 0.5 * math.sqrt((h * w0 / 2) ** 2 - eps**2), rel=0.02)
     t0 = truth["subharmonic"]["onset_s"]
     # fit once the line stands 300x above the noise-excited mode it grew from (the decaying Floquet companion
     # is gone by then, after > 5 / (2 s_par)) until 5 % of saturation

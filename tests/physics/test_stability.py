@@ -225,6 +225,11 @@ def test_vectorised_threshold_curve_matches_brentq_floquet():
     for r, hc in zip(ratios, curve, strict=True):
         # DOP853 + brentq threshold (checked against the scipy values of test_threshold_* above)
         assert hc == pytest.approx(st.threshold_floquet(F0, 0.01, r * F0), rel=1e-5)
+        # independent of our code: the first-order threshold of Landau & Lifshitz, Mechanics §27 (with
+        # friction), h_c = 2 sqrt((eps / w0)^2 + 4 zeta^2) with eps / w0 = r - 2; close to tuning it is
+        # within 1 %, 10 % detuned within 10 % (the first-order error grows with h)
+        first = 2 * math.sqrt((r - 2.0) ** 2 + 4 * 0.01**2)
+        assert hc == pytest.approx(first, rel=0.01 if abs(r - 2.0) <= 0.04 else 0.10), r
     # L&L Mechanics §27 (with friction) at tuning: 4 zeta; checked numerically against scipy: 0.056855 at eps
     # = 0.02 w0
     assert curve[2] == pytest.approx(0.04, rel=1e-3)

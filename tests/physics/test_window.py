@@ -8,6 +8,7 @@ are generated data with known f0, zeta, k (analysis.sim_history), not measuremen
 from __future__ import annotations
 
 import json
+import math
 
 import numpy as np
 import pytest
@@ -40,12 +41,15 @@ def test_recovers_tongue_parameters_and_outputs_follow_landau_lifshitz():
     assert fit.k_per_unit == pytest.approx(0.25, rel=0.05)
     for name, key in (("f0_hz", "f0_hz"), ("zeta", "zeta"), ("k_per_unit", "k")):
         assert abs(getattr(fit, name) - TRUTH[key]) < 4 * getattr(fit, name + "_se")
-    # L&L first-order threshold: a_c = h_c / k; and the band is the first-order tongue at h = k a
-    assert fit.amp_threshold * fit.k_per_unit == pytest.approx(
-        st.threshold_first_order(fit.f0_hz, fit.zeta, 25.0), rel=1e-12
-    )
-    band = st.tongue_edges_first_order(fit.f0_hz, fit.zeta, fit.k_per_unit * 0.25)
-    assert fit.unstable_band_hz == pytest.approx(band, rel=1e-12)
+    # L&L first-order threshold (Mechanics §27, with friction), written out here rather than taken from our
+    # stability module: h_c(f) = 2 sqrt(((f - 2 f0) / f0)^2 + 4 zeta^2), a_c = h_c / k
+    f0, zeta, k = fit.f0_hz, fit.zeta, fit.k_per_unit
+    assert fit.amp_threshold * k == pytest.approx(2 * math.sqrt(((25.0 - 2 * f0) / f0) ** 2 + 4 * zeta**2),
+                                                  rel=1e-9)
+    # the unstable band at h = k a: |f - 2 f0| < f0 sqrt(h^2 / 4 - 4 zeta^2) (same section)
+    half = f0 * math.sqrt((k * 0.25) ** 2 / 4 - 4 * zeta**2)
+    assert fit.unstable_band_hz == pytest.approx((2 * f0 - half, 2 * f0 + half), rel=1e-9)
+    assert st.tongue_edges_first_order(f0, zeta, k * 0.25) == pytest.approx(fit.unstable_band_hz, rel=1e-12)
     assert fit.margin_pct == pytest.approx(100 * (1 - 0.25 / fit.amp_threshold), rel=1e-12)
     assert fit.amp_threshold_lo < fit.amp_threshold < fit.amp_threshold_hi
 
