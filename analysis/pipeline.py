@@ -57,9 +57,36 @@ def analyze_record(
 ) -> RecordAnalysis:
     """Analyse one acceleration record for subharmonic onset.
 
-    Exactly one of ``forcing_hz`` (exact 1X from a tachometer or drive) or ``nominal_hz`` (nominal speed,
-    refined from the spectrum within ±5 %) is required. ``pfa`` is the false-alarm probability of the
-    subharmonic detector per record. Raises SignalError for bad input.
+    Parameters
+    ----------
+    samples : array_like
+        Acceleration samples in ``units``.
+    fs_hz : float
+        Sample rate in Hz.
+    units : str
+        ``"g"``, ``"m/s2"`` or ``"mm/s2"`` (usual spellings accepted).
+    forcing_hz, nominal_hz : float, optional
+        Exactly one: the exact 1X (tachometer or drive), or a nominal speed refined from the spectrum
+        within ±5 %.
+    machine_group, foundation : int, str
+        ISO 20816 machine group (1 or 2) and support (``"rigid"`` or ``"flexible"``) for the zone.
+    pfa : float
+        False-alarm probability of the subharmonic detector per record (0 < pfa < 0.5).
+
+    Returns
+    -------
+    RecordAnalysis
+        Frozen result; ``to_dict()`` names every amplitude's measure (``accel_peak``,
+        ``velocity_peak_mm_s``, ``velocity_rms_mm_s``).
+
+    Raises
+    ------
+    SignalError
+        For bad input; its ``field`` names the argument and the message the fix.
+
+    References
+    ----------
+    The methods and their sources are in docs/methods.md (Welch 1967; Marple 1999; ISO 20816-3).
     """
     x_raw, fs = validate_samples(samples, fs_hz)
     units = normalize_units(units)

@@ -22,6 +22,29 @@ ZONE_LIMITS_MM_S: dict[tuple[int, str], tuple[float, float, float]] = {
 
 
 def zone_limits(machine_group: int, foundation: str) -> tuple[float, float, float]:
+    """ISO 20816 zone boundaries for a machine group and support.
+
+    Parameters
+    ----------
+    machine_group : int
+        1 (large machines, 300 kW-50 MW) or 2 (medium machines, 15-300 kW).
+    foundation : str
+        ``"rigid"`` or ``"flexible"`` support.
+
+    Returns
+    -------
+    tuple of float
+        (A/B, B/C, C/D) in mm/s r.m.s.
+
+    Raises
+    ------
+    SignalError
+        For an unknown group or support (``field`` names which).
+
+    References
+    ----------
+    ISO 20816-3:2022 / ISO 10816-3:2009 Annex A (values from memory; see ``ZONE_LIMITS_MM_S``).
+    """
     key = (int(machine_group), str(foundation).strip().lower())
     if key[1] not in ("rigid", "flexible"):
         raise SignalError(f"foundation {foundation!r} is unknown; use rigid or flexible", field="foundation")
@@ -35,8 +58,21 @@ def zone_limits(machine_group: int, foundation: str) -> tuple[float, float, floa
 
 
 def zone(velocity_rms_mm_s: float, limits: tuple[float, float, float]) -> str:
-    """Evaluation zone: A below A/B, B up to B/C, C up to C/D, D above (a value on a boundary is the
-    higher zone)."""
+    """ISO 20816 evaluation zone of an overall velocity.
+
+    Parameters
+    ----------
+    velocity_rms_mm_s : float
+        Broad-band velocity r.m.s. in mm/s.
+    limits : tuple of float
+        (A/B, B/C, C/D) boundaries in mm/s r.m.s., from :func:`zone_limits`.
+
+    Returns
+    -------
+    str
+        ``"A"`` below A/B, ``"B"`` up to B/C, ``"C"`` up to C/D, ``"D"`` above; a value on a boundary
+        is the higher zone.
+    """
     ab, bc, cd = limits
     if velocity_rms_mm_s < ab:
         return "A"
@@ -48,14 +84,43 @@ def zone(velocity_rms_mm_s: float, limits: tuple[float, float, float]) -> str:
 
 
 def iso_band(f1x_hz: float, fs_hz: float) -> tuple[float, float]:
-    """Measurement band: 10-1000 Hz, or 2-1000 Hz for machines below 600 r/min (from memory, ISO 10816-3);
-    the top is cut to 0.45·fs when the record cannot reach 1000 Hz."""
+    """Measurement band of the overall level.
+
+    Parameters
+    ----------
+    f1x_hz : float
+        Forcing (shaft) frequency in Hz.
+    fs_hz : float
+        Sample rate of the record in Hz.
+
+    Returns
+    -------
+    tuple of float
+        10-1000 Hz, or 2-1000 Hz below 600 r/min; the top cut to 0.45·fs when the record cannot reach
+        1000 Hz.
+
+    References
+    ----------
+    ISO 10816-3:2009 (from memory).
+    """
     lo = 2.0 if f1x_hz * 60.0 < 600.0 else 10.0
     return lo, min(1000.0, 0.45 * fs_hz)
 
 
 def waveform_stats(x: np.ndarray) -> Waveform:
-    """RMS, peak, crest factor and Pearson kurtosis of a detrended acceleration record."""
+    """Waveform statistics of a detrended acceleration record.
+
+    Parameters
+    ----------
+    x : ndarray
+        Detrended acceleration samples.
+
+    Returns
+    -------
+    Waveform
+        Acceleration r.m.s. and peak (record units), crest factor (peak / r.m.s.) and Pearson kurtosis
+        (3 for Gaussian noise, 1.5 for a sine); crest factor and kurtosis ``None`` for a zero record.
+    """
     sq = x * x
     ms = float(np.mean(sq))
     rms = float(np.sqrt(ms))
