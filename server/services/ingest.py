@@ -19,6 +19,7 @@ from sqlalchemy.exc import IntegrityError
 from server.errors import AppError, Conflict, Forbidden, NotFound, PayloadTooLarge
 from server.storage import blobs
 from server.storage.tables import ORIGINS, Area, Asset, Job, Point, Record, UTCDateTime, Waveform, utcnow
+from server.times import to_utc
 
 
 @dataclass(frozen=True)
@@ -74,7 +75,10 @@ def check_time(measured_at: dt.datetime, limits: Limits, now: dt.datetime | None
         raise AppError("measured_at must be a time, e.g. 2026-03-01T08:00:00Z", field="measured_at")
     if measured_at.tzinfo is None or measured_at.utcoffset() is None:
         raise AppError("measured_at has no time zone; add Z or an offset such as +01:00", field="measured_at")
-    measured_at = measured_at.astimezone(dt.UTC)
+    try:
+        measured_at = to_utc(measured_at)
+    except ValueError as exc:
+        raise AppError(f"measured_at {exc}", field="measured_at", status=422, code="invalid") from None
     now = now or utcnow()
     if measured_at > now + dt.timedelta(seconds=limits.max_future_s):
         raise AppError(f"measured_at {measured_at.isoformat()} is in the future (server time "

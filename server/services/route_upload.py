@@ -18,7 +18,9 @@ import csv
 import datetime as dt
 import io
 import posixpath
+import struct
 import zipfile
+import zlib
 from dataclasses import dataclass
 
 from server.errors import AppError, PayloadTooLarge
@@ -61,8 +63,9 @@ class Archive:
     """A ZIP read in memory with bomb guards; ``read(name)`` returns a member's bytes."""
 
     def __init__(self, data: bytes, limits: UploadLimits):
+        self.fp = io.BytesIO(data)
         try:
-            self.zf = zipfile.ZipFile(io.BytesIO(data))
+            self.zf = zipfile.ZipFile(self.fp)
         except (zipfile.BadZipFile, ValueError):
             raise AppError("the upload is not a ZIP file; zip the readings and manifest.csv together",
                            field="file") from None
@@ -87,12 +90,71 @@ class Archive:
                 self.members[name] = i
 
     def read(self, name: str) -> bytes:
+        """The member's bytes; a member that is damaged or larger than its header says is refused with
+        the reason (field ``file``), so its row is rejected and the other rows go on."""
         info = self.members[name]
-        with self.zf.open(info) as fh:  # never trust the header's size: read one byte more
-            data = fh.read(info.file_size + 1)
-        if len(data) > info.file_size:
-            raise PayloadTooLarge(f"{name!r} is larger than its ZIP header says", field="file")
+        try:
+            return self._read(info, name)
+        except PayloadTooLarge:
+            raise
+        except (zipfile.BadZipFile, zlib.error, EOFError) as exc:
+            raise AppError(f"{name!r} is damaged in the ZIP ({_zip_reason(exc)}); zip the file again",
+                           field="file", status=422, code="invalid") from None
+        except (NotImplementedError, RuntimeError) as exc:  # unknown compression, encrypted member
+            raise AppError(f"{name!r} cannot be unpacked ({exc}); zip it without a password using deflate "
+                           "or no compression", field="file", status=422, code="invalid") from None
+
+    def _read(self, info: zipfile.ZipInfo, name: str) -> bytes:
+        # Never trust the header's size: unpack the raw stream (not the member reader, which stops at the
+        # header's size) and refuse as soon as it gives more; then check the CRC over what it gave.
+        too_big = PayloadTooLarge(f"{name!r} unpacks to more than the {info.file_size} bytes its ZIP header "
+                                  "says; zip the file again", field="file")
+        if info.compress_type not in (zipfile.ZIP_STORED, zipfile.ZIP_DEFLATED):
+            raise NotImplementedError(f"compression method {info.compress_type} is not supported")
+        raw = self._raw(info)
+        if info.compress_type == zipfile.ZIP_STORED:
+            if len(raw) > info.file_size:
+                raise too_big
+            data = raw
+        else:
+            inflater = zlib.decompressobj(-15)  # raw deflate (RFC 1951), as ZIP stores it
+            data = inflater.decompress(raw, info.file_size + 1)
+            if len(data) > info.file_size or inflater.unconsumed_tail:
+                raise too_big
+            data += inflater.flush()
+            if len(data) > info.file_size:
+                raise too_big
+            if not inflater.eof:
+                raise zipfile.BadZipFile("the deflate stream ends early")
+        if len(data) != info.file_size:
+            raise zipfile.BadZipFile(f"it unpacks to {len(data)} bytes, its header says {info.file_size}")
+        if zlib.crc32(data) & 0xFFFFFFFF != info.CRC:
+            raise zipfile.BadZipFile("bad CRC-32")
         return data
+
+    def _raw(self, info: zipfile.ZipInfo) -> bytes:
+        """The member's compressed bytes: after its local header (PKWARE APPNOTE 4.3.7: 30 bytes, then
+        the name and the extra field, whose lengths are at offsets 26 and 28)."""
+        if info.flag_bits & 0x1:
+            raise RuntimeError("it is encrypted")
+        fp = self.fp
+        fp.seek(info.header_offset)
+        head = fp.read(30)
+        if len(head) != 30 or head[:4] != b"PK\x03\x04":
+            raise zipfile.BadZipFile("its local header is missing")
+        name_len, extra_len = struct.unpack("<HH", head[26:30])
+        fp.seek(info.header_offset + 30 + name_len + extra_len)
+        raw = fp.read(info.compress_size)
+        if len(raw) != info.compress_size:
+            raise zipfile.BadZipFile("its data is cut short")
+        return raw
+
+
+def _zip_reason(exc: Exception) -> str:
+    text = str(exc)
+    if isinstance(exc, zlib.error):
+        return f"bad deflate data: {text}"
+    return text or type(exc).__name__
 
 
 def read_manifest(archive: Archive, limits: UploadLimits) -> list[dict]:
