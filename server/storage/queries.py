@@ -36,6 +36,17 @@ METRIC_COLUMNS = {
 }
 
 
+#: names of result version 1.0 that clients may still ask for -> the names that say their measure
+METRIC_ALIASES = {
+    "subharmonic.amplitude": "subharmonic.accel_peak",
+    "subharmonic.velocity_mm_s": "subharmonic.velocity_peak_mm_s",
+    "orders.1X.amplitude": "orders.1X.accel_peak",
+    "orders.1X.velocity_mm_s": "orders.1X.velocity_peak_mm_s",
+    "orders.2X.amplitude": "orders.2X.accel_peak",
+    "orders.2X.velocity_mm_s": "orders.2X.velocity_peak_mm_s",
+}
+
+
 def record_dict(r: Record) -> dict:
     return {"id": r.id, "point_id": r.point_id, "measured_at": iso(r.measured_at),
             "received_at": iso(r.received_at), "fs_hz": r.fs_hz, "n_samples": r.n_samples,
@@ -120,6 +131,7 @@ def trend(s, point_id: int, metric: str, t0: dt.datetime, t1: dt.datetime, max_p
     a, b = t0.timestamp(), t1.timestamp()
     if b <= a:
         raise AppError("end must be after start", field="end")
+    metric = METRIC_ALIASES.get(metric, metric)
     scope = (Result.point_id == point_id, Result.current.is_(True), Result.measured_ts >= a,
              Result.measured_ts <= b)
     col = METRIC_COLUMNS.get(metric)

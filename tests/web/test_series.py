@@ -169,3 +169,19 @@ def test_series_and_window_on_postgres(pg_settings):
         pump = next(a for s in over.json()["sites"] for ar in s["areas"] for a in ar["assets"]
                     if a["id"] == plant.asset_ids["pump"])
         assert pump["zone"] is None and pump["last_measured_at"].startswith("2026-01-13")
+
+
+def test_trend_metric_names_say_their_measure_and_old_names_still_answer(client, users, plant, migrated_db):
+    t0 = dt.datetime(2026, 1, 1, tzinfo=dt.UTC)
+    ts, amp, one_x = _insert_results(migrated_db, plant.point_id, 50, t0)
+    c = users.login("viewer")
+    q = {"start": t0.isoformat(), "end": (t0 + dt.timedelta(hours=60)).isoformat()}
+    new = c.get(f"/api/v1/points/{plant.point_id}/trend", params={**q, "metric":
+    "subharmonic.accel_peak"}).json()
+    old = c.get(f"/api/v1/points/{plant.point_id}/trend", params={**q, "metric":
+    "subharmonic.amplitude"}).json()
+    assert new["value"] == pytest.approx(list(amp)) and old["value"] == new["value"]
+    assert old["metric"] == "subharmonic.accel_peak"  # the answer names the measure
+    default = c.get(f"/api/v1/points/{plant.point_id}/trend", params=q).json()
+    assert default["metric"] == "subharmonic.velocity_rms_mm_s" and default["value"] == pytest.approx(list(amp
+    * 2))
