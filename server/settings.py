@@ -59,6 +59,16 @@ class Settings(BaseSettings):
     worker_batch: int = Field(default=4, ge=1, le=100, description="jobs claimed per claim transaction")
     retry_backoff_s: float = Field(default=5.0, ge=0, description="wait before retry n is n times this")
 
+    # retention of raw waveforms (server/retention; results and chart spectra are kept for ever)
+    retention_waveform_days: float = Field(default=30.0, gt=0, description="raw waveforms older than this "
+                                           "are deleted unless a keep rule holds them")
+    retention_alarm_neighbours: int = Field(default=3, ge=0, le=1000, description="readings kept before "
+                                            "and after each alarm transition of a point")
+    retention_batch: int = Field(default=200, ge=1, le=10_000, description="waveforms deleted per "
+                                 "transaction")
+    retention_interval_h: float = Field(default=0.0, ge=0, description="the worker applies retention this "
+                                        "often (hours); 0: only `halfwatch retention`")
+
     # alarms and alert emails (server/alarms)
     smtp_host: str = Field(default="", description="SMTP server for alert emails; empty disables sending")
     smtp_port: int = Field(default=25, ge=1, le=65535)

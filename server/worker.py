@@ -417,6 +417,8 @@ def run_forever(db, settings, *, stop: threading.Event | None = None, max_jobs: 
     beat = Heartbeat(db, worker_id, "worker", interval_s=settings.heartbeat_s)
     beat.prune()
     alarm_stop, alarm_thread = _start_alarm_background(db, settings)
+    retention_stop = threading.Event()
+    retention_thread = _start_retention_background(db, settings, retention_stop)
     try:
         while not stop.is_set() and (max_jobs is None or handled < max_jobs):
             beat.beat("running")
@@ -434,11 +436,34 @@ def run_forever(db, settings, *, stop: threading.Event | None = None, max_jobs: 
                 time.sleep(min(5.0, settings.worker_poll_s * 10))
             stop.wait(settings.worker_poll_s)
     finally:
+        retention_stop.set()
         if alarm_thread is not None:
             alarm_stop.set()
             alarm_thread.join(settings.smtp_timeout_s + 5.0)
+        if retention_thread is not None:
+            retention_thread.join(30.0)
         beat.beat("stopped", force=True)
     return handled
+
+
+def _start_retention_background(db, settings, stop: threading.Event):
+    """Every ``retention_interval_h`` hours (0: never), apply waveform retention in a thread
+    (server/retention/apply.py: short batches, so the job loop's writes interleave with it)."""
+    if settings.retention_interval_h <= 0:
+        return None
+
+    def loop():
+        from server.retention.apply import run
+
+        while not stop.wait(settings.retention_interval_h * 3600.0):
+            try:
+                run(db, settings, actor="worker retention")
+            except Exception:  # logged; the next interval tries again
+                log.exception("retention run failed")
+
+    thread = threading.Thread(target=loop, name="retention", daemon=True)
+    thread.start()
+    return thread
 
 
 def _start_alarm_background(db, settings):

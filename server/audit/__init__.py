@@ -11,12 +11,15 @@ FORMULA_START = ("=", "+", "-", "@", "\t", "\r", "|", "%")
 
 
 def record(session, *, actor: str, action: str, target: str, target_id: int | None = None,
-           **details) -> None:
-    """Add one audit row in the caller's transaction (so the change and its record commit together)."""
+           **details):
+    """Add one audit row in the caller's transaction (so the change and its record commit together);
+    returns the row (its id is set once the session flushes)."""
     from .tables import ConfigChange
 
-    session.add(ConfigChange(created_at=utcnow(), actor=(actor or "unknown")[:120], action=action,
-                             target=target, target_id=target_id, details=_plain(details)))
+    change = ConfigChange(created_at=utcnow(), actor=(actor or "unknown")[:120], action=action,
+                          target=target, target_id=target_id, details=_plain(details))
+    session.add(change)
+    return change
 
 
 def _plain(value):

@@ -115,7 +115,7 @@ def cmd_apikey_create(args) -> int:
 def cmd_reanalyze(args) -> int:
     import datetime as dt
 
-    from server.services.jobs import requeue_since
+    from server.services.jobs import requeue_report
 
     try:
         since = dt.datetime.fromisoformat(args.since)
@@ -126,10 +126,12 @@ def cmd_reanalyze(args) -> int:
     settings = _settings(args)
     db = _database(settings)
     try:
-        n = requeue_since(db, since, point_id=args.point)
+        n, skipped = requeue_report(db, since, point_id=args.point)
     finally:
         db.dispose()
     print(f"{n} record(s) queued for analysis")
+    if skipped:
+        print(f"{skipped} record(s) skipped: retention removed their raw waveform (results and spectra kept)")
     return 0
 
 

@@ -110,6 +110,10 @@ def min_max_decimate(y: np.ndarray, max_points: int) -> tuple[np.ndarray, np.nda
 def record_waveform(s, record_id: int, max_points: int) -> dict:
     rec = get_record(s, record_id)
     wf = s.get(Waveform, record_id)
+    if wf is None:  # removed by retention (server/retention): the result and chart spectrum stay
+        raise AppError(f"the raw waveform of reading {record_id} was removed by retention; its analysis "
+                       f"result and spectrum are kept (GET /api/v1/records/{record_id}/retention says when)",
+                       field="record_id", status=410, code="gone")
     x = blobs.decode_waveform(wf.codec, wf.data)
     idx, y = min_max_decimate(x, max_points)
     return {"ok": True, "record_id": record_id, "units": rec.units, "fs_hz": rec.fs_hz,
