@@ -133,10 +133,40 @@
     Plotly.update(div, { y: [div.data[1].x.map(() => top * 1.05)] }, layout, [1]);
   }
 
-  async function drawWaveform() {
-    const w = await HW.api(`/api/v1/records/${bundle.record.id}/waveform?max_points=4000`);
+  /* Retention (server/retention): is the raw waveform still stored, what keeps it, and the pin for engineers. */
+  async function renderRetention() {
+    const id = bundle.record.id;
+    const st = await HW.api(`/api/v1/records/${id}/retention`);
+    const w = st.waveform, why = { pinned: "pinned by an engineer", alarm: "near an alarm transition",
+      "daily-first": "the first reading of its day", "route-walk": "a reading of the latest route walk" };
+    $("#retention-card").hidden = false;
+    $("#retention-note").textContent = !w.kept
+      ? `The raw waveform of this reading was removed by retention on ${HW.when(w.removed_at, tz)} (older than ${st.horizon_days} days and held by no keep rule). The analysis result, the spectrum and the 0.5X envelope are kept.`
+      : st.pin ? `Kept: pinned by ${st.pin.pinned_by} on ${HW.when(st.pin.pinned_at, tz)}${st.pin.note ? ` (${st.pin.note})` : ""}.`
+        : `Stored. Raw waveforms older than ${st.horizon_days} days are removed unless a keep rule holds them${st.kept_by.length ? `; this one is kept as ${st.kept_by.map((k) => why[k] || k).join(", ")}` : ""}.`;
+    const may = HW.may("engineer") && w.kept;
+    $("#pin-button").hidden = !may || !!st.pin;
+    $("#pin-note").hidden = $("#pin-button").hidden;
+    $("label[for=pin-note]").hidden = $("#pin-button").hidden;
+    $("#unpin-button").hidden = !may || !st.pin;
+    return st;
+  }
+
+  async function pin(on) {
+    $("#pin-error").hidden = true;
+    try {
+      await HW.api(`/api/v1/records/${bundle.record.id}/pin`, on ? { method: "PUT", json: { note: $("#pin-note").value } } : { method: "DELETE" });
+      await renderRetention();
+    } catch (e) { HW.showError("#pin-error", e); }
+  }
+
+  async function drawWaveform(kept) {
     const unit = bundle.record.units;
-    const traces = [{ x: w.t_s, y: w.value, type: "scatter", mode: "lines", line: { color: "#94a3b8", width: 0.8 }, name: `acceleration (${unit})` }];
+    const traces = [];
+    if (kept) {
+      const w = await HW.api(`/api/v1/records/${bundle.record.id}/waveform?max_points=4000`);
+      traces.push({ x: w.t_s, y: w.value, type: "scatter", mode: "lines", line: { color: "#94a3b8", width: 0.8 }, name: `acceleration (${unit})` });
+    }
     if (spec.envelope && spec.envelope.length) {
       traces.push({ x: spec.envelope_t_s, y: spec.envelope, type: "scatter", mode: "lines", line: { color: HW.palette.half, width: 2 }, name: "subharmonic envelope" });
     }
@@ -150,6 +180,7 @@
     } else {
       $("#growth-note").textContent = `No growth line: ${g.note || g.state || "not estimated"}.`;
     }
+    if (!kept) $("#growth-note").textContent += " The raw waveform was removed by retention: only the stored envelope and fit are drawn.";
     return HW.plot("chart-waveform", traces, { xaxis: { title: { text: "time in the reading (s)" } },
       yaxis: { title: { text: `acceleration (${unit})` } } });
   }
@@ -200,11 +231,14 @@
     spec = await HW.api(`/api/v1/records/${id}/spectrum`);
     await drawSpectrum();
     bindReadout();
-    await Promise.all([drawWaveform(), drawWaterfall()]);
+    const kept = await renderRetention().then((st) => st.waveform.kept, () => true);
+    await Promise.all([drawWaveform(kept), drawWaterfall()]);
     document.body.dataset.ready = "1";
   }
 
   document.addEventListener("DOMContentLoaded", () => {
+    $("#pin-button").addEventListener("click", () => pin(true));
+    $("#unpin-button").addEventListener("click", () => pin(false));
     $("#zoom-orders").addEventListener("click", () => spec && zoom(0, 5.2 * spec.forcing_hz));
     $("#zoom-half").addEventListener("click", () => spec && zoom(0.28 * spec.forcing_hz, 0.72 * spec.forcing_hz));
     $("#zoom-all").addEventListener("click", () => spec && zoom(0, spec.freqs_hz[spec.freqs_hz.length - 1]));
