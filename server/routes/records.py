@@ -5,13 +5,13 @@ from __future__ import annotations
 import datetime as dt
 
 from fastapi import APIRouter, Depends, Query, Request
-from pydantic import AwareDatetime
 from sqlalchemy import select
 
 from server.security import Principal, require_role
 from server.services.access import check_point, check_record
 from server.storage import queries
 from server.storage.tables import Record
+from server.times import ApiTime
 
 router = APIRouter(prefix="/api/v1", tags=["records"])
 viewer = require_role("viewer")
@@ -41,7 +41,7 @@ def get_waveform(request: Request, record_id: int, max_points: int = Query(4000,
 
 @router.get("/points/{point_id}/records", summary="Records of a point, newest first")
 def list_records(request: Request, point_id: int, limit: int = Query(50, ge=1, le=1000),
-                 before: AwareDatetime | None = Query(None, description="only records measured before this"),
+                 before: ApiTime | None = Query(None, description="only records measured before this"),
                  principal: Principal = Depends(viewer)):
     with request.app.state.db.read() as s:
         check_point(s, principal, point_id)
@@ -57,8 +57,8 @@ def get_trend(request: Request, point_id: int,
               metric: str = Query("subharmonic.velocity_rms_mm_s", max_length=80,
                                   description="a result field, e.g. overall.velocity_rms_mm_s or "
                                               "orders.1X.accel_peak (each names its measure)"),
-              start: AwareDatetime | None = Query(None, description="default: 30 days before end"),
-              end: AwareDatetime | None = Query(None, description="default: now"),
+              start: ApiTime | None = Query(None, description="default: 30 days before end"),
+              end: ApiTime | None = Query(None, description="default: now"),
               max_points: int = Query(1000, ge=2, le=20_000),
               principal: Principal = Depends(viewer)):
     end = end or dt.datetime.now(dt.UTC)
