@@ -171,8 +171,8 @@ def audit_condition(site_id: int | None):
         "alarm_rule": rules,
         "subscription": subs,
         "api_key": select(ApiKey.id).where(ApiKey.site_id == site_id),
+        "record": records_of_site(site_id),  # pins of a reading's waveform
     }
     return or_(false(), *(and_(C.target == t, C.target_id.in_(q)) for t, q in by_target.items()))
 
 
-AUDIT_TARGETS = ("site", "area", "asset", "point", "route", "alarm_rule", "subscription", "api_key")
