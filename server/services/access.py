@@ -58,25 +58,24 @@ def subscription_site_id(s, sub_id: int) -> int | None:
     return None if sub is None else scope_site_id(s, sub.scope, sub.scope_id)
 
 
-def _lookups():
-    return {
-        "site": lambda s, i: s.scalar(select(Site.id).where(Site.id == i)),
-        "area": lambda s, i: s.scalar(select(Area.site_id).where(Area.id == i)),
-        "asset": lambda s, i: s.scalar(select(Area.site_id).join(Asset, Asset.area_id == Area.id)
-                                       .where(Asset.id == i)),
-        "point": lambda s, i: s.scalar(select(Area.site_id).join(Asset, Asset.area_id == Area.id)
-                                       .join(Point, Point.asset_id == Asset.id).where(Point.id == i)),
-        "route": lambda s, i: s.scalar(select(Route.site_id).where(Route.id == i)),
-        "record": lambda s, i: s.scalar(select(Area.site_id).join(Asset, Asset.area_id == Area.id)
-                                        .join(Point, Point.asset_id == Asset.id)
-                                        .join(Record, Record.point_id == Point.id).where(Record.id == i)),
-        "job": lambda s, i: s.scalar(select(Area.site_id).join(Asset, Asset.area_id == Area.id)
-                                     .join(Point, Point.asset_id == Asset.id)
-                                     .join(Record, Record.point_id == Point.id)
-                                     .join(Job, Job.record_id == Record.id).where(Job.id == i)),
-        "alarm": _alarm_site,
-        "subscription": subscription_site_id,
-    }
+_LOOKUPS = {
+    "site": lambda s, i: s.scalar(select(Site.id).where(Site.id == i)),
+    "area": lambda s, i: s.scalar(select(Area.site_id).where(Area.id == i)),
+    "asset": lambda s, i: s.scalar(select(Area.site_id).join(Asset, Asset.area_id == Area.id)
+                                   .where(Asset.id == i)),
+    "point": lambda s, i: s.scalar(select(Area.site_id).join(Asset, Asset.area_id == Area.id)
+                                   .join(Point, Point.asset_id == Asset.id).where(Point.id == i)),
+    "route": lambda s, i: s.scalar(select(Route.site_id).where(Route.id == i)),
+    "record": lambda s, i: s.scalar(select(Area.site_id).join(Asset, Asset.area_id == Area.id)
+                                    .join(Point, Point.asset_id == Asset.id)
+                                    .join(Record, Record.point_id == Point.id).where(Record.id == i)),
+    "job": lambda s, i: s.scalar(select(Area.site_id).join(Asset, Asset.area_id == Area.id)
+                                 .join(Point, Point.asset_id == Asset.id)
+                                 .join(Record, Record.point_id == Point.id)
+                                 .join(Job, Job.record_id == Record.id).where(Job.id == i)),
+    "alarm": _alarm_site,
+    "subscription": subscription_site_id,
+}
 
 
 _LABEL = {"point": "measurement point"}
@@ -88,7 +87,7 @@ _HINT = {"point": _TREE, "asset": _TREE, "area": _TREE,
 
 def site_of(s, kind: str, obj_id: int) -> int:
     """The site an object belongs to; NotFound (naming ``<kind>_id``) if there is no such object."""
-    site = _lookups()[kind](s, obj_id)
+    site = _LOOKUPS[kind](s, obj_id)
     if site is None:
         raise NotFound(f"no {_LABEL.get(kind, kind)} {obj_id}{_HINT.get(kind, '')}", field=f"{kind}_id")
     return site
