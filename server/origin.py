@@ -17,8 +17,9 @@ Prevention Cheat Sheet's "verifying origin with standard headers" (from memory).
 from __future__ import annotations
 
 import json
-from http.cookies import SimpleCookie
 from urllib.parse import urlsplit
+
+from starlette.requests import cookie_parser
 
 from server.errors import error_body
 from server.security import SESSION_COOKIE
@@ -51,14 +52,8 @@ def _headers(scope) -> dict[str, str]:
 
 
 def _has_session_cookie(cookie_header: str) -> bool:
-    if SESSION_COOKIE not in cookie_header:
-        return False
-    jar = SimpleCookie()
-    try:
-        jar.load(cookie_header)
-    except Exception:  # a malformed header: treat as carrying the cookie (checked, never waved through)
-        return True
-    return SESSION_COOKIE in jar
+    # the parser the app itself reads cookies with, so "has the cookie" means the same here and there
+    return SESSION_COOKIE in cookie_header and SESSION_COOKIE in cookie_parser(cookie_header)
 
 
 def needs_check(scope, headers: dict[str, str]) -> bool:

@@ -105,3 +105,16 @@ def test_origin_normalisation():
     assert origin_of("http://[::1]:8000/") == "http://[::1]:8000"
     for bad in ("null", "javascript:alert(1)", "file:///etc/passwd", "http://", "http://h:99999/"):
         assert origin_of(bad) is None, bad
+
+
+@pytest.mark.parametrize("junk", ['bad"name=1', "x=\"unterminated", "a=b\\c"])
+def test_a_malformed_cookie_beside_the_session_does_not_skip_the_check(app, users, junk):
+    """Python's http.cookies gives up on such a header; the app's own cookie parser still finds the
+    session, so the check must see it too (a cookie set by a sibling subdomain could be junk)."""
+    c = users.login("engineer")
+    token = c.cookies.get("halfwatch_session")
+    with TestClient(app) as raw:
+        r = raw.post("/api/v1/sites", json={"name": "Quarry pumps"},
+                     headers={"Cookie": f"{junk}; halfwatch_session={token}", "Origin": EVIL,
+                              "X-CSRF-Token": c.headers["X-CSRF-Token"]})
+        assert r.status_code == 403 and r.json()["error"]["field"] == "Origin", r.text
