@@ -56,7 +56,7 @@ def change_since_last(metrics: dict, previous: dict) -> str:
         now, before = metrics.get(key), previous.get(key)
         if now is None or before is None:
             continue
-        text = f"{label} {before:.2g} -> {now:.2g} mm/s"
+        text = f"{label} {before:.2g} -> {now:.2g} mm/s r.m.s."
         if before > 0:
             text += f" ({(now - before) / before:+.0%})"
         out.append(text)

@@ -48,7 +48,7 @@ METRICS: dict[str, MetricInfo] = {
     "growth_rate": MetricInfo("within-record growth rate", "1/s"),
     "trend_db_per_day": MetricInfo("half-order trend (at least, 95 % one-sided)", "dB/day"),
     "time_to_limit_days": MetricInfo("forecast time to the danger level (at most)", "days", "below"),
-    "overall_velocity": MetricInfo("overall velocity r.m.s. (ISO 20816 zone)", "mm/s"),
+    "overall_velocity": MetricInfo("overall velocity r.m.s. (ISO 20816 zone)", "mm/s r.m.s."),
     "threshold_margin": MetricInfo("margin to the instability threshold", "", "below"),
     "order_1x_velocity": MetricInfo("1X velocity r.m.s.", "mm/s r.m.s."),
     "order_2x_velocity": MetricInfo("2X velocity r.m.s.", "mm/s r.m.s."),

@@ -49,7 +49,7 @@ def test_escalation_sends_exactly_one_email_with_the_finding(feeder, plant, migr
     html = msg.get_body(preferencelist=("html",)).get_content()
     assert "half-order component at 12.4 Hz (0.50X), 1.6 mm/s r.m.s., growing 0.9 /s" in text
     assert "zone C" in text
-    assert "half-order 1.5 -> 1.6 mm/s (+7%)" in text  # change since the last reading
+    assert "half-order 1.5 -> 1.6 mm/s r.m.s. (+7%)" in text  # change since the last reading
     assert "Forecast:" in text and "danger level" in text
     assert "not known (no operating-window fit" in text
     assert "check for rub" in text and "looseness" in text  # half-order with 1.5X (common practice)

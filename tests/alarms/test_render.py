@@ -55,7 +55,7 @@ def _event(asset="Pump <A&B>"):
 def test_alarm_email_parts_and_escaping():
     subject, text, html = alarm_email([_event()], base_url="https://cm.example.test/")
     assert subject == "[halfwatch] ALERT: Pump <A&B> / DE-H - half-order velocity r.m.s."
-    assert "half-order 1.2 -> 1.6 mm/s (+33%)" in text
+    assert "half-order 1.2 -> 1.6 mm/s r.m.s. (+33%)" in text
     assert "about 12 days to the danger level (2.8 mm/s r.m.s.) at the present trend" in text
     assert "https://cm.example.test/assets/7" in text
     assert "Pump &lt;A&amp;B&gt;" in html and "<A&B>" not in html
