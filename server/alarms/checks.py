@@ -45,22 +45,26 @@ _Z = {0.90: 1.6448536269514722, 0.95: 1.959963984540054}  # standard normal quan
 
 
 def data_quality_problem(
-    result: dict,
+    result,
     *,
     usual_speeds_hz: list[float],
     nominal_forcing_hz: float | None,
     speed_tolerance: float = 0.10,
     nominal_tolerance: float = 0.25,
 ) -> str | None:
-    """A sentence saying why the record is a data-quality problem, or ``None`` when it is fit."""
-    quality = result.get("quality") or {}
-    flags = [str(f) for f in quality.get("flags") or []]
+    """A sentence saying why the record is a data-quality problem, or ``None`` when it is fit.
+
+    ``result`` is the typed result or a stored dict of any version (read through its attributes)."""
+    from .rules import typed_result
+
+    r = typed_result(result)
+    flags = [str(f) for f in r.quality.flags]
     bad = [f for f in flags if f in BLOCKING_FLAGS]
     if bad:
         return "bad data: " + ", ".join(FLAG_WORDS.get(f, f) for f in bad)
-    if quality.get("ok") is False and (not flags or any(f not in NOTE_FLAGS for f in flags)):
+    if r.quality.ok is False and (not flags or any(f not in NOTE_FLAGS for f in flags)):
         return "bad data: " + (", ".join(flags) or "the analysis marked the record unfit")
-    speed = (result.get("forcing") or {}).get("frequency_hz")
+    speed = r.forcing.frequency_hz
     if not isinstance(speed, (int, float)) or not math.isfinite(speed) or speed <= 0:
         return None
     if len(usual_speeds_hz) >= MIN_USUAL_SPEEDS:

@@ -130,13 +130,14 @@ def _evaluate(session: Session, record, result, settings, now: dt.datetime) -> l
     point = read_point(conn, record.point_id)
     status, where = point.status, point.where
     data = _result_data(result)
+    typed = RecordAnalysis.from_dict(data)
     common = {
         "point_id": point.point_id, "asset_id": point.asset_id, "area_id": where["area_id"],
         "site_id": where["site_id"], "record_id": record.id, "result_id": getattr(result, "id", None),
         "created_at": now,
     }
     problem = checks.data_quality_problem(
-        data, usual_speeds_hz=list(status.speeds_hz), nominal_forcing_hz=point.nominal_forcing_hz,
+        typed, usual_speeds_hz=list(status.speeds_hz), nominal_forcing_hz=point.nominal_forcing_hz,
         speed_tolerance=getattr(settings, "alarm_speed_tolerance", 0.10),
         nominal_tolerance=getattr(settings, "alarm_nominal_speed_tolerance", 0.25),
     )
@@ -145,7 +146,7 @@ def _evaluate(session: Session, record, result, settings, now: dt.datetime) -> l
         status.data_quality_open, status.data_quality_reason = True, problem
         write_status(conn, point.point_id, status, now)
         event = AlarmEvent(kind="data-quality", summary=problem,
-                           details={"where": where, "flags": (data.get("quality") or {}).get("flags", [])},
+                           details={"where": where, "flags": list(typed.quality.flags)},
                            **common)
         session.add(event)
         session.flush()
@@ -153,7 +154,6 @@ def _evaluate(session: Session, record, result, settings, now: dt.datetime) -> l
             queue_for_events(session, [event], now=now)
         return [event]
 
-    typed = RecordAnalysis.from_dict(data)
     metrics = result_metrics(typed)
     ts = _measured_ts(record, result)
     old = list(status.history)
@@ -179,8 +179,7 @@ def _evaluate(session: Session, record, result, settings, now: dt.datetime) -> l
     )
     metrics["threshold_margin"], margin_reason = margin.threshold_margin(status, typed)
     status.history = history
-    status.speeds_hz = checks.remember_speed(list(status.speeds_hz), (data.get("forcing") or {})
-                                             .get("frequency_hz"))
+    status.speeds_hz = checks.remember_speed(list(status.speeds_hz), typed.forcing.frequency_hz)
     status.last_metrics = {k: v for k, v in metrics.items() if v is None or math.isfinite(v)}
     status.last_record_id, status.data_quality_open = record.id, False
 
