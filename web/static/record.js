@@ -103,7 +103,7 @@
       marker: { symbol: "diamond", size: 11, color: HW.palette.half, line: { color: "#fff", width: 1 } }, name: `${s.class} line found` });
     return HW.plot("chart-spectrum", traces, {
       xaxis: { title: { text: "frequency (Hz)" }, range: [0, Math.min(fmax, 5.2 * F)] },
-      yaxis: { title: { text: `amplitude (${unit}, peak)` }, type: $("#log-y").checked ? "log" : "linear" }, shapes, hovermode: "x" });
+      yaxis: { title: { text: `acceleration amplitude (${unit} peak)` }, type: $("#log-y").checked ? "log" : "linear" }, shapes, hovermode: "x" });
   }
 
   function bindReadout() {

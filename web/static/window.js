@@ -37,7 +37,7 @@
     if (band && band[0] != null) shapes.push({ type: "rect", x0: band[0], x1: band[1], yref: "paper", y0: 0, y1: 1, fillcolor: "rgba(245,158,11,0.15)", line: { width: 0 }, layer: "below" });
     if (d.today) traces.push({ x: [d.today.forcing_hz], y: [d.today.one_x_accel_peak], type: "scatter", mode: "markers+text", text: ["today"], textposition: "top center",
       marker: { symbol: "star", size: 16, color: "#111827" }, name: "today's operating point" });
-    await HW.plot("chart-window", traces, { xaxis: { title: { text: "forcing frequency 1X (Hz)" } }, yaxis: { title: { text: `1X amplitude (${unit}, peak)` }, rangemode: "tozero" }, shapes });
+    await HW.plot("chart-window", traces, { xaxis: { title: { text: "forcing frequency 1X (Hz)" } }, yaxis: { title: { text: `1X acceleration peak (${unit} peak)` }, rangemode: "tozero" }, shapes });
     $("#chart-window").on("plotly_click", (ev) => { const p = ev.points[0]; if (p && typeof p.customdata === "number") location.assign(`/records/${p.customdata}`); });
     const nums = $("#window-numbers");
     nums.replaceChildren();
