@@ -23,6 +23,15 @@ class Settings(BaseSettings):
     )
 
     db_busy_timeout_ms: int = Field(default=10_000, ge=0, description="SQLite: wait this long for a lock")
+    waveform_store: Literal["database", "files"] = Field(
+        default="database", description="where new raw waveforms go: the database, or content-addressed "
+        "files in waveform_dir (halfwatch waveforms migrate moves existing ones; docs/scale.md)")
+    waveform_dir: Path | None = Field(default=None, description="directory of waveform files; empty means "
+                                      "<data_dir>/waveforms (shared by every API and worker process)")
+    ingest_group_commit: int = Field(default=32, ge=1, le=1000, description="ingest requests committed "
+                                     "together in one transaction at most (1: one each)")
+    api_key_cache_s: float = Field(default=5.0, ge=0, description="an API key lookup is reused this long; a "
+                                   "revoked key is refused within this time (0: look up every request)")
 
     # HTTP service
     host: str = "127.0.0.1"

@@ -78,6 +78,20 @@ class Database:
         self._write_lock = threading.RLock() if self.is_sqlite else nullcontext()
         self._writer = sessionmaker(self.write_engine, expire_on_commit=False)
         self._reader = sessionmaker(self.read_engine, expire_on_commit=False)
+        from server.storage.waveforms import DEFAULT
+
+        self.waveforms = DEFAULT  # the database backend; from_settings() attaches the configured store
+        self.group_commit_max = 32  # ingest requests per transaction at most (server/storage/group_commit.py)
+
+    @classmethod
+    def from_settings(cls, settings) -> Database:
+        """The database of ``settings`` with its waveform store (server/storage/waveforms.py)."""
+        from server.storage import waveforms
+
+        db = cls(settings.database_url, busy_timeout_ms=settings.db_busy_timeout_ms)
+        waveforms.attach(db, waveforms.from_settings(settings))
+        db.group_commit_max = settings.ingest_group_commit
+        return db
 
     @property
     def dialect(self) -> str:

@@ -22,6 +22,7 @@ from sqlalchemy import (
     Text,
     TypeDecorator,
     UniqueConstraint,
+    text,
 )
 from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column, relationship
 
@@ -174,11 +175,17 @@ class Waveform(Base):
     """The samples of one record (kept apart so record queries never drag the blob along)."""
 
     __tablename__ = "waveforms"
+    __table_args__ = (Index("ix_waveforms_digest", "digest", sqlite_where=text("digest IS NOT NULL"),
+                            postgresql_where=text("digest IS NOT NULL")),)
     record_id: Mapped[int] = mapped_column(ForeignKey("records.id", ondelete="CASCADE"), primary_key=True)
     codec: Mapped[str] = mapped_column(String(32))
     data: Mapped[bytes] = mapped_column(LargeBinary)
     source_name: Mapped[str | None] = mapped_column(String(255))
     source_bytes: Mapped[bytes | None] = mapped_column(LargeBinary)  # uploaded file, compressed
+    # where the samples are (server/storage/waveforms.py): "database" (in ``data``) or "files" (``data`` is
+    # empty; the file is named by ``digest``, the SHA-256 of the raw float32 samples)
+    store: Mapped[str] = mapped_column(String(16), default="database", server_default="database")
+    digest: Mapped[str | None] = mapped_column(String(64))
 
 
 class Job(Base):
@@ -207,7 +214,16 @@ class Result(Base):
     """
 
     __tablename__ = "results"
-    __table_args__ = (Index("ix_results_point_ts", "point_id", "current", "measured_ts"),)
+    __table_args__ = (
+        Index("ix_results_point_ts", "point_id", "current", "measured_ts"),
+        # PostgreSQL: the chart columns of current results beside (point, time), so a trend is an index-only
+        # scan (migration 0007; docs/scale.md). SQLite keeps the index above.
+        Index("ix_results_trend_pg", "point_id", "measured_ts", postgresql_where=text("current"),
+              postgresql_include=["record_id", "sub_detected", "sub_velocity_rms_mm_s", "one_x_velocity_rms_mm_s",
+                                  "sub_accel_peak", "one_x_accel_peak", "overall_velocity_rms_mm_s",
+                                  "growth_rate_per_s", "forcing_hz", "precursor_rate_per_s"]).ddl_if(
+            dialect="postgresql"),
+    )
     id: Mapped[int] = mapped_column(primary_key=True)
     record_id: Mapped[int] = mapped_column(ForeignKey("records.id", ondelete="CASCADE"), index=True)
     point_id: Mapped[int] = mapped_column(ForeignKey("points.id", ondelete="CASCADE"))

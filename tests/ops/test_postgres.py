@@ -32,9 +32,21 @@ def _drift(url: str) -> list:
     try:
         with engine.connect() as conn:
             ctx = MigrationContext.configure(conn, opts={"compare_type": True})
-            return [d for d in compare_metadata(ctx, metadata) if not _harmless(d)]
+            return [d for d in compare_metadata(ctx, metadata)
+                    if not _harmless(d) and not _other_backend(d, conn.dialect.name)]
     finally:
         engine.dispose()
+
+
+def _other_backend(diff, dialect: str) -> bool:
+    # an index the code declares for one backend only (Index(...).ddl_if(dialect=...)) is absent elsewhere
+    from server.storage.all_tables import metadata
+
+    if not (isinstance(diff, tuple) and diff[0] == "add_index"):
+        return False
+    declared = [i for t in metadata.tables.values() for i in t.indexes if i.name == diff[1].name]
+    ddl_if = getattr(declared[0], "_ddl_if", None) if declared else None
+    return ddl_if is not None and ddl_if.dialect is not None and ddl_if.dialect != dialect
 
 
 def _harmless(diff) -> bool:
