@@ -197,7 +197,8 @@ def main(argv=None) -> int:
                     lambda pid=pid: c.get(f"/api/v1/dashboard/points/{pid}/series",
                                           params={**q, "max_points": 600, "limit": 20}).raise_for_status(), 1)
             n_rows = len(bare_sql(db, pids[0], t0, t1))
-            answer = c.get(f"/api/v1/points/{pids[0]}/trend", params={**q, "metric": "subharmonic.velocity_rms_mm_s"})
+            answer = c.get(f"/api/v1/points/{pids[0]}/trend",
+                           params={**q, "metric": "subharmonic.velocity_rms_mm_s"})
             n_out = len(answer.json()["t"])
             floor = statistics.median(rows["bare SQL fetch of the same rows"])
             print(f"\none point-year: {n_rows} rows -> {n_out} buckets; medians of {args.runs} "
