@@ -23,7 +23,8 @@ class UsageError(Exception):
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="halfwatch",
-        description="Condition monitoring for subharmonic (0.5X) onset in rotating and reciprocating machines.",
+        description="Condition monitoring for subharmonic (0.5X) onset in rotating and reciprocating "
+        "machines.",
     )
     sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
     for info in sorted(pkgutil.iter_modules(__path__), key=lambda m: m.name):
