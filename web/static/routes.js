@@ -20,10 +20,12 @@
     }
     const s = r.subharmonic || {}, o = r.overall || {};
     box.append(el("div", { class: "notice result-ready", "data-record-id": rec.id },
-      el("strong", {}, s.detected ? `${s.class} line at ${HW.num(s.frequency_hz, 4)} Hz (${HW.num(s.order, 3)}X), ${HW.num(s.velocity_rms_mm_s)} mm/s r.m.s.`
+      el("strong", {},
+        s.detected ? `${s.class} line at ${HW.num(s.frequency_hz, 4)} Hz (${HW.num(s.order, 3)}X), ${HW.num(s.velocity_rms_mm_s)} mm/s r.m.s.`
         : "No subharmonic line found"),
       el("br"), `Overall ${HW.num(o.velocity_rms_mm_s)} mm/s r.m.s. `, HW.zoneBadge(o.zone),
-      ` · forcing ${HW.num((r.forcing || {}).frequency_hz, 4)} Hz · `, el("a", { href: `/records/${rec.id}` }, "open reading")));
+      ` · forcing ${HW.num((r.forcing || {}).frequency_hz, 4)} Hz · `, el("a", { href: `/records/${rec.id}` },
+        "open reading")));
     return false;
   }
 
@@ -41,11 +43,13 @@
     const zone = tz;  // the site zone of this stop's route
     const now = HW.wall(new Date().toISOString(), zone).slice(0, 16).replace(" ", "T");
     const box = el("div", { class: "stop-result", "aria-live": "polite" });
-    const form = el("form", { class: "inline-form stop-upload", "data-point-id": stop.point_id, onsubmit: async (ev) => {
+    const form = el("form", { class: "inline-form stop-upload", "data-point-id": stop.point_id,
+      onsubmit: async (ev) => {
       ev.preventDefault();
       const f = ev.target;
       const fd = new FormData();
-      if (!f.file.files.length) { HW.showError(box, new HW.ApiError(0, "invalid", "choose the reading's file first", "file")); return; }
+      if (!f.file.files.length) { HW.showError(box, new HW.ApiError(0, "invalid", "choose the reading's file first",
+        "file")); return; }
       fd.append("file", f.file.files[0]);
       fd.append("units", f.units.value);
       if (f.speed.value) { fd.append("speed_hz", f.speed.value); fd.append("speed_source", "technician"); }
@@ -53,16 +57,20 @@
       f.querySelector("button").disabled = true;
       try {
         const out = await HW.api(`/api/v1/points/${stop.point_id}/records/file`, { method: "POST", form: fd });
-        box.replaceChildren(el("p", { class: "notice" }, `Stored as reading ${out.record_id}; waiting for the analysis…`));
+        box.replaceChildren(el("p", { class: "notice" },
+          `Stored as reading ${out.record_id}; waiting for the analysis…`));
         await follow(box, out.record_id);
       } catch (e) { box.replaceChildren(el("p", { class: "error" })); HW.showError(box.firstChild, e); }
       finally { f.querySelector("button").disabled = false; }
     } },
-    el("div", {}, el("label", { for: `${base}-file` }, "Reading file"), el("input", { id: `${base}-file`, name: "file", type: "file", accept: ".wav,.csv,.uff,.unv" })),
+    el("div", {}, el("label", { for: `${base}-file` }, "Reading file"), el("input", { id: `${base}-file`, name: "file",
+      type: "file", accept: ".wav,.csv,.uff,.unv" })),
     el("div", {}, el("label", { for: `${base}-units` }, "Units"), el("select", { id: `${base}-units`, name: "units" },
       ["m/s2", "g", "mm/s2"].map((u) => el("option", { value: u, selected: u === (p.units || "m/s2") }, u)))),
-    el("div", {}, el("label", { for: `${base}-speed` }, "Speed (Hz)"), el("input", { id: `${base}-speed`, name: "speed", type: "number", step: "0.01", min: "0", inputmode: "decimal", placeholder: "rev/s" })),
-    el("div", {}, el("label", { for: `${base}-when` }, `Measured (${zone})`), el("input", { id: `${base}-when`, name: "measured", type: "datetime-local", value: now })),
+    el("div", {}, el("label", { for: `${base}-speed` }, "Speed (Hz)"), el("input", { id: `${base}-speed`,
+      name: "speed", type: "number", step: "0.01", min: "0", inputmode: "decimal", placeholder: "rev/s" })),
+    el("div", {}, el("label", { for: `${base}-when` }, `Measured (${zone})`), el("input", { id: `${base}-when`,
+      name: "measured", type: "datetime-local", value: now })),
     el("button", { type: "submit", class: "primary" }, "Upload reading"));
     return [form, box];
   }
@@ -73,12 +81,15 @@
     const form = el("form", { class: "inline-form", onsubmit: async (ev) => {
       ev.preventDefault();
       const input = ev.target.zip;
-      if (!input.files.length) { HW.showError(box, new HW.ApiError(0, "invalid", "choose the route ZIP first", "file")); return; }
+      if (!input.files.length) { HW.showError(box, new HW.ApiError(0, "invalid", "choose the route ZIP first",
+        "file")); return; }
       const fd = new FormData(); fd.append("file", input.files[0]);
       try {
         const rep = await HW.api(`/api/v1/routes/${route.id}/uploads`, { method: "POST", form: fd });
-        box.replaceChildren(el("p", { class: "notice" }, `${rep.accepted} accepted, ${rep.duplicate} already stored, ${rep.rejected} rejected.`),
-          el("table", { class: "grid" }, el("thead", {}, el("tr", {}, ["Row", "Point", "File", "Status", "Result"].map((h) => el("th", { scope: "col" }, h)))),
+        box.replaceChildren(el("p", { class: "notice" },
+          `${rep.accepted} accepted, ${rep.duplicate} already stored, ${rep.rejected} rejected.`),
+          el("table", { class: "grid" }, el("thead", {}, el("tr", {}, ["Row", "Point", "File", "Status",
+            "Result"].map((h) => el("th", { scope: "col" }, h)))),
             el("tbody", {}, rep.rows.map((r) => {
               const cell = el("td", {});
               if (r.record_id) follow(cell, r.record_id);
@@ -86,27 +97,33 @@
                 el("td", {}, r.status === "rejected" ? `rejected: ${r.error.message}` : r.status), cell);
             }))));
       } catch (e) { HW.showError(box, e); }
-    } }, el("div", {}, el("label", { for: id }, "Whole route as ZIP"), el("input", { id, name: "zip", type: "file", accept: ".zip" })),
+    } }, el("div", {}, el("label", { for: id }, "Whole route as ZIP"), el("input", { id, name: "zip", type: "file",
+      accept: ".zip" })),
     el("button", { type: "submit" }, "Upload ZIP"));
     return [form, box];
   }
 
   async function load() {
     let d, tree, sites;
-    try { [d, tree, sites] = await Promise.all([HW.api("/api/v1/routes"), HW.api("/api/v1/tree"), HW.api("/api/v1/dashboard/sites")]); }
+    try { [d, tree, sites] = await Promise.all([HW.api("/api/v1/routes"), HW.api("/api/v1/tree"),
+      HW.api("/api/v1/dashboard/sites")]); }
     catch (e) { HW.showError("#routes-error", e); return; }
     const zones = Object.fromEntries(sites.sites.map((s) => [s.id, s.timezone]));
     for (const s of tree.sites) for (const ar of s.areas) for (const a of ar.assets) for (const p of a.points) pointInfo[p.id] = Object.assign({ asset_id: a.id }, p);
     $("#routes-tz").textContent = "times in each route's site zone";
     const root = $("#routes");
-    root.replaceChildren(...d.routes.map((r) => (tz = zones[r.site_id] || HW.defaultTz()) && el("section", { class: "card route", id: `route-${r.id}`, "data-timezone": tz },
-      el("h2", {}, r.name, el("span", { class: "muted" }, ` · ${r.counts.overdue} overdue, ${r.counts.due} due, ${r.counts.ok} up to date · times in ${tz}`)),
+    root.replaceChildren(...d.routes.map((r) => (tz = zones[r.site_id] || HW.defaultTz()) && el("section",
+      { class: "card route", id: `route-${r.id}`, "data-timezone": tz },
+      el("h2", {}, r.name, el("span", { class: "muted" },
+        ` · ${r.counts.overdue} overdue, ${r.counts.due} due, ${r.counts.ok} up to date · times in ${tz}`)),
       HW.may("technician") ? zipForm(r) : null,
       r.stops.map((st) => el("div", { class: `stop due-${st.status}`, "data-point-id": st.point_id },
         el("div", { class: "pos", "aria-label": `stop ${st.position + 1}` }, st.position + 1),
         el("div", {}, el("h3", {}, el("span", { class: `due due-${st.status}` }, STATUS[st.status] || st.status), " · ",
-          el("a", { href: `/assets/${(pointInfo[st.point_id] || {}).asset_id}?point=${st.point_id}` }, `${st.asset} · ${st.point}`)),
-          el("p", { class: "muted" }, `every ${HW.num(st.due_interval_h / 24, 3)} days · last reading ${HW.when(st.last_measured_at, tz)} · due ${HW.when(st.due_at, tz)}`),
+          el("a", { href: `/assets/${(pointInfo[st.point_id] || {}).asset_id}?point=${st.point_id}` },
+            `${st.asset} · ${st.point}`)),
+          el("p", { class: "muted" },
+            `every ${HW.num(st.due_interval_h / 24, 3)} days · last reading ${HW.when(st.last_measured_at, tz)} · due ${HW.when(st.due_at, tz)}`),
           HW.may("technician") ? stopForm(st) : null))))));
     if (!d.routes.length) root.append(el("p", { class: "muted" }, "No route is defined yet."));
     document.body.dataset.ready = "1";

@@ -26,9 +26,11 @@
     for (const [name, label, type, extra] of fields) {
       const id = `${idp}-${name}`;
       let input;
-      if (Array.isArray(type)) input = el("select", { id, name }, type.map((o) => (Array.isArray(o) ? el("option", { value: o[0] }, o[1]) : el("option", { value: o }, o))));
+      if (Array.isArray(type)) input = el("select", { id, name }, type.map((o) => (Array.isArray(o) ? el("option",
+        { value: o[0] }, o[1]) : el("option", { value: o }, o))));
       else input = el("input", Object.assign({ id, name, type: type || "text" }, extra || {}));
-      f.append(type === "checkbox" ? el("label", { class: "check" }, input, label) : el("div", {}, el("label", { for: id }, label), input));
+      f.append(type === "checkbox" ? el("label", { class: "check" }, input, label) : el("div", {}, el("label",
+        { for: id }, label), input));
     }
     f.append(el("button", { type: "submit", class: "primary" }, title));
     return f;
@@ -36,27 +38,41 @@
 
   function renderPlant() {
     $("#plant-list").replaceChildren(...tree.sites.map((s) => el("div", {}, el("h3", {}, s.name),
-      el("table", { class: "grid" }, el("thead", {}, el("tr", {}, ["Area", "Machine", "Kind", "Nominal speed", "ISO group / support", "Points"].map((h) => el("th", { scope: "col" }, h)))),
-        el("tbody", {}, s.areas.flatMap((ar) => ar.assets.map((a) => el("tr", {}, el("td", {}, ar.name), el("td", {}, el("a", { href: `/assets/${a.id}` }, a.name)),
-          el("td", {}, a.kind), el("td", {}, `${a.nominal_speed_hz} Hz`), el("td", {}, `${a.machine_group} / ${a.foundation}`),
+      el("table", { class: "grid" }, el("thead", {}, el("tr", {}, ["Area", "Machine", "Kind", "Nominal speed",
+        "ISO group / support", "Points"].map((h) => el("th", { scope: "col" }, h)))),
+        el("tbody", {}, s.areas.flatMap((ar) => ar.assets.map((a) => el("tr", {}, el("td", {}, ar.name), el("td", {},
+          el("a", { href: `/assets/${a.id}` }, a.name)),
+          el("td", {}, a.kind), el("td", {}, `${a.nominal_speed_hz} Hz`), el("td", {},
+            `${a.machine_group} / ${a.foundation}`),
           el("td", {}, a.points.map((p) => `${p.name} (${p.units}, ${p.direction})`).join("; ") || "—")))))))));
     const sites = tree.sites.map((s) => [s.id, s.name]);
     const areas = tree.sites.flatMap((s) => s.areas.map((ar) => [ar.id, `${s.name} › ${ar.name}`]));
     const assets = allAssets().map((a) => [a.id, `${a.site.name} › ${a.name}`]);
     const after = (msg) => async () => { done(msg); await reloadTree(); await loadSubs(); };
     $("#plant-forms").replaceChildren(
-      form("site", "Add site", [["name", "Site name"]], async (v) => { await HW.api("/api/v1/sites", { method: "POST", json: v }); await after(`Site ${v.name} added.`)(); }),
-      form("area", "Add area", [["site_id", "Site", sites], ["name", "Area name"]], async (v) => { await HW.api("/api/v1/areas", { method: "POST", json: { site_id: Number(v.site_id), name: v.name } }); await after(`Area ${v.name} added.`)(); }),
-      form("asset", "Add machine", [["area_id", "Area", areas], ["name", "Machine name"], ["kind", "Kind", ["pump", "fan", "compressor", "gearbox", "reciprocating_compressor", "engine", "other"]],
-        ["nominal_speed_hz", "Nominal speed (Hz)", "number", { step: "0.01", min: "0" }], ["machine_group", "ISO group", [["2", "2 (medium)"], ["1", "1 (large)"]]],
-        ["foundation", "Support", ["rigid", "flexible"]], ["forcing_kind", "Forcing", ["shaft", "stroke", "mesh", "other"]], ["forcing_multiplier", "Forcing × speed", "number", { step: "0.01", min: "0", value: "1" }]],
-      async (v) => { await HW.api("/api/v1/assets", { method: "POST", json: Object.assign(v, { area_id: Number(v.area_id), machine_group: Number(v.machine_group), forcing_multiplier: v.forcing_multiplier || 1 }) }); await after(`Machine ${v.name} added.`)(); }),
-      form("point", "Add point", [["asset_id", "Machine", assets], ["name", "Point name"], ["location", "Location"], ["direction", "Direction", ["horizontal", "vertical", "axial", "radial", "other"]],
+      form("site", "Add site", [["name", "Site name"]], async (v) => { await HW.api("/api/v1/sites", { method: "POST",
+        json: v }); await after(`Site ${v.name} added.`)(); }),
+      form("area", "Add area", [["site_id", "Site", sites], ["name", "Area name"]],
+        async (v) => { await HW.api("/api/v1/areas", { method: "POST", json: { site_id: Number(v.site_id),
+        name: v.name } }); await after(`Area ${v.name} added.`)(); }),
+      form("asset", "Add machine", [["area_id", "Area", areas], ["name", "Machine name"], ["kind", "Kind", ["pump",
+        "fan", "compressor", "gearbox", "reciprocating_compressor", "engine", "other"]],
+        ["nominal_speed_hz", "Nominal speed (Hz)", "number", { step: "0.01", min: "0" }], ["machine_group",
+          "ISO group", [["2", "2 (medium)"], ["1", "1 (large)"]]],
+        ["foundation", "Support", ["rigid", "flexible"]], ["forcing_kind", "Forcing", ["shaft", "stroke", "mesh",
+          "other"]], ["forcing_multiplier", "Forcing × speed", "number", { step: "0.01", min: "0", value: "1" }]],
+      async (v) => { await HW.api("/api/v1/assets", { method: "POST", json: Object.assign(v,
+        { area_id: Number(v.area_id), machine_group: Number(v.machine_group),
+        forcing_multiplier: v.forcing_multiplier || 1 }) }); await after(`Machine ${v.name} added.`)(); }),
+      form("point", "Add point", [["asset_id", "Machine", assets], ["name", "Point name"], ["location", "Location"],
+        ["direction", "Direction", ["horizontal", "vertical", "axial", "radial", "other"]],
         ["units", "Units", ["m/s2", "g", "mm/s2"]], ["expected_fs_hz", "Sample rate (Hz)", "number", { min: "0" }]],
-      async (v) => { await HW.api("/api/v1/points", { method: "POST", json: Object.assign(v, { asset_id: Number(v.asset_id) }) }); await after(`Point ${v.name} added.`)(); }));
+      async (v) => { await HW.api("/api/v1/points", { method: "POST", json: Object.assign(v,
+        { asset_id: Number(v.asset_id) }) }); await after(`Point ${v.name} added.`)(); }));
     const sel = $("#rule-point");
     const keep = sel.value;
-    sel.replaceChildren(...allAssets().flatMap((a) => a.points.map((p) => el("option", { value: p.id }, `${a.name} · ${p.name}`))));
+    sel.replaceChildren(...allAssets().flatMap((a) => a.points.map((p) => el("option", { value: p.id },
+      `${a.name} · ${p.name}`))));
     if (keep) sel.value = keep;
   }
 
@@ -65,14 +81,18 @@
     if (!pid) return;
     const d = await HW.api(`/api/v1/alarms/rules?point_id=${pid}`);
     $("#rules-table tbody").replaceChildren(...d.rules.map((r) => {
-      const a = el("input", { type: "number", step: "any", value: r.alert ?? "", "aria-label": `${r.label} alert level`, disabled: r.zone_based });
-      const g = el("input", { type: "number", step: "any", value: r.danger ?? "", "aria-label": `${r.label} danger level`, disabled: r.zone_based });
+      const a = el("input", { type: "number", step: "any", value: r.alert ?? "",
+        "aria-label": `${r.label} alert level`, disabled: r.zone_based });
+      const g = el("input", { type: "number", step: "any", value: r.danger ?? "",
+        "aria-label": `${r.label} danger level`, disabled: r.zone_based });
       const en = el("input", { type: "checkbox", checked: r.enabled, "aria-label": `${r.label} enabled` });
-      return el("tr", { "data-metric": r.metric }, el("td", {}, `${r.label}${r.unit ? ` (${r.unit})` : ""}${r.zone_based ? " — ISO zones" : ""}${r.is_default ? "" : " · changed"}`),
+      return el("tr", { "data-metric": r.metric }, el("td", {},
+        `${r.label}${r.unit ? ` (${r.unit})` : ""}${r.zone_based ? " — ISO zones" : ""}${r.is_default ? "" : " · changed"}`),
         el("td", {}, a), el("td", {}, g), el("td", {}, `${r.k} of ${r.n}`), el("td", {}, en),
         el("td", {}, el("button", { type: "button", onclick: async () => {
           try {
-            const body = { point_id: Number(pid), metric: r.metric, k: r.k, n: r.n, hysteresis: r.hysteresis, enabled: en.checked, zone_based: r.zone_based, direction: r.direction };
+            const body = { point_id: Number(pid), metric: r.metric, k: r.k, n: r.n, hysteresis: r.hysteresis,
+              enabled: en.checked, zone_based: r.zone_based, direction: r.direction };
             if (!r.zone_based) { body.alert = a.value === "" ? null : Number(a.value); body.danger = g.value === "" ? null : Number(g.value); }
             await HW.api("/api/v1/alarms/rules", { method: "PUT", json: body });
             done(`Rule ${r.label} saved.`); loadRules();
@@ -84,15 +104,25 @@
   async function loadSubs() {
     const d = await HW.api("/api/v1/alarms/subscriptions");
     const scopeName = (s) => s.scope === "asset" ? (allAssets().find((a) => a.id === s.scope_id) || {}).name : s.scope === "site" ? (tree.sites.find((x) => x.id === s.scope_id) || {}).name : `area ${s.scope_id}`;
-    $("#subs-table tbody").replaceChildren(...d.subscriptions.map((s) => el("tr", {}, el("td", {}, s.email), el("td", {}, `${s.scope}: ${scopeName(s) || s.scope_id}`),
-      el("td", {}, s.min_level), el("td", {}, s.mode === "digest" ? `daily at ${s.digest_time} ${s.timezone}` : "immediate"),
-      el("td", {}, el("button", { type: "button", onclick: async () => { try { await HW.api(`/api/v1/alarms/subscriptions/${s.id}`, { method: "DELETE" }); done("Subscription ended."); loadSubs(); } catch (e) { fail(e); } } }, "End")))));
-    if (!d.subscriptions.length) $("#subs-table tbody").append(el("tr", {}, el("td", { colspan: 5 }, "No subscription yet.")));
-    const scopes = [...tree.sites.map((s) => [`site:${s.id}`, `site ${s.name}`]), ...allAssets().map((a) => [`asset:${a.id}`, `machine ${a.name}`])];
-    $("#sub-form").replaceChildren(form("sub", "Subscribe", [["email", "Address", "email"], ["scope", "For", scopes], ["min_level", "From level", ["alert", "danger"]], ["mode", "Mode", ["immediate", "digest"]], ["digest_time", "Digest time", "time", { value: "07:00" }]],
+    $("#subs-table tbody").replaceChildren(...d.subscriptions.map((s) => el("tr", {}, el("td", {}, s.email), el("td",
+      {}, `${s.scope}: ${scopeName(s) || s.scope_id}`),
+      el("td", {}, s.min_level), el("td", {},
+        s.mode === "digest" ? `daily at ${s.digest_time} ${s.timezone}` : "immediate"),
+      el("td", {}, el("button", { type: "button",
+        onclick: async () => { try { await HW.api(`/api/v1/alarms/subscriptions/${s.id}`,
+        { method: "DELETE" }); done("Subscription ended."); loadSubs(); } catch (e) { fail(e); } } }, "End")))));
+    if (!d.subscriptions.length) $("#subs-table tbody").append(el("tr", {}, el("td", { colspan: 5 },
+      "No subscription yet.")));
+    const scopes = [...tree.sites.map((s) => [`site:${s.id}`, `site ${s.name}`]),
+      ...allAssets().map((a) => [`asset:${a.id}`, `machine ${a.name}`])];
+    $("#sub-form").replaceChildren(form("sub", "Subscribe", [["email", "Address", "email"], ["scope", "For", scopes],
+      ["min_level", "From level", ["alert", "danger"]], ["mode", "Mode", ["immediate", "digest"]], ["digest_time",
+      "Digest time", "time", { value: "07:00" }]],
       async (v) => {
         const [scope, id] = v.scope.split(":");
-        await HW.api("/api/v1/alarms/subscriptions", { method: "POST", json: { email: v.email || null, scope, scope_id: Number(id), min_level: v.min_level, mode: v.mode, digest_time: v.digest_time || "07:00", timezone: tz } });
+        await HW.api("/api/v1/alarms/subscriptions", { method: "POST", json: { email: v.email || null, scope,
+          scope_id: Number(id), min_level: v.min_level, mode: v.mode, digest_time: v.digest_time || "07:00",
+          timezone: tz } });
         done(`Subscribed ${v.email || "you"}.`); loadSubs();
       }));
   }
@@ -101,27 +131,41 @@
     const d = await HW.api("/api/v1/users");
     const roles = ["viewer", "technician", "engineer", "admin"];
     $("#users-table tbody").replaceChildren(...d.users.map((u) => {
-      const sel = el("select", { "aria-label": `role of ${u.username}`, onchange: async (ev) => { try { await HW.api(`/api/v1/users/${u.id}`, { method: "PATCH", json: { role: ev.target.value } }); done(`${u.username} is now ${ev.target.value}.`); } catch (e) { fail(e); } } },
+      const sel = el("select", { "aria-label": `role of ${u.username}`,
+        onchange: async (ev) => { try { await HW.api(`/api/v1/users/${u.id}`, { method: "PATCH",
+        json: { role: ev.target.value } }); done(`${u.username} is now ${ev.target.value}.`); } catch (e) { fail(e); } } },
         roles.map((r) => el("option", { value: r, selected: r === u.role }, r)));
-      const act = el("input", { type: "checkbox", checked: u.active, "aria-label": `${u.username} active`, onchange: async (ev) => { try { await HW.api(`/api/v1/users/${u.id}`, { method: "PATCH", json: { active: ev.target.checked } }); done(`${u.username} ${ev.target.checked ? "activated" : "deactivated"}.`); } catch (e) { fail(e); } } });
+      const act = el("input", { type: "checkbox", checked: u.active, "aria-label": `${u.username} active`,
+        onchange: async (ev) => { try { await HW.api(`/api/v1/users/${u.id}`, { method: "PATCH",
+        json: { active: ev.target.checked } }); done(`${u.username} ${ev.target.checked ? "activated" : "deactivated"}.`); } catch (e) { fail(e); } } });
       return el("tr", {}, el("td", {}, u.username), el("td", {}, u.email || "—"), el("td", {}, sel), el("td", {}, act));
     }));
-    $("#user-form").replaceChildren(form("user", "Add user", [["username", "User name"], ["email", "Email", "email"], ["password", "Password (8+ characters)", "password", { autocomplete: "new-password" }], ["role", "Role", roles]],
-      async (v) => { await HW.api("/api/v1/users", { method: "POST", json: v }); done(`User ${v.username} added.`); loadUsers(); }));
+    $("#user-form").replaceChildren(form("user", "Add user", [["username", "User name"], ["email", "Email", "email"],
+      ["password", "Password (8+ characters)", "password", { autocomplete: "new-password" }], ["role", "Role", roles]],
+      async (v) => { await HW.api("/api/v1/users", { method: "POST",
+        json: v }); done(`User ${v.username} added.`); loadUsers(); }));
   }
 
   async function loadKeys() {
     const d = await HW.api("/api/v1/apikeys");
     const siteName = (id) => id == null ? "all sites" : (tree.sites.find((s) => s.id === id) || {}).name || id;
-    $("#keys-table tbody").replaceChildren(...d.api_keys.map((k) => el("tr", {}, el("td", {}, k.name), el("td", {}, k.prefix), el("td", {}, k.role), el("td", {}, siteName(k.site_id)),
+    $("#keys-table tbody").replaceChildren(...d.api_keys.map((k) => el("tr", {}, el("td", {}, k.name), el("td", {},
+      k.prefix), el("td", {}, k.role), el("td", {}, siteName(k.site_id)),
       el("td", {}, k.revoked_at ? `revoked ${HW.when(k.revoked_at, tz)}` : HW.when(k.last_used_at, tz)),
-      el("td", {}, k.revoked_at ? "" : el("button", { type: "button", onclick: async () => { try { await HW.api(`/api/v1/apikeys/${k.id}`, { method: "DELETE" }); done(`Key ${k.name} revoked.`); loadKeys(); } catch (e) { fail(e); } } }, "Revoke")))));
-    $("#key-form").replaceChildren(form("key", "Create key", [["name", "Name (e.g. the gateway)"], ["role", "Role", ["technician", "viewer", "engineer", "admin"]], ["site_id", "Site", [["", "all sites"], ...tree.sites.map((s) => [String(s.id), s.name])]]],
+      el("td", {}, k.revoked_at ? "" : el("button", { type: "button",
+        onclick: async () => { try { await HW.api(`/api/v1/apikeys/${k.id}`,
+        { method: "DELETE" }); done(`Key ${k.name} revoked.`); loadKeys(); } catch (e) { fail(e); } } }, "Revoke")))));
+    $("#key-form").replaceChildren(form("key", "Create key", [["name", "Name (e.g. the gateway)"], ["role", "Role",
+      ["technician", "viewer", "engineer", "admin"]], ["site_id", "Site", [["", "all sites"],
+      ...tree.sites.map((s) => [String(s.id), s.name])]]],
       async (v) => {
-        const out = await HW.api("/api/v1/apikeys", { method: "POST", json: { name: v.name, role: v.role, site_id: v.site_id ? Number(v.site_id) : null } });
+        const out = await HW.api("/api/v1/apikeys", { method: "POST", json: { name: v.name, role: v.role,
+          site_id: v.site_id ? Number(v.site_id) : null } });
         const box = $("#key-shown");
         box.hidden = false;
-        box.replaceChildren(el("p", { class: "notice" }, "Copy this key now: it is shown only once and cannot be read back."), el("p", { class: "keyshow", id: "new-key" }, out.key));
+        box.replaceChildren(el("p", { class: "notice" },
+          "Copy this key now: it is shown only once and cannot be read back."), el("p", { class: "keyshow",
+          id: "new-key" }, out.key));
         loadKeys();
       }));
   }
@@ -132,7 +176,8 @@
     try {
       await reloadTree();
       $("#rule-point").addEventListener("change", () => loadRules().catch(fail));
-      await Promise.all([loadRules(), loadSubs(), HW.may("admin") ? loadUsers() : null, HW.may("admin") ? loadKeys() : null]);
+      await Promise.all([loadRules(), loadSubs(), HW.may("admin") ? loadUsers() : null,
+        HW.may("admin") ? loadKeys() : null]);
       document.body.dataset.ready = "1";
     } catch (e) { fail(e); }
   }
