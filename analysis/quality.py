@@ -11,7 +11,18 @@ CLIP_FRACTION = 1e-3  # samples pinned at the extremes (common practice)
 
 
 def flat_line(x: np.ndarray) -> bool:
-    """No signal: zero spread, or at least half the record in runs of one repeated value."""
+    """No signal: zero spread, or at least half the record in runs of one repeated value.
+
+    Parameters
+    ----------
+    x : ndarray
+        The raw record (before detrending), any units.
+
+    Returns
+    -------
+    bool
+        True when the record shows the fault.
+    """
     if float(np.ptp(x)) == 0.0:
         return True
     same = np.count_nonzero(np.diff(x) == 0.0)
@@ -19,7 +30,19 @@ def flat_line(x: np.ndarray) -> bool:
 
 
 def clipping(x: np.ndarray) -> bool:
-    """Samples pinned at the range limits: runs of ≥ 3 equal values at the maximum or minimum."""
+    """Samples pinned at the range limits: runs of ≥ 3 equal values at the maximum or minimum
+    (at least ``CLIP_FRACTION`` of the record; common practice).
+
+    Parameters
+    ----------
+    x : ndarray
+        The raw record (before detrending), any units.
+
+    Returns
+    -------
+    bool
+        True when the record shows the fault.
+    """
     hi, lo = float(np.max(x)), float(np.min(x))
     if hi == lo:
         return False
@@ -33,7 +56,20 @@ def clipping(x: np.ndarray) -> bool:
 
 def dc_jump(x: np.ndarray, n_blocks: int = 32) -> bool:
     """A step in the mean (sensor bias shift, cable fault): an outlying jump between adjacent block means
-    that is also large against the signal RMS."""
+    that is also large against the signal r.m.s.
+
+    Parameters
+    ----------
+    x : ndarray
+        The raw record (before detrending), any units.
+    n_blocks : int
+        Number of blocks whose means are compared.
+
+    Returns
+    -------
+    bool
+        True when the record shows the fault.
+    """
     n = len(x) // n_blocks
     if n < 8:
         return False
@@ -47,7 +83,20 @@ def dc_jump(x: np.ndarray, n_blocks: int = 32) -> bool:
 
 def impulsive(x: np.ndarray, n_blocks: int = 32) -> bool:
     """Impacts: the Pearson kurtosis of some block exceeds IMPULSIVE_KURTOSIS. Blocks keep a growing or
-    beating tone (high kurtosis over the whole record, but smooth) from being taken for impacts."""
+    beating tone (high kurtosis over the whole record, but smooth) from being taken for impacts.
+
+    Parameters
+    ----------
+    x : ndarray
+        The raw record (before detrending), any units.
+    n_blocks : int
+        Number of blocks (each at least 256 samples).
+
+    Returns
+    -------
+    bool
+        True when the record shows the fault.
+    """
     n = max(len(x) // n_blocks, min(len(x), 256))
     nb = len(x) // n
     blocks = x[: nb * n].reshape(nb, n)
@@ -60,6 +109,21 @@ def impulsive(x: np.ndarray, n_blocks: int = 32) -> bool:
 
 
 def quality_flags(raw: np.ndarray, resolution_ok: bool) -> tuple[str, ...]:
+    """The measurement-chain flags of one record.
+
+    Parameters
+    ----------
+    raw : ndarray
+        The raw record as received.
+    resolution_ok : bool
+        Whether the record is long enough to tell 0.48X from 0.5X.
+
+    Returns
+    -------
+    tuple of str
+        Some of ``flat-line``, ``clipping``, ``dc-jump``, ``impulsive``, ``too-short-for-resolution``;
+        a flat line hides the other signal checks.
+    """
     flags = []
     if flat_line(raw):
         flags.append("flat-line")

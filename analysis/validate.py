@@ -40,7 +40,23 @@ MAX_ABS_VALUE = 1.0e9  # 1e9 mm/s² is 1e5 g: larger values are a scaling error,
 
 
 def normalize_units(units: str | None) -> str:
-    """Canonical unit name ("g", "m/s2" or "mm/s2") for the usual spellings; SignalError otherwise."""
+    """Canonical unit name of an acceleration unit.
+
+    Parameters
+    ----------
+    units : str or None
+        A usual spelling of g, m/s² or mm/s².
+
+    Returns
+    -------
+    str
+        ``"g"``, ``"m/s2"`` or ``"mm/s2"``.
+
+    Raises
+    ------
+    SignalError
+        For missing or unknown units (``field="units"``).
+    """
     if units is None:
         raise SignalError("units are missing; give the acceleration units: g, m/s2 or mm/s2", field="units")
     key = str(units).strip().lower()
@@ -51,6 +67,23 @@ def normalize_units(units: str | None) -> str:
 
 
 def validate_sample_rate(fs_hz: float) -> float:
+    """The sample rate as a float within the accepted range.
+
+    Parameters
+    ----------
+    fs_hz : float
+        Sample rate in Hz.
+
+    Returns
+    -------
+    float
+        The rate, between ``MIN_FS_HZ`` and ``MAX_FS_HZ``.
+
+    Raises
+    ------
+    SignalError
+        For a non-number or a rate out of range (``field="sample_rate_hz"``).
+    """
     try:
         fs = float(fs_hz)
     except (TypeError, ValueError):
@@ -69,8 +102,23 @@ def validate_sample_rate(fs_hz: float) -> float:
 def validate_samples(samples, fs_hz: float) -> tuple[np.ndarray, float]:
     """Check a record and return it as a 1-D float64 array with its sample rate.
 
-    Raises SignalError for an empty or multi-column array, non-numeric or non-finite values, a record
-    shorter than MIN_SAMPLES or a sample rate outside [MIN_FS_HZ, MAX_FS_HZ].
+    Parameters
+    ----------
+    samples : array_like
+        One channel of acceleration samples (a single row or column is accepted).
+    fs_hz : float
+        Sample rate in Hz.
+
+    Returns
+    -------
+    tuple
+        (samples as a 1-D float64 ndarray, sample rate in Hz).
+
+    Raises
+    ------
+    SignalError
+        For an empty or multi-column array, non-numeric or non-finite values, values beyond any
+        accelerometer, a record shorter than MIN_SAMPLES or a sample rate outside [MIN_FS_HZ, MAX_FS_HZ].
     """
     fs = validate_sample_rate(fs_hz)
     try:

@@ -11,7 +11,8 @@ import inspect
 
 import pytest
 
-DOCUMENTED = ["analysis.conditioning", "analysis.severity", "analysis.result_compat"]
+DOCUMENTED = ["analysis.conditioning", "analysis.severity", "analysis.result_compat", "analysis.quality",
+              "analysis.validate"]
 FUNCTIONS = ["analysis.pipeline.analyze_record", "analysis.window.threshold_amplitude",
              "analysis.window.threshold_margin"]
 
