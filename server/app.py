@@ -112,9 +112,11 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     for router in discover():
         app.include_router(router)
     app.add_middleware(BodyLimit, settings=settings)
-    from server.hardening import IngestAdmission, LoginThrottle, SecurityHeaders
+    from server.hardening import HashSlots, IngestAdmission, IngestPreAuth, LoginThrottle, SecurityHeaders
 
-    app.state.login_throttle = LoginThrottle(settings.login_max_failures, settings.login_window_s)
+    app.state.login_throttle = LoginThrottle(db, settings.login_max_failures, settings.login_window_s)
+    app.state.hash_slots = HashSlots(settings.login_hash_slots)
+    app.add_middleware(IngestPreAuth, settings=settings, db=db)  # 401/403 from the headers, body unread
     app.add_middleware(IngestAdmission, settings=settings, db=db)  # before the body is read: cheap refusal
     from server.origin import OriginCheck
 

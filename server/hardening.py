@@ -8,10 +8,15 @@
   load instead of piling up memory and latency until the process falls over. It also refuses new
   records while the analysis queue holds ``max_queued_jobs`` or more (workers far behind): the sensors
   keep their data and retry, instead of the backlog growing without bound.
-- :class:`LoginThrottle` counts failed logins per user name and per client address in a sliding
-  window; past the limit the login answers 429 with ``Retry-After`` without checking the password.
+- :class:`LoginThrottle` counts login attempts per user name and per client address in a sliding
+  window, in the database (table ``login_attempts``) so that every API process shares the counts; the
+  attempt is counted *before* the password is hashed, so concurrent attempts cannot slip past the
+  limit. Past the limit the login answers 429 with ``Retry-After`` without checking the password.
   An address (``addr:`` key) may fail four times as often as one user name, since a site's users may
-  share one address behind NAT. The counts live in the process (each API process throttles on its own).
+  share one address behind NAT.
+- :class:`HashSlots` bounds the password hashes being computed at once (``login_hash_slots``); one
+  more waits briefly, then gets 503 with ``Retry-After``. Memory for hashing stays below
+  ``login_hash_slots`` x ``argon2_memory_cost_kib``.
 """
 
 from __future__ import annotations
@@ -19,7 +24,6 @@ from __future__ import annotations
 import json
 import threading
 import time
-from collections import deque
 
 from server.errors import AppError, error_body
 
@@ -129,53 +133,161 @@ class IngestAdmission:
         await send({"type": "http.response.body", "body": body})
 
 
+class IngestPreAuth:
+    """Authenticate ingest requests (records, record files, route uploads) from their headers alone,
+    before a byte of the body is read: no credentials, an unknown or revoked key, or a role below
+    technician is answered at once (401/403) and the body is never read. The routes still authorize
+    as before (CSRF for cookie sessions, site scope); this only keeps unauthenticated bodies out."""
+
+    def __init__(self, app, settings, db=None):
+        self.app = app
+        self.db = db
+
+    async def __call__(self, scope, receive, send):
+        if scope["type"] != "http" or self.db is None or not is_ingest(scope):
+            return await self.app(scope, receive, send)
+        from starlette.concurrency import run_in_threadpool
+
+        try:
+            await run_in_threadpool(self._check, scope)
+        except AppError as exc:
+            return await _answer(send, exc.status, exc.code, exc.message, exc.field,
+                                 [(b"connection", b"close")])
+        except Exception:  # noqa: BLE001 - e.g. a busy database: the route answers it in the one shape
+            pass
+        return await self.app(scope, receive, send)
+
+    def _check(self, scope) -> None:
+        from starlette.requests import Request
+
+        from server.errors import Forbidden, Unauthorized
+        from server.security import (
+            _NO_CREDENTIALS,
+            SESSION_COOKIE,
+            _api_key_from,
+            _principal_from_cookie,
+            _principal_from_key,
+        )
+
+        request = Request(scope)
+        key = _api_key_from(request)
+        token = request.cookies.get(SESSION_COOKIE)
+        principal = (_principal_from_key(self.db, key) if key else
+                     _principal_from_cookie(self.db, token) if token else None)
+        if principal is None:
+            raise Unauthorized(_NO_CREDENTIALS)
+        if not principal.has_role("technician"):
+            raise Forbidden(f"this needs the technician role; you are {principal.role}")
+
+
+async def _answer(send, status: int, code: str, message: str, field, extra_headers=()) -> None:
+    body = json.dumps(error_body(status, code, message, field)).encode()
+    await send({"type": "http.response.start", "status": status,
+                "headers": [(b"content-type", b"application/json"),
+                            (b"content-length", str(len(body)).encode()), *extra_headers]})
+    await send({"type": "http.response.body", "body": body})
+
+
 class TooManyAttempts(AppError):
     status = 429
     code = "too_many_requests"
 
 
 class LoginThrottle:
-    """Failed logins per key (user name, client address) within ``window_s``; thread-safe."""
+    """Login attempts per key (user name, client address) within ``window_s``, shared through the database.
 
-    def __init__(self, max_failures: int, window_s: float, clock=time.monotonic):
+    ``begin(*keys)`` writes one attempt row per key *before* the password is hashed and then counts the
+    rows of each key in the window (its own included): above the key's limit the attempt is refused
+    with 429 and its rows are removed again. Since every attempt that goes on to the hash was written
+    before it counted, N concurrent attempts can never let more than the limit through, in one process
+    or in many. ``succeeded`` removes the attempt and the user name's earlier failures; a failure just
+    stays counted. Times are epoch seconds from ``clock`` (wall clock: shared between processes).
+    """
+
+    PRUNE_EVERY = 200  # attempts between deletions of rows older than the window
+
+    def __init__(self, db, max_failures: int, window_s: float, clock=time.time):
+        self.db = db
         self.max_failures = max_failures
         self.window_s = window_s
         self.clock = clock
-        self._failures: dict[str, deque[float]] = {}
+        self._since_prune = 0
         self._lock = threading.Lock()
-
-    def _recent(self, key: str, now: float) -> deque[float]:
-        q = self._failures.setdefault(key, deque())
-        while q and now - q[0] > self.window_s:
-            q.popleft()
-        return q
 
     def limit(self, key: str) -> int:
         return self.max_failures * (ADDRESS_FACTOR if key.startswith("addr:") else 1)
 
-    def check(self, *keys: str) -> None:
-        """Raise 429 if any key has used up its failures; the password is not even looked at."""
+    def begin(self, *keys: str) -> list[int]:
+        """Count this attempt; raise 429 (+ Retry-After) if any key is over its limit. Returns row ids."""
+        from sqlalchemy import delete, func, select
+
+        from server.logins.tables import LoginAttempt as LA
+
         now = self.clock()
-        with self._lock:
-            waits = []
-            for key in keys:
-                q = self._recent(key, now)
-                if len(q) >= self.limit(key):
-                    waits.append(self.window_s - (now - q[0]))
+        with self.db.unit_of_work() as s:
+            rows = [LA(key=k[:200], at_s=now) for k in keys]
+            s.add_all(rows)
+            s.flush()
+            ids = [r.id for r in rows]
+        with self.db.read() as s:  # after the commit: sees every attempt committed before it
+            counts = s.execute(select(LA.key, func.count(), func.min(LA.at_s))
+                               .where(LA.key.in_([k[:200] for k in keys]), LA.at_s > now - self.window_s)
+                               .group_by(LA.key)).all()
+        waits = [self.window_s - (now - oldest) for key, n, oldest in counts if n > self.limit(key)]
         if waits:
+            self.release(ids)
             wait = max(1, int(max(waits)) + 1)
             raise TooManyAttempts(f"too many failed logins; wait {wait} s before trying again",
                                   field="username", headers={"Retry-After": str(wait)})
-
-    def failed(self, *keys: str) -> None:
-        now = self.clock()
         with self._lock:
-            for key in keys:
-                self._recent(key, now).append(now)
-            if len(self._failures) > 10_000:  # bound the memory under a spray of user names
-                for k in [k for k, q in self._failures.items() if not q or now - q[-1] > self.window_s]:
-                    del self._failures[k]
+            self._since_prune += 1
+            prune = self._since_prune >= self.PRUNE_EVERY
+            if prune:
+                self._since_prune = 0
+        if prune:  # bound the table under a spray of user names
+            with self.db.unit_of_work() as s:
+                s.execute(delete(LA).where(LA.at_s < now - self.window_s))
+        return ids
 
-    def succeeded(self, username_key: str) -> None:
-        with self._lock:
-            self._failures.pop(username_key, None)
+    def release(self, ids: list[int]) -> None:
+        """Forget attempts that never reached the password check."""
+        from sqlalchemy import delete
+
+        from server.logins.tables import LoginAttempt as LA
+
+        with self.db.unit_of_work() as s:
+            s.execute(delete(LA).where(LA.id.in_(ids)))
+
+    def succeeded(self, ids: list[int], username_key: str) -> None:
+        from sqlalchemy import delete, or_
+
+        from server.logins.tables import LoginAttempt as LA
+
+        with self.db.unit_of_work() as s:
+            s.execute(delete(LA).where(or_(LA.id.in_(ids), LA.key == username_key[:200])))
+
+
+class HashSlots:
+    """At most ``n`` password hashes at once (Argon2 takes ``argon2_memory_cost_kib`` each).
+
+    ``acquire`` waits up to ``wait_s`` for a slot, in the calling (threadpool) thread; if none frees
+    up, the login answers 503 with ``Retry-After`` instead of growing memory without bound.
+    """
+
+    def __init__(self, n: int, wait_s: float = 2.0):
+        self.n = n
+        self.wait_s = wait_s
+        self._sem = threading.BoundedSemaphore(n)
+        self.refused = 0
+
+    def acquire(self) -> None:
+        if not self._sem.acquire(timeout=self.wait_s):
+            self.refused += 1
+            from server.errors import Unavailable
+
+            wait = max(1, int(self.wait_s))
+            raise Unavailable(f"{self.n} logins are being checked already; nothing was checked, log in "
+                              f"again after {wait} s", field="username", headers={"Retry-After": str(wait)})
+
+    def release(self) -> None:
+        self._sem.release()

@@ -7,6 +7,8 @@ from typing import Annotated, Literal
 
 from pydantic import AwareDatetime, BaseModel, ConfigDict, Field
 
+from server.names import Name, UserName  # the one control-character rule for names
+
 MachineKind = Literal["pump", "fan", "compressor", "gearbox", "reciprocating_compressor", "engine", "other"]
 
 
@@ -38,19 +40,19 @@ class LoginBody(Strict):
 
 
 class SiteIn(Strict):
-    name: str = Field(min_length=1, max_length=120)
+    name: Name
     description: str = ""
 
 
 class AreaIn(Strict):
     site_id: DbId
-    name: str = Field(min_length=1, max_length=120)
+    name: Name
     description: str = ""
 
 
 class AssetIn(Strict):
     area_id: DbId
-    name: str = Field(min_length=1, max_length=120)
+    name: Name
     kind: MachineKind = "other"
     rated_power_kw: float | None = Field(default=None, gt=0)
     machine_group: Literal[1, 2] = 2
@@ -63,7 +65,7 @@ class AssetIn(Strict):
 
 class PointIn(Strict):
     asset_id: DbId
-    name: str = Field(min_length=1, max_length=120)
+    name: Name
     location: str = ""
     direction: Literal["horizontal", "vertical", "axial", "radial", "other"] = "radial"
     sensitivity_mv_per_unit: float | None = Field(default=None, gt=0)
@@ -78,20 +80,21 @@ class RouteStopIn(Strict):
 
 class RouteIn(Strict):
     site_id: DbId
-    name: str = Field(min_length=1, max_length=120)
+    name: Name
     description: str = ""
     stops: list[RouteStopIn] = Field(default_factory=list, max_length=2000)
 
 
 class UserIn(Strict):
-    username: str = Field(min_length=1, max_length=80, pattern=r"^[A-Za-z0-9_.@-]+$")
-    password: str = Field(min_length=8, max_length=200)
+    username: UserName
+    password: str = Field(min_length=1, max_length=200, description="at least 8 characters; not the user "
+                          "name, not a very common password, not one character repeated")
     role: Literal["viewer", "technician", "engineer", "admin"] = "viewer"
     email: str = ""
 
 
 class ApiKeyIn(Strict):
-    name: str = Field(min_length=1, max_length=120)
+    name: Name
     role: Literal["viewer", "technician", "engineer", "admin"] = "technician"
     site_id: DbId | None = None
 

@@ -60,6 +60,8 @@ class Settings(BaseSettings):
     # login throttling (per user name and per client address)
     login_max_failures: int = Field(default=5, ge=1, description="failed logins allowed per window")
     login_window_s: float = Field(default=900.0, gt=0, description="seconds over which failed logins count")
+    login_hash_slots: int = Field(default=4, ge=1, le=64, description="password hashes at once; each takes "
+                                  "argon2_memory_cost_kib; one more waits 2 s, then 503")
 
     # worker
     worker_poll_s: float = Field(default=0.5, gt=0)

@@ -7,6 +7,13 @@ out another sender takes it again. The SMTP exchange itself cannot be made exact
 is marked sent straight after the server's 250 and every copy carries the same ``Message-ID``.
 Retries back off exponentially (``mail_backoff_s`` x 2^(attempt-1), capped); after
 ``mail_max_attempts`` or a permanent 5xx refusal the row is ``failed`` with the error kept.
+
+A row whose message cannot be built (a stored name or payload that no email can carry, such as old
+data from before the name rule, or a payload missing its event) never stops the others: building
+happens row by row inside its own ``try``; the failure is kept in ``last_error`` and counted in
+``attempts``, and after :data:`BUILD_ATTEMPTS` attempts the row is ``failed``. Header values are
+made single-line and free of control characters (:func:`server.names.header_safe`) whatever the
+stored names hold.
 """
 
 from __future__ import annotations
@@ -24,12 +31,15 @@ from email.utils import formatdate
 
 from sqlalchemy import or_, select, update
 
+from server.names import EMAIL_RE, header_safe, name_problem
 from server.storage.tables import utcnow
 
 from . import render
 from .tables import AlarmEvent, OutboxMessage
 
 log = logging.getLogger(__name__)
+
+BUILD_ATTEMPTS = 3  # house choice: a message that cannot be built fails after this many tries
 
 
 def sender_id() -> str:
@@ -78,10 +88,12 @@ def compose(session, row: OutboxMessage, settings) -> tuple[str, str, str]:
 
 def build_message(row_id: int, recipient: str, message_id: str, subject: str, text: str, html: str,
                   settings) -> EmailMessage:
+    if name_problem(recipient) or not EMAIL_RE.match(recipient):
+        raise ValueError(f"the recipient {recipient!r} is not one plain address")
     msg = EmailMessage()
     msg["From"] = settings.smtp_from
     msg["To"] = recipient
-    msg["Subject"] = subject
+    msg["Subject"] = header_safe(subject, limit=300)
     msg["Date"] = formatdate(localtime=False, usegmt=True)
     msg["Message-ID"] = message_id
     msg["X-Halfwatch-Outbox"] = str(row_id)
@@ -131,27 +143,44 @@ def _retry(db, row_id: int, me: str, attempts: int, error: str, settings, *, per
               next_attempt_at=now + dt.timedelta(seconds=_backoff_s(settings, attempts)))
 
 
+def _prepare(db, settings, ids: list[int], *, me: str, now: dt.datetime | None):
+    """Compose and build each claimed row on its own; a row that fails is retried later or failed."""
+    prepared, broken = [], []
+    with db.unit_of_work() as s:
+        rows = s.scalars(select(OutboxMessage).where(OutboxMessage.id.in_(ids)).order_by(OutboxMessage.id))
+        for row in rows:
+            try:
+                subject, text, html = compose(s, row, settings)
+                msg = build_message(row.id, row.recipient, row.message_id, subject, text, html, settings)
+                msg.as_bytes()  # everything that serialising could refuse is refused here, not mid-send
+            except Exception as exc:  # noqa: BLE001 - any stored value that cannot become an email
+                broken.append((row.id, row.attempts, f"message could not be built: {type(exc).__name__}: "
+                                                     f"{header_safe(exc, limit=500)}"))
+                continue
+            row.subject, row.body_text, row.body_html = msg["Subject"], text, html
+            prepared.append((row.id, row.recipient, row.attempts, msg))
+    for row_id, attempts, error in broken:
+        log.warning("outbox row %s: %s (attempt %s of %s)", row_id, error, attempts, BUILD_ATTEMPTS)
+        _retry(db, row_id, me, attempts, error, settings,
+               permanent=attempts >= min(BUILD_ATTEMPTS, settings.mail_max_attempts), now=now)
+    return prepared
+
+
 def send_claimed(db, settings, ids: list[int], *, me: str, now: dt.datetime | None = None) -> int:
     """Deliver claimed rows over one SMTP connection; returns how many were sent."""
-    prepared = []
-    with db.unit_of_work() as s:
-        for row in s.scalars(select(OutboxMessage).where(OutboxMessage.id.in_(ids))):
-            subject, text, html = compose(s, row, settings)
-            row.subject, row.body_text, row.body_html = subject, text, html
-            prepared.append((row.id, row.recipient, row.message_id, row.attempts, subject, text, html))
+    prepared = _prepare(db, settings, ids, me=me, now=now)
     if not prepared:
         return 0
     try:
         smtp = connect(settings)
     except (OSError, smtplib.SMTPException) as exc:
-        for row_id, _r, _m, attempts, *_ in prepared:
+        for row_id, _r, attempts, _m in prepared:
             _retry(db, row_id, me, attempts, f"SMTP connect: {exc}", settings, permanent=False, now=now)
         log.warning("SMTP server %s:%s unreachable: %s", settings.smtp_host, settings.smtp_port, exc)
         return 0
     sent = 0
     try:
-        for row_id, recipient, message_id, attempts, subject, text, html in prepared:
-            msg = build_message(row_id, recipient, message_id, subject, text, html, settings)
+        for row_id, recipient, attempts, msg in prepared:
             try:
                 smtp.send_message(msg, to_addrs=[recipient])
             except smtplib.SMTPRecipientsRefused as exc:
@@ -166,6 +195,11 @@ def send_claimed(db, settings, ids: list[int], *, me: str, now: dt.datetime | No
             except (OSError, smtplib.SMTPException) as exc:
                 _retry(db, row_id, me, attempts, f"SMTP: {exc}", settings, permanent=False, now=now)
                 break  # the connection is gone; the rest stay claimed until their lease ends
+            except Exception as exc:  # noqa: BLE001 - this row only; the others still go out
+                _retry(db, row_id, me, attempts, f"message could not be sent: {type(exc).__name__}: {exc}",
+                       settings, permanent=attempts >= min(BUILD_ATTEMPTS, settings.mail_max_attempts),
+                       now=now)
+                continue
             _mark(db, row_id, me, status="sent", sent_at=utcnow(), last_error=None)
             sent += 1
     finally:

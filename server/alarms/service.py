@@ -13,6 +13,7 @@ from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 from sqlalchemy import select
 
 from server import audit
+from server.names import EMAIL_RE  # the one address rule (users and subscriptions)
 from server.storage.tables import Area, Asset, Point, Site, utcnow
 
 from .digest import scope_filter
@@ -20,7 +21,6 @@ from .rules import LEVEL_RANK, METRICS, RuleSpec
 from .tables import MODES, SCOPES, AlarmEvent, AlarmPointStatus, AlarmRule, AlarmState, AlarmSubscription
 
 VIEWS = ("active", "acknowledged", "shelved", "all")
-EMAIL_RE = re.compile(r"^[^@\s]+@[^@\s]+\.[^@\s]+$")
 
 
 class AlarmInputError(ValueError):

@@ -8,7 +8,6 @@ from fastapi.responses import JSONResponse
 from pydantic import ValidationError
 from starlette.concurrency import run_in_threadpool
 
-from server.errors import Unauthorized
 from server.schemas import LoginBody
 from server.security import CSRF_COOKIE, SESSION_COOKIE, Principal, optional_principal, require_role
 from server.services import users
@@ -35,16 +34,25 @@ async def login(request: Request):
     except ValidationError as exc:
         raise RequestValidationError([{**e, "loc": ("body", *e["loc"])} for e in exc.errors()]) from None
     app = request.app
-    throttle = app.state.login_throttle
+    throttle, slots = app.state.login_throttle, app.state.hash_slots
     keys = (f"user:{body.username.strip().lower()}", f"addr:{request.client.host if request.client else '-'}")
-    throttle.check(*keys)  # 429 + Retry-After once the failures are used up; the password is not checked
-    try:
-        token, csrf, user = await run_in_threadpool(users.login, app.state.db, app.state.passwords,
-                                                    app.state.settings, body.username, body.password)
-    except Unauthorized:
-        throttle.failed(*keys)
-        raise
-    throttle.succeeded(keys[0])
+
+    def attempt():  # one thread hop: count, wait for a hash slot, check the password
+        ids = throttle.begin(*keys)  # counted before hashing; 429 + Retry-After past the limit
+        try:
+            slots.acquire()  # 503 + Retry-After when every slot stays busy
+        except Exception:
+            throttle.release(ids)
+            raise
+        try:
+            out = users.login(app.state.db, app.state.passwords, app.state.settings, body.username,
+                              body.password)  # Unauthorized: the attempt stays counted
+        finally:
+            slots.release()
+        throttle.succeeded(ids, keys[0])
+        return out
+
+    token, csrf, user = await run_in_threadpool(attempt)
     settings = app.state.settings
     resp = JSONResponse({"ok": True, "user": user, "csrf_token": csrf})
     max_age = int(settings.session_ttl_h * 3600)

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import tempfile
+
 from fastapi import APIRouter, Depends, Request
 from fastapi.responses import JSONResponse
 from starlette.concurrency import run_in_threadpool
@@ -16,6 +18,7 @@ from server.services.route_upload import UploadLimits, upload_route
 from server.storage import tree as tree_queries
 
 router = APIRouter(prefix="/api/v1", tags=["routes"])
+SPOOL_BYTES = 4 * 1024 * 1024  # a route upload keeps at most this much of its body in memory
 
 
 @router.get("/routes", summary="Routes with each point's last reading, due time and status (ok/due/overdue)")
@@ -47,15 +50,20 @@ _ZIP_DOC = {"requestBody": {"required": True, "content": {
              summary="Upload a walked route: ZIP of readings + manifest.csv; a report for every row")
 async def upload(request: Request, route_id: int, principal: Principal = Depends(require_role("technician"))):
     ctype = request.headers.get("content-type", "").split(";")[0].strip().lower()
+    # the ZIP goes to a temporary file past SPOOL_BYTES, never whole into memory (docs/security.md)
     if ctype in ("application/zip", "application/x-zip-compressed", "application/octet-stream"):
-        data = await request.body()
+        data = tempfile.SpooledTemporaryFile(max_size=SPOOL_BYTES)  # noqa: SIM115 - closed below
+        async for chunk in request.stream():
+            data.write(chunk)  # chunks of the socket's size; past SPOOL_BYTES they go to disk
+        data.seek(0)
     elif ctype == "multipart/form-data":
-        form = await request.form()
+        form = await request.form()  # file parts are spooled by the form parser (1 MiB in memory)
         part = form.get("file")
         if part is None or isinstance(part, str):
             raise AppError("the form has no file part named 'file'; attach the ZIP as file", field="file",
                            status=422, code="invalid")
-        data = await part.read()
+        data = part.file
+        data.seek(0)
     else:
         raise AppError(f"content type {ctype!r} is not accepted; send the ZIP as application/zip or as the "
                        "'file' part of a multipart form", field="content-type", status=415,
@@ -68,5 +76,8 @@ async def upload(request: Request, route_id: int, principal: Principal = Depends
         return upload_route(db, route, data, uploader=principal.label, limits=Limits.from_settings(settings),
                             upload_limits=UploadLimits.from_settings(settings), site_scope=principal.site_id)
 
-    report = await run_in_threadpool(work)
+    try:
+        report = await run_in_threadpool(work)
+    finally:
+        data.close()
     return JSONResponse(report, status_code=201 if report["accepted"] else 200)

@@ -24,6 +24,8 @@ import zlib
 from dataclasses import dataclass
 
 from server.errors import AppError, PayloadTooLarge
+from server.names import FIX as NAME_FIX
+from server.names import name_problem
 from server.services.access import point_site_id
 from server.services.ingest import Limits
 from server.services.ingest_files import ingest_file
@@ -62,8 +64,9 @@ def safe_name(name: str) -> str | None:
 class Archive:
     """A ZIP read in memory with bomb guards; ``read(name)`` returns a member's bytes."""
 
-    def __init__(self, data: bytes, limits: UploadLimits):
-        self.fp = io.BytesIO(data)
+    def __init__(self, data, limits: UploadLimits):
+        # bytes, or a seekable binary file (the route upload spools the body to a temporary file)
+        self.fp = io.BytesIO(data) if isinstance(data, bytes | bytearray | memoryview) else data
         try:
             self.zf = zipfile.ZipFile(self.fp)
         except (zipfile.BadZipFile, ValueError):
@@ -216,6 +219,9 @@ def _row(db, route, archive: Archive, row: dict, points: dict[str, int], *, uplo
     member = next((c for c in candidates if c in archive.members), None)
     if member is None:
         raise AppError(f"file {row['file']!r} is not in the ZIP", field="file")
+    problem = name_problem(row["point"])  # the one name rule (server/names.py)
+    if problem is not None:
+        raise AppError(f"point {problem}; {NAME_FIX}", field="point", status=422, code="invalid")
     point_id = points.get(row["point"])
     off_route = False
     if point_id is None:
@@ -241,7 +247,7 @@ def _row(db, route, archive: Archive, row: dict, points: dict[str, int], *, uplo
             "record_id": outcome.record_id, "job_id": outcome.job_id, "off_route": off_route}
 
 
-def upload_route(db, route, data: bytes, *, uploader: str, limits: Limits, upload_limits: UploadLimits,
+def upload_route(db, route, data, *, uploader: str, limits: Limits, upload_limits: UploadLimits,
                  site_scope: int | None) -> dict:
     """Store every row of the ZIP that is good; report each row (accepted, duplicate or rejected)."""
     from analysis.errors import SignalError

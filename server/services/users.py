@@ -3,18 +3,62 @@
 from __future__ import annotations
 
 import datetime as dt
+import functools
 import secrets
+from pathlib import Path
 
 from sqlalchemy import delete, select
 
 from server import audit
 from server.errors import AppError, Conflict, NotFound, Unauthorized
+from server.names import EMAIL_RE, check_name, name_problem
 from server.security import PasswordHashing, new_api_key, token_hash
 from server.storage.tables import ROLES, ApiKey, Site, User, UserSession, utcnow
 
 
 class UserError(AppError):
     pass
+
+
+MIN_PASSWORD = 8
+PASSWORD_RULE = (f"a password needs at least {MIN_PASSWORD} characters, must not contain the user name, "
+                 "must not be one of the very common passwords, and must not be one character repeated")
+
+
+@functools.cache
+def common_passwords() -> frozenset[str]:
+    """The shipped list (server/common_passwords.txt), lower case."""
+    text = (Path(__file__).resolve().parents[1] / "common_passwords.txt").read_text(encoding="utf-8")
+    return frozenset(w.strip().lower() for w in text.splitlines() if w.strip() and not w.startswith("#"))
+
+
+def password_problem(password: str, username: str = "") -> str | None:
+    """None if the password is acceptable, else which rule it breaks."""
+    if len(password) < MIN_PASSWORD:
+        return f"it is shorter than {MIN_PASSWORD} characters"
+    if len(set(password)) == 1:
+        return "it is one character repeated"
+    if username and username.strip().lower() in password.lower():
+        return "it contains the user name"
+    if password.lower() in common_passwords():
+        return "it is one of the very common passwords"
+    return None
+
+
+def password_rule(password: str, username: str = "") -> None:
+    problem = password_problem(password, username)
+    if problem is not None:
+        raise UserError(f"password refused: {problem}; {PASSWORD_RULE}", field="password", status=422,
+                        code="invalid")
+
+
+def check_email(email: str, field: str = "email") -> str:
+    """'' (no address) or one plain address like planner@example.com."""
+    email = (email or "").strip()
+    if email and (not EMAIL_RE.match(email) or len(email) > 200 or name_problem(email)):
+        raise UserError(f"{field}: give one address like planner@example.com, or leave it empty",
+                        field=field, status=422, code="invalid")
+    return email
 
 
 def _user_dict(u: User) -> dict:
@@ -25,8 +69,9 @@ def add_user(db, settings, *, username: str, password: str, role: str, email: st
              hashing: PasswordHashing | None = None, actor: str = "cli") -> dict:
     if role not in ROLES:
         raise UserError(f"role {role!r} is not one of {', '.join(ROLES)}", field="role")
-    if len(password) < 8:
-        raise UserError("the password is shorter than 8 characters", field="password")
+    check_name(username, "username")
+    email = check_email(email)
+    password_rule(password, username)
     hashing = hashing or PasswordHashing(settings)
     with db.unit_of_work() as s:
         if s.scalar(select(User.id).where(User.username == username)) is not None:
@@ -99,6 +144,7 @@ def create_api_key(db, *, name: str, role: str = "technician", site: str | int |
     """Create a key; returns (the full key — shown once, never stored —, its public description)."""
     if role not in ROLES:
         raise UserError(f"role {role!r} is not one of {', '.join(ROLES)}", field="role")
+    check_name(name, "name")
     key, prefix, digest = new_api_key()
     with db.unit_of_work() as s:
         site_id = None

@@ -1,0 +1,139 @@
+"""Input rules of issue 16: names without control characters, passwords, user emails, and friends.
+
+The forbidden characters are Unicode's control characters (general category Cc: U+0000-U+001F and
+U+007F-U+009F) and the bidirectional embedding/override/isolate formatting characters of UAX #9
+(U+202A-U+202E, U+2066-U+2069). The checks compare against ``unicodedata`` (the Python standard
+library's copy of the Unicode Character Database) as the outside reference.
+"""
+
+from __future__ import annotations
+
+import unicodedata
+
+import pytest
+
+from server.names import NameRefused, check_name, header_safe, name_problem
+
+HOSTILE = ["CW pump\r\nBcc: x@evil.example", "line\nbreak", "nul\x00", "tab\there", "c1\x85next",
+           "bidi \u202eevil", "isolate \u2066x\u2069", "del\x7f"]
+BIDI = {*range(0x202A, 0x202F), *range(0x2066, 0x206A)}
+
+
+def test_the_rule_is_exactly_unicode_controls_and_bidi_marks():
+    for cp in range(0x3000):  # the whole BMP start: Latin, Greek, Cyrillic, punctuation, bidi block
+        ch = chr(cp)
+        forbidden = unicodedata.category(ch) == "Cc" or cp in BIDI  # UCD general category; UAX #9 marks
+        assert (name_problem(f"a{ch}b") is not None) == forbidden, hex(cp)
+    assert name_problem("Pompe n° 3 – côté accouplement") is None  # ordinary non-ASCII text is fine
+
+
+def _create(c, plant, kind: str, name: str):
+    bodies = {
+        "sites": {"name": name},
+        "areas": {"site_id": plant.site_id, "name": name},
+        "assets": {"area_id": plant.area_id, "name": name, "nominal_speed_hz": 24.75},
+        "points": {"asset_id": plant.asset_ids["pump"], "name": name},
+        "routes": {"site_id": plant.site_id, "name": name},
+        "users": {"username": name, "password": "a long enough secret"},
+        "apikeys": {"name": name},
+    }
+    return c.post(f"/api/v1/{kind}", json=bodies[kind])
+
+
+@pytest.mark.parametrize("kind", ["sites", "areas", "assets", "points", "routes", "users", "apikeys"])
+def test_every_name_refuses_control_characters_with_a_422_naming_the_field(users, plant, kind):
+    c = users.login("admin")
+    for name in HOSTILE:
+        r = _create(c, plant, kind, name)
+        assert r.status_code == 422, (kind, name, r.text)
+        err = r.json()["error"]
+        field = "username" if kind == "users" else "name"
+        assert err["field"] == field, err
+        assert "control character U+" in err["message"] and "remove control characters" in err["message"]
+    assert _create(c, plant, kind, "Cooling tower fan 4" if kind != "users" else "ct.fan4").status_code == 201
+
+
+def test_updates_refuse_them_too(users, plant):
+    c = users.login("admin")
+    r = c.put(f"/api/v1/assets/{plant.asset_ids['pump']}", json={"area_id": plant.area_id,
+              "name": "CW pump 1\u202e", "nominal_speed_hz": 24.75})
+    assert r.status_code == 422 and r.json()["error"]["field"] == "name"
+
+
+def test_every_orm_write_of_a_name_is_guarded(migrated_db, hw_settings):
+    """CLI, demo and services write through the ORM: the same rule refuses there (NameRefused, a 422)."""
+    from server.services.users import add_user, create_api_key
+    from server.storage.tables import Asset, Site
+
+    with pytest.raises(NameRefused, match="U\\+000A"):
+        Site(name="Riverside\nworks")
+    site = Site(name="ok")
+    with pytest.raises(NameRefused, match="U\\+202E"):
+        site.name = "ok\u202e"
+    with pytest.raises(NameRefused):
+        Asset(name="pump\x00")
+    with pytest.raises(NameRefused, match="username"):
+        add_user(migrated_db, hw_settings, username="bad\rname", password="a long enough secret",
+                 role="viewer")
+    with pytest.raises(NameRefused):
+        create_api_key(migrated_db, name="gateway\nB")
+    assert check_name("Boiler feed pump", "name") == "Boiler feed pump"
+
+
+def test_header_safe_gives_one_clean_line():
+    assert header_safe("CW pump 1\r\nBcc: x@evil.example") == "CW pump 1 Bcc: x@evil.example"
+    assert header_safe("a\u202eb\x85c") == "a b c"
+
+
+def test_route_manifest_rows_naming_a_point_with_control_characters_are_refused(users, plant):
+    import io
+    import zipfile
+
+    buf = io.BytesIO()
+    with zipfile.ZipFile(buf, "w") as zf:
+        zf.writestr("manifest.csv", 'point,measured_at,file\n"P1-DE-H\u202e",2026-11-02T08:00:00Z,a.csv\n')
+        zf.writestr("a.csv", "0.0\n" * 10)
+    c = users.login("technician")
+    r = c.post(f"/api/v1/routes/{plant.route_id}/uploads", content=buf.getvalue(),
+               headers={"Content-Type": "application/zip"})
+    assert r.status_code == 200, r.text
+    [row] = r.json()["rows"]
+    assert row["status"] == "rejected", row
+    assert row["error"]["field"] == "point" and "U+202E" in row["error"]["message"], row
+
+
+@pytest.mark.parametrize(("password", "rule"), [
+    ("short1", "shorter than 8 characters"),
+    ("aaaaaaaaaaaa", "one character repeated"),
+    ("xx-planner9-xx", "contains the user name"),
+    ("Password123", "one of the very common passwords"),
+    ("qwertyuiop", "one of the very common passwords"),
+])
+def test_weak_passwords_are_refused_and_the_error_states_the_rule(users, password, rule):
+    c = users.login("admin")
+    r = c.post("/api/v1/users", json={"username": "planner9", "password": password})
+    assert r.status_code == 422, r.text
+    err = r.json()["error"]
+    assert err["field"] == "password" and rule in err["message"], err
+    assert "at least 8 characters, must not contain the user name" in err["message"]  # the whole rule
+    assert c.post("/api/v1/users", json={"username": "planner9",
+                                         "password": "valve train 73 hums"}).status_code == 201
+
+
+def test_the_common_password_list_ships_with_the_package():
+    from server.services.users import common_passwords
+
+    words = common_passwords()
+    assert "password" in words and "12345678" in words and len(words) > 100
+
+
+@pytest.mark.parametrize("email", ["not-an-address", "a@b", "x@example.com\r\nBcc: y@evil.example",
+                                   "two@example.com three@example.com"])
+def test_user_emails_are_validated(users, email):
+    c = users.login("admin")
+    r = c.post("/api/v1/users", json={"username": "planner8", "password": "valve train 73 hums",
+                                      "email": email})
+    assert r.status_code == 422 and r.json()["error"]["field"] == "email", r.text
+    ok = c.post("/api/v1/users", json={"username": "planner8", "password": "valve train 73 hums",
+                                       "email": "planner8@example.com"})
+    assert ok.status_code == 201 and ok.json()["user"]["email"] == "planner8@example.com"
