@@ -83,6 +83,11 @@ def record_detail(s, record_id: int) -> dict:
                                                 **upgrade_result_dict(json.loads(res.data))}}
 
 
+#: what the chart arrays of a stored result are (their names are those of the stored blobs)
+SPECTRUM_MEASURES = {"amplitude_measure": "acceleration peak of a sine, record units",
+                     "envelope_measure": "acceleration peak envelope of the subharmonic band, record units"}
+
+
 def record_spectrum(s, record_id: int) -> dict:
     get_record(s, record_id)
     res = current_result(s, record_id)
@@ -90,7 +95,8 @@ def record_spectrum(s, record_id: int) -> dict:
         raise NotFound(f"record {record_id} has no analysis result yet; check its job", field="record_id")
     meta, arrays = unpack_arrays(res.spectrum)
     return {"ok": True, "record_id": record_id, "result_id": res.id, **meta,
-            "forcing_hz": res.forcing_hz, **{k: v.tolist() for k, v in arrays.items()}}
+            "forcing_hz": res.forcing_hz, **{k: v.tolist() for k, v in arrays.items()},
+            **SPECTRUM_MEASURES}
 
 
 def min_max_decimate(y: np.ndarray, max_points: int) -> tuple[np.ndarray, np.ndarray]:
@@ -210,5 +216,6 @@ def waterfall(s, point_id: int, n: int) -> dict:
         meta, arrays = unpack_arrays(res.spectrum)
         spectra.append({"record_id": res.record_id, "measured_at": iso(measured_at), "speed_hz": speed,
                         "forcing_hz": res.forcing_hz, "freqs_hz": arrays["freqs_hz"].tolist(),
-                        "amplitude": arrays["amplitude"].tolist(), "units": meta.get("units")})
+                        "amplitude": arrays["amplitude"].tolist(), "units": meta.get("units"),
+                        "amplitude_measure": SPECTRUM_MEASURES["amplitude_measure"]})
     return {"ok": True, "point_id": point_id, "spectra": spectra}

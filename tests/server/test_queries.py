@@ -107,6 +107,7 @@ def test_waveform_decimation_keeps_extremes_and_result_endpoints(app, client, pl
     spec = client.get(f"/api/v1/records/{out.record_id}/spectrum", headers=plant_key_headers).json()
     f, amp = np.array(spec["freqs_hz"]), np.array(spec["amplitude"])
     assert len(f) <= 2048 and spec["units"] == "m/s2"
+    assert spec["amplitude_measure"] == "acceleration peak of a sine, record units"  # the answer names it
     # the 0.5X line of our own 0.3 m/s2 tone at 12.375 Hz is the largest line below 20 Hz
     low = f < 20
     assert f[low][np.argmax(amp[low])] == pytest.approx(12.375, abs=0.2)

@@ -183,5 +183,6 @@ def test_trend_metric_names_say_their_measure_and_old_names_still_answer(client,
     assert new["value"] == pytest.approx(list(amp)) and old["value"] == new["value"]
     assert old["metric"] == "subharmonic.accel_peak"  # the answer names the measure
     default = c.get(f"/api/v1/points/{plant.point_id}/trend", params=q).json()
-    assert default["metric"] == "subharmonic.velocity_rms_mm_s" and default["value"] == pytest.approx(list(amp
-    * 2))
+    assert default["metric"] == "subharmonic.velocity_rms_mm_s"
+    assert default["value"] == pytest.approx(list(amp * 2))
+
