@@ -9,7 +9,6 @@ from __future__ import annotations
 
 from fastapi import APIRouter, Depends, Query, Request
 from fastapi.responses import JSONResponse
-from pydantic import AwareDatetime
 from sqlalchemy import select
 
 from server.answers import SeriesAnswer, WindowAnswer
@@ -18,6 +17,7 @@ from server.services import dashboard as dashboard_service
 from server.services import series
 from server.storage import tree as tree_queries
 from server.storage.tables import Area, Asset, Point, Site
+from server.times import ApiTime
 
 router = APIRouter(prefix="/api/v1/dashboard", tags=["dashboard"])
 viewer = require_role("viewer")
@@ -94,8 +94,8 @@ def asset_detail(request: Request, asset_id: int, principal: Principal = Depends
 @router.get("/points/{point_id}/series", summary="Chart series of a point, bucketed to <= max_points",
             response_model=SeriesAnswer)
 def point_series(request: Request, point_id: int,
-                 start: AwareDatetime | None = Query(None, description="default: 30 days before end"),
-                 end: AwareDatetime | None = Query(None, description="default: now"),
+                 start: ApiTime | None = Query(None, description="default: 30 days before end"),
+                 end: ApiTime | None = Query(None, description="default: now"),
                  max_points: int = Query(600, ge=10, le=5000),
                  limit: float | None = Query(None, gt=0, description="level for the forecast, mm/s r.m.s.; "
                                              "default: the point's half-order danger level"),
@@ -116,8 +116,8 @@ def record_bundle(request: Request, record_id: int, principal: Principal = Depen
             summary="Readings in (forcing frequency, 1X acceleration peak) and the fit",
             response_model=WindowAnswer)
 def operating_window(request: Request, point_id: int,
-                     start: AwareDatetime | None = Query(None, description="default: 365 days before end"),
-                     end: AwareDatetime | None = Query(None),
+                     start: ApiTime | None = Query(None, description="default: 365 days before end"),
+                     end: ApiTime | None = Query(None),
                      max_readings: int = Query(3000, ge=10, le=20000),
                      principal: Principal = Depends(viewer)):
     return JSONResponse(dashboard_service.window_view(request.app.state.db, request.app.state.settings,

@@ -29,10 +29,11 @@ def test_a_time_outside_the_utc_range_is_a_422_naming_the_field(client, plant, p
                    headers=plant_key_headers)
     assert r.status_code == 422, r.text
     assert r.json()["error"]["field"] == "before" and "UTC" in r.json()["error"]["message"]
-    for name in ("start", "end"):
-        r = client.get(f"/api/v1/points/{plant.point_id}/trend", params={name: value},
-                       headers=plant_key_headers)
-        assert r.status_code == 422 and r.json()["error"]["field"] == name, r.text
+    for path in ("/api/v1/points/{}/trend", "/api/v1/dashboard/points/{}/series",
+                 "/api/v1/dashboard/points/{}/window"):
+        for name in ("start", "end"):
+            r = client.get(path.format(plant.point_id), params={name: value}, headers=plant_key_headers)
+            assert r.status_code == 422 and r.json()["error"]["field"] == name, (path, r.text)
 
 
 @pytest.mark.parametrize("value", EDGE_TIMES)
