@@ -26,6 +26,7 @@ from .growth_fit import (  # noqa: F401  (ols and hac_stderr are imported from h
     log_envelope_fit,
     ols,
 )
+from .growth_onset import OnsetFit, fit_onset, log_amplitude
 from .results import Growth, Spectrum
 from .spectrum import f_isf
 
@@ -227,7 +228,23 @@ def estimate_growth(
     blk = block_envelope(core, n_block)
     t_blk = (trim + (np.arange(len(blk)) + 0.5) * n_block) / fs
     noise_var = _band_noise_var(spec, sos, lo, hi)
+    # model comparison first (methods note §9.3): a steady line that starts growing part-way is fitted
+    # by the change-point model over the whole record; the saturation guard below looks for levelling
+    # off only after the onset (a steady line before it is not saturation)
+    cp = _onset_fit(y, fs, trim, n_block, t_blk, blk, 2.0 * noise_var, b)
+    if (
+        cp is not None
+        and cp.model.startswith("change-point")
+        and cp.onset_s is not None
+        and cp.n_before >= MIN_POINTS
+        and (cp.ci95_per_s[0] or 0.0) > 0.0
+    ):
+        # the level before the onset is seen (not just the first few samples of an exponential record,
+        # which the window fit below handles with its SNR gates)
+        return _change_point_growth(cp, (lo, hi), n / fs - trim / fs, 2.0 * noise_var), env_t, env
     snr_ok = blk**2 >= 2.0 * noise_var * (1.0 + 10 ** (MIN_SNR_DB / 10))
+    if cp is not None and cp.onset_s is not None:
+        snr_ok &= t_blk >= cp.onset_s
     # a single block dipping below the gate between two good ones does not end the run
     bridged = snr_ok.copy()
     bridged[1:-1] |= snr_ok[:-2] & snr_ok[2:]
@@ -294,8 +311,81 @@ def estimate_growth(
         n_points=len(t),
         note="envelope levels off after the fit window" if levelled else "",
         end_amplitude=float(np.exp(intercept + slope * i1 / fs)),
+        model="exponential",
     )
     return g, env_t, env
+
+
+def _onset_fit(
+    y: np.ndarray,
+    fs: float,
+    trim: int,
+    n_block: int,
+    t_blk: np.ndarray,
+    blk: np.ndarray,
+    noise_power: float,
+    band_hz: float,
+) -> OnsetFit | None:
+    """Envelope samples every 1.5/B s over the trimmed record and the BIC choice of model.
+
+    The analytic signal is taken of the band signal divided by its block envelope (interpolated in log),
+    so one FFT holds a small dynamic range (pitfall P1); the envelope is multiplied back afterwards.
+    """
+    if len(blk) < 16 or np.any(blk <= 0):
+        return None
+    t = np.arange(len(y)) / fs
+    gain = np.exp(-np.interp(t, t_blk, np.log(blk)))
+    n_fft = sfft.next_fast_len(len(y), real=True)
+    env = np.abs(analytic(y * gain, n_fft)[: len(y)]) / gain
+    idx = np.arange(trim + n_block // 2, len(y) - trim, n_block)
+    e = env[idx]
+    # the spectrum's floor near a strong growing line is lifted by the line's own spread (a non-stationary
+    # line is not one bin wide); the quietest stretch of the record bounds the band noise from above:
+    # |z|² of band noise alone is exponential, median N·ln 2
+    w = MIN_POINTS + 2
+    if len(e) >= 2 * w:
+        runs = np.median(np.lib.stride_tricks.sliding_window_view(e * e, w), axis=1)
+        noise_power = min(noise_power, float(np.min(runs)) / np.log(2.0)) if noise_power > 0 else noise_power
+    return fit_onset(idx / fs, e, noise_power, band_hz)
+
+
+def _change_point_growth(cp: OnsetFit, band: tuple[float, float], t_end: float, noise_power: float) -> Growth:
+    """Growth result of a change-point model: the rate after the onset, its interval, the onset.
+
+    With a steady line at least MIN_SNR_DB over the band noise before it, the onset is the change point
+    (with its interval); a line that grows out of the noise has no visible change point, and its onset is
+    where the fitted envelope crosses the noise level (as for the exponential fit)."""
+    lam = float(cp.rate_per_s or 0.0)
+    lo, hi = cp.ci95_per_s
+    assert lo is not None and hi is not None and cp.onset_s is not None
+    state = "growing" if lo > 0 else "decaying" if hi < 0 else "steady"
+    end = cp.level_off_s if cp.level_off_s is not None and cp.level_off_s < t_end else t_end
+    steady_line = noise_power <= 0 or 2.0 * cp.log_level >= np.log(noise_power * 10 ** (MIN_SNR_DB / 10))
+    onset, onset_ci = float(cp.onset_s), cp.onset_ci95_s
+    start = onset
+    note = "steady line, then growth from the onset"
+    if not steady_line:
+        onset = cp.onset_s + (0.5 * np.log(noise_power) - cp.log_level) / lam if lam > 0 else cp.onset_s
+        onset_ci = (None, None)
+        start = max(float(onset), float(cp.onset_s))
+        note = "grows out of the noise"
+    if cp.model == "change-point-levelling":
+        note += "; the envelope levels off"
+    return Growth(
+        rate_per_s=lam,
+        ci95_per_s=(float(lo), float(hi)),
+        onset_s=float(onset),
+        state=state,
+        intercept=float(cp.log_level - lam * cp.onset_s),
+        fit_window_s=(float(start), float(end)),
+        band_hz=band,
+        n_points=cp.n_points,
+        note=note,
+        end_amplitude=float(np.exp(log_amplitude(cp, np.array([end]))[0])),
+        model=cp.model,
+        onset_ci95_s=onset_ci,
+        level_off_s=cp.level_off_s,
+    )
 
 
 def chart_envelope(

@@ -188,6 +188,11 @@ class Growth:
     n_points: int = 0
     note: str = ""
     end_amplitude: float | None = None  # fitted envelope (peak, input units) at the end of the fit window
+    #: envelope model the rate comes from: "flat" | "exponential" | "change-point" | "change-point-levelling"
+    #: ("" for results made before models were compared); chosen by BIC (analysis.growth_onset)
+    model: str = ""
+    onset_ci95_s: tuple[float | None, float | None] = (None, None)  # change-point models only
+    level_off_s: float | None = None  # levelling model: where the slope has fallen to half its initial value
 
     @property
     def doubling_time_s(self) -> float | None:
@@ -209,6 +214,10 @@ class Growth:
             "band_hz": [_num(v) for v in self.band_hz],
             "n_points": int(self.n_points),
             "note": self.note,
+            "model": self.model,
+            "model_criterion": "BIC" if self.model else "",
+            "onset_ci95_s": [_num(v) for v in self.onset_ci95_s],
+            "level_off_s": _num(self.level_off_s),
         }
 
 

@@ -309,3 +309,16 @@ def two_mode_ode(
     acc1 = -2 * mu1 * v1 - w1**2 * u1 - al1 * u1 * u2
     acc2 = -2 * mu2 * v2 - w2**2 * u2 - al2 * u1**2 + f_t * np.cos(big_w * t)
     return u1, u2, acc1, acc2
+
+
+def onset_envelope(
+    t: np.ndarray, a0: float, rate_per_s: float, onset_s: float, a_sat: float | None = None
+) -> np.ndarray:
+    """Peak amplitude of a steady line that starts growing at ``onset_s``: a0 before, a0·e^{λ(t - t0)} after,
+    optionally levelling off by the Landau form A' = λA(1 - A²/A_sat²) (closed form, A_sat > a0)."""
+    s = np.maximum(np.asarray(t, dtype=float) - onset_s, 0.0)
+    x = 2.0 * rate_per_s * s
+    if a_sat is None:
+        return a0 * np.exp(0.5 * x)
+    q = (a0 / a_sat) ** 2
+    return a0 * np.exp(0.5 * (x - np.logaddexp(np.log1p(-q), np.log(q) + x)))

@@ -15,6 +15,9 @@ Kinds (``KINDS``):
 ``half-order``    steady 0.5X with 1.5X and 2.5X (rub or looseness), locked to speed, no growth.
 ``whirl``         sub-synchronous line at 0.40-0.47X that wanders (not locked to speed).
 ``speed-drift``   healthy machine whose speed drifts slowly (default +2 % over the record).
+``onset-growth``  a steady 0.5X line (``sub_amp_g``, 0.02 g; 0 for none) that starts growing at
+                  ``growth_per_s`` (0.5 1/s) from ``onset_s`` (half the record) on, levelling off at
+                  ``sat_amp_g`` when given (Landau form); with no steady line it grows from ``seed_amp_g``.
 """
 
 from __future__ import annotations
@@ -29,7 +32,7 @@ from analysis.stability import floquet_growth, threshold_floquet
 
 __all__ = ["KINDS", "SimulatedRecord", "simulate"]
 
-KINDS = ("healthy", "parametric", "two-mode", "half-order", "whirl", "speed-drift")
+KINDS = ("healthy", "parametric", "two-mode", "half-order", "whirl", "speed-drift", "onset-growth")
 NOTE = "invented record from the halfwatch simulator; not a measurement"
 
 
@@ -179,6 +182,8 @@ def simulate(
         sub = _half_order(b, p)
     elif kind == "whirl":
         sub = _whirl(b, p)
+    elif kind == "onset-growth":
+        sub = _onset_growth(b, p, dur)
     elif kind == "parametric":
         sub = _parametric(b, p, fw)
     else:
@@ -202,6 +207,44 @@ def _half_order(b: _Builder, p: dict) -> dict:
         "amplitude": amp,
         "growth_rate_per_s": 0.0,
         "onset_s": None,
+        "locked": True,
+    }
+
+
+def _onset_growth(b: _Builder, p: dict, dur: float) -> dict:
+    steady = _positive("sub_amp_g", p.pop("sub_amp_g", 0.02), allow_zero=True)
+    a0 = steady if steady > 0 else _positive("seed_amp_g", p.pop("seed_amp_g", 1e-4))
+    p.pop("seed_amp_g", None)
+    lam = _positive("growth_per_s", p.pop("growth_per_s", 0.5))
+    t0 = float(p.pop("onset_s", 0.5 * dur))
+    if not 0.0 <= t0 < dur:
+        raise ValueError(f"onset_s must lie within the record (0 to {dur:g} s), got {t0}")
+    sat = p.pop("sat_amp_g", None)
+    sat = None if sat is None else _positive("sat_amp_g", sat)
+    if sat is not None and sat <= a0:
+        raise ValueError("sat_amp_g must exceed the starting amplitude")
+    b.background(p)
+    env = sm.onset_envelope(b.t, a0, lam, t0, sat)
+    b.x += env * np.cos(0.5 * b.phase + b.rng.uniform(0, 2 * math.pi))
+    b.lines.append(
+        {
+            "name": "0.5X",
+            "order": 0.5,
+            "frequency_hz": 0.5 * b.truth["forcing_hz"],
+            "amplitude": float(env[-1]),
+            "locked": True,
+        }
+    )
+    return {
+        "present": True,
+        "class": "half-order",
+        "frequency_hz": 0.5 * b.truth["forcing_hz"],
+        "order": 0.5,
+        "amplitude": float(env[-1]),
+        "steady_amp_g": steady,
+        "growth_rate_per_s": lam,
+        "onset_s": t0,
+        "sat_amp_g": sat,
         "locked": True,
     }
 
