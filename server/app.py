@@ -71,7 +71,7 @@ def _too_large(limit: int) -> str:
 
 def create_app(settings: Settings | None = None) -> FastAPI:
     settings = settings or Settings()
-    db = Database(settings.database_url, busy_timeout_ms=settings.db_busy_timeout_ms)
+    db = Database.from_settings(settings)
     db.check_schema()
 
     @asynccontextmanager
@@ -103,9 +103,10 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     )
     app.state.settings = settings
     app.state.db = db
-    from server.security import PasswordHashing
+    from server.security import KeyCache, PasswordHashing
 
     app.state.passwords = PasswordHashing(settings)
+    db.key_cache = KeyCache(settings.api_key_cache_s)  # revocation honoured within api_key_cache_s
     install_error_handlers(app)
     from server.routes import discover
 

@@ -17,6 +17,8 @@ import datetime as dt
 import hashlib
 import hmac
 import secrets
+import threading
+import time
 from dataclasses import dataclass
 
 from fastapi import Depends, Request
@@ -106,14 +108,60 @@ def _api_key_from(request: Request) -> str | None:
     return None
 
 
+class KeyCache:
+    """Principals of API keys looked up in the last ``ttl_s`` seconds (per process), so a sensor's stream
+    of records costs one key lookup per ``ttl_s`` instead of one per request. A revoked or deleted key is
+    refused at the latest ``ttl_s`` after the change (``api_key_cache_s``) in every process, and at once in
+    the process that revoked it (``services.users.revoke_api_key``). Only keys that were accepted are kept,
+    keyed by the key's SHA-256; unknown keys are looked up every time."""
+
+    def __init__(self, ttl_s: float, max_entries: int = 10_000):
+        self.ttl_s = float(ttl_s)
+        self.max_entries = max_entries
+        self._entries: dict[str, tuple[float, Principal]] = {}
+        self._lock = threading.Lock()
+
+    def get(self, digest: str) -> Principal | None:
+        if self.ttl_s <= 0:
+            return None
+        got = self._entries.get(digest)
+        if got is None or time.monotonic() >= got[0]:
+            return None
+        return got[1]
+
+    def put(self, digest: str, principal: Principal) -> None:
+        if self.ttl_s <= 0:
+            return
+        with self._lock:
+            if len(self._entries) >= self.max_entries:
+                self._entries.clear()
+            self._entries[digest] = (time.monotonic() + self.ttl_s, principal)
+
+    def forget(self, key_id: int | None = None) -> None:
+        """Drop the key with this id (every key if None)."""
+        with self._lock:
+            if key_id is None:
+                self._entries.clear()
+            else:
+                self._entries = {d: e for d, e in self._entries.items() if e[1].id != key_id}
+
+
+def key_cache(db) -> KeyCache | None:
+    return getattr(db, "key_cache", None)
+
+
 def _principal_from_key(db, key: str) -> Principal:
     parts = key.split("_", 2)
     if len(parts) != 3 or parts[0] != KEY_PREFIX:
         raise Unauthorized("the API key is malformed; send the whole key as shown when it was created")
+    cache = key_cache(db)
+    digest = token_hash(key)
+    if cache is not None and (hit := cache.get(digest)) is not None:
+        return hit
     now = utcnow()
     with db.read_engine.connect() as conn:
         row = conn.execute(_KEY_BY_PREFIX, {"prefix": parts[1]}).first()
-    if row is None or not hmac.compare_digest(row.key_hash, token_hash(key)):
+    if row is None or not hmac.compare_digest(row.key_hash, digest):
         raise Unauthorized("unknown API key; ask an admin for a key (halfwatch apikey create)")
     if row.revoked_at is not None:
         raise Unauthorized("this API key was revoked; ask an admin for a new one")
@@ -121,7 +169,10 @@ def _principal_from_key(db, key: str) -> Principal:
         with db.write() as conn:
             conn.execute(update(ApiKey.__table__).where(ApiKey.__table__.c.id == row.id)
                          .values(last_used_at=now))
-    return Principal("apikey", row.id, row.name, row.role, site_id=row.site_id)
+    principal = Principal("apikey", row.id, row.name, row.role, site_id=row.site_id)
+    if cache is not None:
+        cache.put(digest, principal)
+    return principal
 
 
 def _principal_from_cookie(db, token: str) -> Principal | None:

@@ -27,6 +27,7 @@ from server.storage import blobs
 from server.storage.packing import pack_chart
 from server.storage.result_columns import result_columns
 from server.storage.tables import Asset, Job, Point, Record, Result, Waveform, utcnow
+from server.storage.waveforms import MissingWaveformFile
 
 log = logging.getLogger("halfwatch.worker")
 
@@ -126,7 +127,8 @@ def forcing_args(record: Record, asset: Asset) -> dict:
 
 
 _RT = Record.__table__
-_LOAD = (select(_RT, Waveform.codec.label("wf_codec"), Waveform.data.label("wf_data"))
+_LOAD = (select(_RT, Waveform.codec.label("wf_codec"), Waveform.data.label("wf_data"),
+                Waveform.store.label("wf_store"), Waveform.digest.label("wf_digest"))
          .join(Waveform, Waveform.record_id == _RT.c.id)
          .where(_RT.c.id.in_(bindparam("rids", expanding=True))))
 _ASSETS = (select(Point.id.label("of_point"), Asset.__table__).join(Point, Point.asset_id == Asset.id)
@@ -145,16 +147,20 @@ def load_many(db, record_ids) -> dict[int, tuple | Exception]:
     out: dict[int, tuple | Exception] = {}
     for record in records:
         try:
-            out[record.id] = (record, assets[record.point_id], _samples(record))
+            out[record.id] = (record, assets[record.point_id], _samples(record, db.waveforms))
         except (DamagedWaveform, ValueError) as exc:
             out[record.id] = exc
     return out
 
 
-def _samples(record):
-    """The checked samples of a row with ``wf_codec``/``wf_data`` (see ``load``)."""
+def _samples(record, store):
+    """The checked samples of a row with ``wf_codec``/``wf_data``/``wf_store``/``wf_digest`` (see ``load``);
+    ``store`` (server/storage/waveforms.py) reads those kept as files."""
     try:
-        samples = blobs.decode_waveform(record.wf_codec, record.wf_data)
+        samples = blobs.decode_waveform(*store.blob(record.wf_store, record.wf_digest, record.wf_codec,
+                                                    record.wf_data))
+    except MissingWaveformFile as exc:
+        raise DamagedWaveform(f"record {record.id}: {exc}; restore the file from a backup") from None
     except (ValueError, zlib.error) as exc:
         if str(exc).startswith("unknown waveform codec"):
             raise  # written by a newer version, perhaps: retried, another worker may know the codec
@@ -229,7 +235,7 @@ def _fence(conn, c: Claim, statement=None, **values) -> None:
 
 _COMPACT = (update(Waveform.__table__)
             .where(Waveform.__table__.c.record_id == bindparam("rid"),
-                   Waveform.__table__.c.codec == blobs.RAW_CODEC)
+                   Waveform.__table__.c.codec == blobs.RAW_CODEC, Waveform.__table__.c.store == "database")
             .values(codec=bindparam("codec"), data=bindparam("data")))
 _SUPERSEDE = (update(Result.__table__).where(Result.__table__.c.record_id == bindparam("rid"),
                                              Result.__table__.c.current.is_(True)).values(current=False))
@@ -250,7 +256,8 @@ def _prepare(item: Analysed) -> tuple[dict, dict, tuple | None]:
     """Everything that needs no database, done before the write transaction opens."""
     values, data = result_values(item.record, item.analysis)
     packed = None
-    if item.samples is not None and getattr(item.record, "wf_codec", blobs.RAW_CODEC) == blobs.RAW_CODEC:
+    if (item.samples is not None and getattr(item.record, "wf_codec", blobs.RAW_CODEC) == blobs.RAW_CODEC
+            and getattr(item.record, "wf_store", "database") == "database"):  # files stay as named
         packed = blobs.encode_waveform(item.samples)
     return values, data, packed
 

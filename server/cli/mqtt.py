@@ -54,7 +54,7 @@ def cmd_mqtt_bridge(args) -> int:
     from server.storage import Database, SchemaNotReady
 
     settings = _settings(args)
-    db = Database(settings.database_url)
+    db = Database.from_settings(settings)
     try:
         db.check_schema()
     except SchemaNotReady as exc:

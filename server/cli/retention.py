@@ -18,7 +18,7 @@ def cmd_retention(args) -> int:
     from server.storage import Database, SchemaNotReady
 
     settings = Settings()
-    db = Database(settings.database_url, busy_timeout_ms=settings.db_busy_timeout_ms)
+    db = Database.from_settings(settings)
     try:
         def progress(out):
             if not args.json:

@@ -22,7 +22,7 @@ def _settings(args):
 def _database(settings, *, check: bool = True):
     from server.storage import Database, SchemaNotReady
 
-    db = Database(settings.database_url, busy_timeout_ms=settings.db_busy_timeout_ms)
+    db = Database.from_settings(settings)
     if check:
         try:
             db.check_schema()

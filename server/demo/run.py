@@ -125,7 +125,7 @@ def prepare(folder: Path, *, days: float, port: int, smtp_port: int, jobs: int |
     state = load_state(folder)
     settings = demo_settings(folder, state, port=port, smtp_port=smtp_port)
     upgrade(settings.database_url)
-    db = Database(settings.database_url, busy_timeout_ms=settings.db_busy_timeout_ms)
+    db = Database.from_settings(settings)
     point_ids = demo_plant.ensure_plant(db)
     ensure_people(db, settings, state, folder)
     now = dt.datetime.now(dt.UTC)

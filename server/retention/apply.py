@@ -16,12 +16,13 @@ import datetime as dt
 import logging
 from dataclasses import dataclass
 
-from sqlalchemy import delete, exists, insert, select
+from sqlalchemy import exists, insert, select
 
 from server import audit
 from server.retention.policy import Plan, plan, stored_bytes
 from server.retention.tables import RecordPin, WaveformRemoval
 from server.storage.tables import Job, Waveform, utcnow
+from server.storage.waveforms import store_for
 
 log = logging.getLogger("halfwatch.retention")
 REASON = "retention: older than the waveform horizon and held by no keep rule"
@@ -36,12 +37,11 @@ class Outcome:
     skipped: int = 0  # planned, but kept at delete time (pinned or queued since the plan)
 
 
-def delete_waveforms(conn, record_ids: list[int]) -> None:
-    """Delete the stored waveforms of these readings inside the caller's transaction.
-
-    The one place retention removes samples: when the waveform store behind its own interface lands, this
-    calls that store's delete."""
-    conn.execute(delete(Waveform).where(Waveform.record_id.in_(record_ids)))
+def delete_waveforms(s, record_ids: list[int]) -> int:
+    """Delete the stored waveforms of these readings inside the caller's transaction (``s``: the Session);
+    the bytes freed. The one place retention removes samples: the waveform store's delete
+    (server/storage/waveforms.py; files of the files backend are unlinked once the transaction commits)."""
+    return store_for(s).delete_many(s, record_ids)
 
 
 def _batch(db, ids: list[int], horizon: dt.datetime, actor: str, now: dt.datetime) -> tuple[int, int]:
@@ -63,7 +63,7 @@ def _batch(db, ids: list[int], horizon: dt.datetime, actor: str, now: dt.datetim
         conn.execute(insert(WaveformRemoval), [
             {"record_id": rid, "removed_at": now, "removed_bytes": int(nb or 0), "reason": REASON,
              "audit_id": change.id} for rid, nb in rows])
-        delete_waveforms(conn, keep)
+        delete_waveforms(s, keep)
         return len(keep), freed
 
 

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import datetime as dt
 import math
+import threading
 from dataclasses import dataclass
 
 import numpy as np
@@ -18,6 +19,7 @@ from sqlalchemy.exc import IntegrityError
 
 from server.errors import AppError, Conflict, Forbidden, NotFound, PayloadTooLarge
 from server.storage import blobs
+from server.storage.group_commit import GroupCommit
 from server.storage.tables import ORIGINS, Area, Asset, Job, Point, Record, UTCDateTime, Waveform, utcnow
 from server.times import to_utc
 
@@ -131,6 +133,14 @@ def _insert_record_checked(scoped: bool):
 _INSERT_CHECKED = {False: _insert_record_checked(False), True: _insert_record_checked(True)}
 _INSERT_WAVEFORM = insert(Waveform.__table__)
 _INSERT_JOB = insert(Job.__table__).returning(Job.__table__.c.id)
+# group commit: several records per statement (ids come back in the order of the parameter sets)
+_INSERT_RECORDS = insert(Record.__table__).returning(Record.__table__.c.id, sort_by_parameter_order=True)
+_INSERT_JOBS = insert(Job.__table__).returning(Job.__table__.c.id, sort_by_parameter_order=True)
+_POINT_SITES = (select(Point.id, Area.site_id).join(Asset, Asset.id == Point.asset_id)
+                .join(Area, Area.id == Asset.area_id).where(Point.id.in_(bindparam("pids", expanding=True))))
+_FIRSTS = select(Record.id, Record.point_id, Record.client_ref, Record.checksum).where(
+    Record.point_id.in_(bindparam("pids", expanding=True)),
+    Record.client_ref.in_(bindparam("refs", expanding=True)))
 
 
 def point_site(conn, point_id: int) -> tuple[int, int]:
@@ -173,9 +183,9 @@ def ingest_record(db, *, point_id: int, samples, fs_hz: float, units: str | None
         _scope(conn)
         return _existing(conn, point_id, client_ref, digest) if client_ref is not None else None
 
-    def _encode():
+    def _encode():  # raw float32 in the database (the worker compacts it) or a durable file, before commit
         packed_source = blobs.compress(source_bytes) if source_bytes is not None else None
-        return (*blobs.encode_raw(x32), packed_source)  # the worker compacts it after the analysis
+        return db.waveforms.row(digest, x32, source_name=source_name, source_bytes=packed_source)
 
     def _row(now) -> dict:
         return dict(point_id=point_id, measured_at=measured_at, received_at=now, fs_hz=fs,
@@ -183,7 +193,7 @@ def ingest_record(db, *, point_id: int, samples, fs_hz: float, units: str | None
                     speed_source=(speed_source or "given") if speed else None, origin=origin,
                     uploader=uploader[:120], client_ref=client_ref, checksum=digest)
 
-    def _store(conn, codec, data, packed_source, *, checked: bool = False) -> IngestOutcome:
+    def _store(conn, wave: dict, *, checked: bool = False) -> IngestOutcome:
         now = utcnow()
         if checked:  # the point (and the key's site) checked by the insert itself
             row = dict(_row(now), site_scope=site_scope)
@@ -193,8 +203,7 @@ def ingest_record(db, *, point_id: int, samples, fs_hz: float, units: str | None
                 raise NotFound(f"no measurement point {point_id}; see GET /api/v1/tree", field="point_id")
         else:
             rid = conn.execute(_INSERT_RECORD, _row(now)).scalar_one()
-        conn.execute(_INSERT_WAVEFORM, dict(record_id=rid, codec=codec, data=data, source_name=source_name,
-                                            source_bytes=packed_source))
+        conn.execute(_INSERT_WAVEFORM, dict(wave, record_id=rid))
         jid = conn.execute(_INSERT_JOB, dict(record_id=rid, state="queued", reason="ingest", attempts=0,
                                              not_before=now, created_at=now, lease_until=None, worker_id=None,
                                              error=None, finished_at=None)).scalar_one()
@@ -203,19 +212,119 @@ def ingest_record(db, *, point_id: int, samples, fs_hz: float, units: str | None
     if session is not None:
         conn = session.connection()
         first = _check(conn)
-        return first if first is not None else _store(conn, *_encode())
-    encoded = _encode()
-    try:  # one transaction; a repeated client_ref trips the unique constraint and is answered below
+        return first if first is not None else _store(conn, _encode())
+    wave = _encode()
+
+    def alone() -> IngestOutcome:
+        try:  # one transaction; a repeated client_ref trips the unique constraint and is answered below
+            with db.write() as conn:
+                return _store(conn, wave, checked=True)
+        except IntegrityError:
+            if client_ref is None:
+                raise
+            with db.read_engine.connect() as conn:  # another request with the same reference won the race
+                first = _existing(conn, point_id, client_ref, digest)
+            if first is None:
+                raise
+            return first
+
+    return _group(db).submit(_Pending(point_id, site_scope, client_ref, digest, _row(utcnow()), wave, alone))
+
+
+@dataclass
+class _Pending:
+    """One validated record waiting for the next group commit (its waveform file, if any, already durable)."""
+
+    point_id: int
+    site_scope: int | None
+    client_ref: str | None
+    digest: str
+    row: dict
+    wave: dict
+    alone: object  # stores it in a transaction of its own (the fallback)
+
+
+_GROUPS_LOCK = threading.Lock()
+
+
+def _group(db) -> GroupCommit:
+    """The group committer of this database (one per Database, made on first use)."""
+    group = getattr(db, "_ingest_group", None)
+    if group is None:
+        with _GROUPS_LOCK:
+            group = getattr(db, "_ingest_group", None)
+            if group is None:
+                group = db._ingest_group = GroupCommit(lambda items: _store_batch(db, items),
+                                                       getattr(db, "group_commit_max", 32))
+    return group
+
+
+def _store_batch(db, items) -> list:
+    """Store a batch of records in one transaction: one point/site read, one read of earlier client_refs,
+    then one INSERT each for records, waveforms and jobs. Per item, the IngestOutcome or the error that
+    concerns it. A constraint that trips (a race with another process) stores the batch one by one."""
+    if len(items) == 1:
+        return [_outcome(items[0].alone)]
+    try:
         with db.write() as conn:
-            return _store(conn, *encoded, checked=True)
+            out = _batch_in(conn, items)
     except IntegrityError:
-        if client_ref is None:
-            raise
-        with db.read_engine.connect() as conn:  # another request with the same reference won the race
-            first = _existing(conn, point_id, client_ref, digest)
-        if first is None:
-            raise
-        return first
+        return [_outcome(item.alone) for item in items]
+    return out
+
+
+def _outcome(fn):
+    try:
+        return fn()
+    except Exception as exc:  # handed to that request's caller
+        return exc
+
+
+def _batch_in(conn, items) -> list:
+    pids = sorted({it.point_id for it in items})
+    sites = dict(conn.execute(_POINT_SITES, {"pids": pids}).all())
+    refs = sorted({it.client_ref for it in items if it.client_ref is not None})
+    earlier = {(r.point_id, r.client_ref): r for r in conn.execute(_FIRSTS, {"pids": pids, "refs": refs})} \
+        if refs else {}
+    out: list = [None] * len(items)
+    new, first_of = [], {}
+    for i, it in enumerate(items):
+        site = sites.get(it.point_id)
+        if site is None:
+            out[i] = NotFound(f"no measurement point {it.point_id}; see GET /api/v1/tree", field="point_id")
+        elif it.site_scope is not None and it.site_scope != site:
+            out[i] = Forbidden(f"this API key is limited to site {it.site_scope}; point {it.point_id} is "
+                               "elsewhere", field="point_id")
+        elif it.client_ref is not None and (it.point_id, it.client_ref) in earlier:
+            try:
+                out[i] = _existing(conn, it.point_id, it.client_ref, it.digest)
+            except AppError as exc:
+                out[i] = exc
+        elif it.client_ref is not None and (it.point_id, it.client_ref) in first_of:
+            out[i] = ("same as", first_of[(it.point_id, it.client_ref)])  # a repeat within this batch
+        else:
+            if it.client_ref is not None:
+                first_of[(it.point_id, it.client_ref)] = i
+            new.append(i)
+    if new:
+        rids = conn.execute(_INSERT_RECORDS, [items[i].row for i in new]).scalars().all()
+        conn.execute(_INSERT_WAVEFORM, [dict(items[i].wave, record_id=rid)
+                                        for i, rid in zip(new, rids, strict=True)])
+        now = utcnow()
+        jids = conn.execute(_INSERT_JOBS, [dict(record_id=rid, state="queued", reason="ingest", attempts=0,
+                                                not_before=now, created_at=now, lease_until=None,
+                                                worker_id=None, error=None, finished_at=None)
+                                           for rid in rids]).scalars().all()
+        for i, rid, jid in zip(new, rids, jids, strict=True):
+            out[i] = IngestOutcome(rid, True, jid)
+    for i, o in enumerate(out):
+        if isinstance(o, tuple):
+            first, it = out[o[1]], items[i]
+            out[i] = (IngestOutcome(first.record_id, False, first.job_id) if it.digest == items[o[1]].digest
+                      else Conflict(f"client_ref {it.client_ref!r} was already used for record "
+                                    f"{first.record_id} with different samples; use a new reference for a "
+                                    "new record", field="client_ref"))
+    return out
 
 
 def _existing(s, point_id: int, client_ref: str, digest: str) -> IngestOutcome | None:

@@ -177,4 +177,8 @@ def revoke_api_key(db, key_id: int, *, actor: str = "cli") -> dict:
             row.revoked_at = utcnow()
             audit.record(s, actor=actor, action="revoke", target="api_key", target_id=row.id,
                          prefix=row.prefix)
-        return _key_dict(row)
+        out = _key_dict(row)
+    cache = getattr(db, "key_cache", None)  # this process forgets it at once; others within api_key_cache_s
+    if cache is not None:
+        cache.forget(key_id)
+    return out

@@ -10,9 +10,9 @@ from sqlalchemy import Float, Integer, cast, func, select
 
 from analysis.result_compat import upgrade_result_dict
 from server.errors import AppError, NotFound
-from server.storage import blobs
 from server.storage.packing import unpack_arrays
 from server.storage.tables import Job, Record, Result, Waveform
+from server.storage.waveforms import MissingWaveformFile, store_for
 
 
 def iso(t: dt.datetime | None) -> str | None:
@@ -120,7 +120,11 @@ def record_waveform(s, record_id: int, max_points: int) -> dict:
         raise AppError(f"the raw waveform of reading {record_id} was removed by retention; its analysis "
                        f"result and spectrum are kept (GET /api/v1/records/{record_id}/retention says when)",
                        field="record_id", status=410, code="gone")
-    x = blobs.decode_waveform(wf.codec, wf.data)
+    try:  # in the database or a content-addressed file (server/storage/waveforms.py)
+        x = store_for(s).samples(wf)
+    except MissingWaveformFile as exc:
+        raise AppError(f"the raw waveform of reading {record_id} cannot be read: {exc}; restore it from a "
+                       "backup", field="record_id", status=503, code="waveform_missing") from None
     idx, y = min_max_decimate(x, max_points)
     return {"ok": True, "record_id": record_id, "units": rec.units, "fs_hz": rec.fs_hz,
             "n_samples": int(x.size), "decimated": bool(idx.size < x.size), "t_s": (idx / rec.fs_hz).tolist(),

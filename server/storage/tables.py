@@ -219,10 +219,10 @@ class Result(Base):
         # PostgreSQL: the chart columns of current results beside (point, time), so a trend is an index-only
         # scan (migration 0007; docs/scale.md). SQLite keeps the index above.
         Index("ix_results_trend_pg", "point_id", "measured_ts", postgresql_where=text("current"),
-              postgresql_include=["record_id", "sub_detected", "sub_velocity_rms_mm_s", "one_x_velocity_rms_mm_s",
-                                  "sub_accel_peak", "one_x_accel_peak", "overall_velocity_rms_mm_s",
-                                  "growth_rate_per_s", "forcing_hz", "precursor_rate_per_s"]).ddl_if(
-            dialect="postgresql"),
+              postgresql_include=["record_id", "sub_detected", "sub_velocity_rms_mm_s",
+                                  "one_x_velocity_rms_mm_s", "sub_accel_peak", "one_x_accel_peak",
+                                  "overall_velocity_rms_mm_s", "growth_rate_per_s", "forcing_hz",
+                                  "precursor_rate_per_s"]).ddl_if(dialect="postgresql"),
     )
     id: Mapped[int] = mapped_column(primary_key=True)
     record_id: Mapped[int] = mapped_column(ForeignKey("records.id", ondelete="CASCADE"), index=True)

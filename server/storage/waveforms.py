@@ -162,8 +162,8 @@ class FileBlobs:
 
 
 _W = Waveform.__table__.c
-_REFERENCED = (select(_W.digest).where(_W.store == "files", _W.digest.in_(bindparam("digests", expanding=True)))
-               .distinct())
+_REFERENCED = (select(_W.digest)
+               .where(_W.store == "files", _W.digest.in_(bindparam("digests", expanding=True))).distinct())
 
 
 @dataclass
@@ -229,7 +229,8 @@ class WaveformStore:
 
     def samples(self, row) -> np.ndarray:
         """The float32 samples of a ``waveforms`` row (an ORM object or a row with its column names)."""
-        codec, data = self.blob(getattr(row, "store", None), getattr(row, "digest", None), row.codec, row.data)
+        store, digest = getattr(row, "store", None), getattr(row, "digest", None)
+        codec, data = self.blob(store, digest, row.codec, row.data)
         return blobs.decode_waveform(codec, data)
 
     @staticmethod
@@ -311,8 +312,8 @@ class WaveformStore:
             for rid, codec, data, store, digest, checksum in rows:
                 x = blobs.decode_waveform(*self.blob(store, digest, codec, data))
                 if blobs.checksum(x) != checksum:
-                    raise RuntimeError(f"record {rid}: the stored waveform does not match its ingest checksum; "
-                                       "restore it from a backup before moving it")
+                    raise RuntimeError(f"record {rid}: the stored waveform does not match its ingest "
+                                       "checksum; restore it from a backup before moving it")
                 if to == "files":
                     files.put(checksum, memoryview(blobs.as_f4(x)).cast("B"))
                     updates.append({"rid": rid, "was": store, "codec": blobs.RAW_CODEC, "data": b"",
@@ -351,7 +352,7 @@ class WaveformStore:
         def flush():
             with db.read_engine.connect() as conn:
                 still = set(conn.execute(_REFERENCED, {"digests": [d for _, d in batch]}).scalars())
-            for path, d in batch:
+            for _path, d in batch:
                 if d in still:
                     out.kept += 1
                 elif not dry_run:

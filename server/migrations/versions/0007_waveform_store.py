@@ -23,15 +23,16 @@ down_revision = "0006"
 branch_labels = None
 depends_on = None
 
-TREND_INCLUDE = ["record_id", "sub_detected", "sub_velocity_rms_mm_s", "one_x_velocity_rms_mm_s", "sub_accel_peak",
-                 "one_x_accel_peak", "overall_velocity_rms_mm_s", "growth_rate_per_s", "forcing_hz",
-                 "precursor_rate_per_s"]
+TREND_INCLUDE = ["record_id", "sub_detected", "sub_velocity_rms_mm_s", "one_x_velocity_rms_mm_s",
+                 "sub_accel_peak", "one_x_accel_peak", "overall_velocity_rms_mm_s", "growth_rate_per_s",
+                 "forcing_hz", "precursor_rate_per_s"]
 
 
 def upgrade() -> None:
     op.add_column("waveforms", sa.Column("store", sa.String(16), nullable=False, server_default="database"))
     op.add_column("waveforms", sa.Column("digest", sa.String(64), nullable=True))
-    op.create_index("ix_waveforms_digest", "waveforms", ["digest"], sqlite_where=sa.text("digest IS NOT NULL"),
+    op.create_index("ix_waveforms_digest", "waveforms", ["digest"],
+                    sqlite_where=sa.text("digest IS NOT NULL"),
                     postgresql_where=sa.text("digest IS NOT NULL"))
     if op.get_bind().dialect.name == "postgresql":
         op.create_index("ix_results_trend_pg", "results", ["point_id", "measured_ts"],
