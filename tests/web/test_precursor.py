@@ -99,6 +99,6 @@ def test_asset_page_trends_the_precursor_decay_rate(login, site, screenshot):
     # a point whose readings have a half-order line and no precursor: the series is absent (all null)
     pid = site.seeded.growing_point
     d = page.evaluate(f"fetch('/api/v1/dashboard/points/{pid}/series').then(r => r.json())")
-    assert d["n_source"] > 0 and all(v is None for v in d["precursor_rate"]["mean"])
+    assert d["n_source"] > 0 and all(v is None for v in d["precursor_rate_per_s"]["mean"])
     screenshot(page, "asset-precursor")
     _no_js_errors(page)

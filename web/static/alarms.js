@@ -10,7 +10,8 @@
 
   function filters() {
     const q = new URLSearchParams();
-    for (const [id, key] of [["#af-site", "site_id"], ["#af-asset", "asset_id"], ["#af-level", "level"]]) if ($(id).value) q.set(key, $(id).value);
+    for (const [id, key] of [["#af-site", "site_id"], ["#af-asset", "asset_id"], ["#af-level",
+      "level"]]) if ($(id).value) q.set(key, $(id).value);
     return q;
   }
 
@@ -19,10 +20,12 @@
     return el("form", { class: "inline-form ack-form", "data-alarm-id": a.id, onsubmit: async (ev) => {
       ev.preventDefault();
       try {
-        await HW.api(`/api/v1/alarms/${a.id}/acknowledge`, { method: "POST", json: { comment: ev.target.comment.value } });
+        await HW.api(`/api/v1/alarms/${a.id}/acknowledge`, { method: "POST",
+          json: { comment: ev.target.comment.value } });
         done(`Alarm ${a.id} acknowledged.`);
       } catch (e) { HW.showError("#alarms-error", e); }
-    } }, el("div", {}, el("label", { for: id }, "Comment"), el("input", { id, name: "comment", required: true, placeholder: "what is being done" })),
+    } }, el("div", {}, el("label", { for: id }, "Comment"), el("input", { id, name: "comment", required: true,
+      placeholder: "what is being done" })),
     el("button", { type: "submit", class: "primary" }, "Acknowledge"));
   }
 
@@ -33,17 +36,21 @@
     return el("form", { class: "inline-form shelve-form", onsubmit: async (ev) => {
       ev.preventDefault();
       try {
-        await HW.api(`/api/v1/alarms/${a.id}/shelve`, { method: "POST", json: { until: HW.fromWall(ev.target.until.value, tz), reason: ev.target.reason.value } });
+        await HW.api(`/api/v1/alarms/${a.id}/shelve`, { method: "POST",
+          json: { until: HW.fromWall(ev.target.until.value, tz), reason: ev.target.reason.value } });
         done(`Alarm ${a.id} shelved.`);
       } catch (e) { HW.showError("#alarms-error", e); }
-    } }, el("div", {}, el("label", { for: id + "-until" }, `Until (${tz})`), el("input", { id: id + "-until", name: "until", type: "datetime-local", value: later, required: true })),
-    el("div", {}, el("label", { for: id }, "Reason"), el("input", { id, name: "reason", required: true, placeholder: "why it may wait" })),
+    } }, el("div", {}, el("label", { for: id + "-until" }, `Until (${tz})`), el("input", { id: id + "-until",
+      name: "until", type: "datetime-local", value: later, required: true })),
+    el("div", {}, el("label", { for: id }, "Reason"), el("input", { id, name: "reason", required: true,
+      placeholder: "why it may wait" })),
     el("button", { type: "submit", class: "warn" }, "Shelve"));
   }
 
   function unshelveButton(a) {
     return el("button", { type: "button", onclick: async () => {
-      try { await HW.api(`/api/v1/alarms/${a.id}/unshelve`, { method: "POST" }); done(`Alarm ${a.id} back from the shelf.`); }
+      try { await HW.api(`/api/v1/alarms/${a.id}/unshelve`,
+        { method: "POST" }); done(`Alarm ${a.id} back from the shelf.`); }
       catch (e) { HW.showError("#alarms-error", e); }
     } }, "Unshelve");
   }
@@ -62,21 +69,27 @@
     const d = await HW.api(`/api/v1/alarms?${q}`);
     const body = $("#alarm-table tbody");
     body.replaceChildren(...d.alarms.map((a) => el("tr", { "data-alarm-id": a.id, class: `alarm-row lvl-${a.level}` },
-      el("td", {}, HW.levelBadge(a.level)), el("td", {}, el("a", { href: `/assets/${a.asset_id}?point=${a.point_id}` }, a.asset)),
+      el("td", {}, HW.levelBadge(a.level)), el("td", {}, el("a", { href: `/assets/${a.asset_id}?point=${a.point_id}` },
+        a.asset)),
       el("td", {}, a.point), el("td", {}, a.rule), el("td", {}, `${HW.num(a.value)} ${a.unit}`),
       el("td", {}, HW.when(a.since, zoneOf(a.site_id))), el("td", { class: "alarm-state" }, state(a)),
-      el("td", {}, HW.may("engineer") ? [a.shelved ? unshelveButton(a) : null, !a.acknowledged && !a.shelved ? ackForm(a) : null, !a.shelved ? shelveForm(a) : null]
-        : el("span", { class: "muted" }, "engineers acknowledge"), a.record_id ? el("a", { href: `/records/${a.record_id}` }, "reading") : null))));
-    if (!d.alarms.length) body.append(el("tr", {}, el("td", { colspan: 8 }, `No ${view === "all" ? "open" : view} alarm.`)));
+      el("td", {}, HW.may("engineer") ? [a.shelved ? unshelveButton(a) : null,
+        !a.acknowledged && !a.shelved ? ackForm(a) : null, !a.shelved ? shelveForm(a) : null]
+        : el("span", { class: "muted" }, "engineers acknowledge"), a.record_id ? el("a",
+          { href: `/records/${a.record_id}` }, "reading") : null))));
+    if (!d.alarms.length) body.append(el("tr", {}, el("td", { colspan: 8 },
+      `No ${view === "all" ? "open" : view} alarm.`)));
   }
 
   async function loadHistory() {
     const q = filters();
     const d = await HW.api(`/api/v1/alarms/history?${q}&limit=200`);
     $("#history-table tbody").replaceChildren(...d.events.map((e) => el("tr", {},
-      el("td", {}, HW.when(e.created_at, zoneOf(e.site_id))), el("td", {}, e.kind), el("td", {}, names.asset[e.asset_id] || e.asset_id),
+      el("td", {}, HW.when(e.created_at, zoneOf(e.site_id))), el("td", {}, e.kind), el("td", {},
+        names.asset[e.asset_id] || e.asset_id),
       el("td", {}, names.point[e.point_id] || e.point_id),
-      el("td", {}, e.to_level ? HW.levelBadge(e.to_level) : "", " ", e.summary || e.metric || ""), el("td", {}, e.actor), el("td", {}, e.comment || ""))));
+      el("td", {}, e.to_level ? HW.levelBadge(e.to_level) : "", " ", e.summary || e.metric || ""), el("td", {},
+        e.actor), el("td", {}, e.comment || ""))));
   }
 
   async function load() {

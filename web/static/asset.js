@@ -1,5 +1,6 @@
 /* Machine page: the points of one asset; trends over a chosen period (half-order, 1X, ratio, overall with
-   ISO 20816 zones, growth rate, 0.5X precursor decay rate, speed); trend fit and forecast to the danger level with its uncertainty;
+   ISO 20816 zones, growth rate, 0.5X precursor decay rate,
+     speed); trend fit and forecast to the danger level with its uncertainty;
    alarm states and history; recent readings. The server buckets long periods (min, max, mean per bucket). */
 "use strict";
 (function () {
@@ -43,7 +44,8 @@
     const t = d.trend || {};
     if (t.band) {
       const bx = t.band.t.map((v) => HW.wall(v, tz));
-      traces.push({ x: bx, y: t.band.hi, type: "scatter", mode: "lines", line: { width: 0 }, showlegend: false, hoverinfo: "skip" });
+      traces.push({ x: bx, y: t.band.hi, type: "scatter", mode: "lines", line: { width: 0 }, showlegend: false,
+        hoverinfo: "skip" });
       traces.push({ x: bx, y: t.band.lo, type: "scatter", mode: "lines", line: { width: 0 }, fill: "tonexty",
         fillcolor: HW.palette.band, name: "95 % band of the fit", hoverinfo: "skip" });
       traces.push({ x: bx, y: t.band.fit, type: "scatter", mode: "lines", line: { color: HW.palette.fit, width: 2 },
@@ -93,8 +95,10 @@
     if (limits) {
       const edges = [0, limits[0], limits[1], limits[2], top];
       "ABCD".split("").forEach((z, i) => {
-        shapes.push({ type: "rect", xref: "paper", x0: 0, x1: 1, y0: edges[i], y1: edges[i + 1], fillcolor: HW.zoneFill[z], line: { width: 0 }, layer: "below" });
-        annotations.push({ xref: "paper", x: 0.995, xanchor: "right", y: (edges[i] + edges[i + 1]) / 2, text: `zone ${z}`, showarrow: false, font: { size: 11, color: "#374151" } });
+        shapes.push({ type: "rect", xref: "paper", x0: 0, x1: 1, y0: edges[i], y1: edges[i + 1],
+          fillcolor: HW.zoneFill[z], line: { width: 0 }, layer: "below" });
+        annotations.push({ xref: "paper", x: 0.995, xanchor: "right", y: (edges[i] + edges[i + 1]) / 2,
+          text: `zone ${z}`, showarrow: false, font: { size: 11, color: "#374151" } });
       });
       $("#zone-note").textContent = `ISO 20816 zone boundaries for group ${asset.asset.machine_group}, ${asset.asset.foundation} support: A/B ${limits[0]}, B/C ${limits[1]}, C/D ${limits[2]} mm/s r.m.s.`;
     }
@@ -103,7 +107,8 @@
   }
 
   function simple(id, d, x, key, name, color, unit, ytitle, extra) {
-    return HW.plot(id, seriesTraces(d, x, key, name, color, unit), Object.assign({ xaxis: xaxis(), yaxis: { title: { text: ytitle } } }, extra || {}));
+    return HW.plot(id, seriesTraces(d, x, key, name, color, unit), Object.assign({ xaxis: xaxis(),
+      yaxis: { title: { text: ytitle } } }, extra || {}));
   }
 
   /* γ− of the noise-excited 0.5X bump (below threshold): it falls towards 0 as the machine nears the
@@ -125,17 +130,21 @@
 
   function drawSpeed(d, x) {
     const mult = asset.asset.forcing_multiplier || 1;
-    const conv = (s) => s && { min: s.min && s.min.map((v) => v == null ? null : v / mult), max: s.max && s.max.map((v) => v == null ? null : v / mult), mean: s.mean.map((v) => v == null ? null : v / mult) };
+    const conv = (s) => s && { min: s.min && s.min.map((v) => v == null ? null : v / mult),
+      max: s.max && s.max.map((v) => v == null ? null : v / mult),
+      mean: s.mean.map((v) => v == null ? null : v / mult) };
     const dd = Object.assign({}, d, { speed: conv(d.forcing_hz) });
     const tr = seriesTraces(dd, x, "speed", "shaft speed", HW.palette.speed, "Hz");
     tr[tr.length - 1].hovertemplate = "%{y:.4g} Hz = %{customdata} rpm<extra></extra>";
     tr[tr.length - 1].customdata = dd.speed.mean.map((v) => v == null ? null : Math.round(v * 60));
     return HW.plot("chart-speed", tr, { xaxis: xaxis(), yaxis: { title: { text: "shaft speed (Hz = rev/s)" } },
-      shapes: [HW.hline(asset.asset.nominal_speed_hz, "#64748b", "dot", `nominal ${asset.asset.nominal_speed_hz} Hz`)] });
+      shapes: [HW.hline(asset.asset.nominal_speed_hz, "#64748b", "dot",
+        `nominal ${asset.asset.nominal_speed_hz} Hz`)] });
   }
 
   function bindClicks() {
-    for (const id of ["chart-half", "chart-overall", "chart-onex", "chart-ratio", "chart-growth", "chart-precursor", "chart-speed"]) {
+    for (const id of ["chart-half", "chart-overall", "chart-onex", "chart-ratio", "chart-growth", "chart-precursor",
+      "chart-speed"]) {
       const div = document.getElementById(id);
       if (div.dataset.bound) continue;
       div.dataset.bound = "1";
@@ -167,7 +176,8 @@
         "1X velocity r.m.s. (mm/s r.m.s.)"),
       simple("chart-ratio", d, x, "half_order_to_1x_ratio", "half-order / 1X", HW.palette.ratio, "ratio",
         "amplitude ratio, peak / peak (1 = equal)",
-        { shapes: point.levels.half_order_ratio ? [HW.hline(point.levels.half_order_ratio.danger, HW.palette.limit, "dash", "danger"), HW.hline(point.levels.half_order_ratio.alert, HW.palette.alert, "dot", "alert")] : [] }),
+        { shapes: point.levels.half_order_ratio ? [HW.hline(point.levels.half_order_ratio.danger, HW.palette.limit,
+          "dash", "danger"), HW.hline(point.levels.half_order_ratio.alert, HW.palette.alert, "dot", "alert")] : [] }),
       simple("chart-growth", d, x, "growth_rate_per_s", "growth rate", HW.palette.growth, "1/s", "growth rate (1/s)"),
       drawPrecursor(d, x),
       drawSpeed(d, x),
@@ -194,7 +204,8 @@
     body.replaceChildren(...asset.alarms.map((a) => el("tr", {},
       el("td", {}, HW.levelBadge(a.level)), el("td", {}, a.point), el("td", {}, a.rule),
       el("td", {}, `${HW.num(a.value)} ${a.unit}`), el("td", {}, HW.when(a.since, tz)),
-      el("td", {}, a.shelved ? `shelved until ${HW.when(a.shelved_until, tz)}` : a.acknowledged ? `acknowledged by ${a.acked_by}` : "active"))));
+      el("td", {},
+        a.shelved ? `shelved until ${HW.when(a.shelved_until, tz)}` : a.acknowledged ? `acknowledged by ${a.acked_by}` : "active"))));
     if (!asset.alarms.length) body.append(el("tr", {}, el("td", { colspan: 6 }, "No open alarm.")));
   }
 
@@ -203,7 +214,8 @@
     const names = Object.fromEntries(asset.points.map((p) => [p.id, p.name]));
     $("#alarm-history tbody").replaceChildren(...h.events.map((e) => el("tr", {},
       el("td", {}, HW.when(e.created_at, tz)), el("td", {}, names[e.point_id] || e.point_id),
-      el("td", {}, e.kind === "transition" ? el("span", {}, HW.levelBadge(e.to_level), " ", e.summary || e.metric) : `${e.kind}: ${e.summary || ""}`),
+      el("td", {}, e.kind === "transition" ? el("span", {}, HW.levelBadge(e.to_level), " ",
+        e.summary || e.metric) : `${e.kind}: ${e.summary || ""}`),
       el("td", {}, e.actor), el("td", {}, e.comment || ""))));
   }
 
@@ -226,7 +238,8 @@
     const p0 = Number(HW.param("point")), days0 = HW.param("days") || "30";
     if (p0 && /^\d+$/.test(days0)) {  // the point is known: ask for its series while the machine loads
       const end = new Date();
-      const q = new URLSearchParams({ start: new Date(end - Number(days0) * 86400e3).toISOString(), end: end.toISOString(), max_points: "600" });
+      const q = new URLSearchParams({ start: new Date(end - Number(days0) * 86400e3).toISOString(),
+        end: end.toISOString(), max_points: "600" });
       early = { pid: p0, days: days0, promise: HW.api(`/api/v1/dashboard/points/${p0}/series?${q}`) };
       early.promise.catch(() => {});
     }
@@ -241,7 +254,8 @@
     const days = HW.param("days");
     if (days && [...$("#period").options].some((o) => o.value === days)) $("#period").value = days;
     const sel = $("#point-select");
-    sel.replaceChildren(...asset.points.map((p) => el("option", { value: p.id }, `${p.name} (${p.state.replace(/-/g, " ")})`)));
+    sel.replaceChildren(...asset.points.map((p) => el("option", { value: p.id },
+      `${p.name} (${p.state.replace(/-/g, " ")})`)));
     const wanted = Number(HW.param("point")) || (asset.points.find((p) => p.records > 0) || asset.points[0] || {}).id;
     sel.value = wanted;
     renderAlarms();

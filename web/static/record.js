@@ -22,24 +22,33 @@
     const one = (r.orders || {})["1X"] || {}, two = (r.orders || {})["2X"] || {};
     const u = r.units || rec.units;
     box.append(
-      number("Forcing frequency (1X)", HW.num(f.frequency_hz, 5), "Hz", `${f.source}${f.nominal_hz ? `, nominal ${HW.num(f.nominal_hz, 5)} Hz` : ""}`),
-      number("Subharmonic", s.detected ? `${s.class} found` : "none found", "", s.detected ? `at ${HW.num(s.frequency_hz, 5)} Hz = ${HW.num(s.order, 4)}X` : `false-alarm rate ${HW.num(s.pfa)} per search`),
+      number("Forcing frequency (1X)", HW.num(f.frequency_hz, 5), "Hz", `${f.source}${f.nominal_hz ? `,
+        nominal ${HW.num(f.nominal_hz, 5)} Hz` : ""}`),
+      number("Subharmonic", s.detected ? `${s.class} found` : "none found", "",
+        s.detected ? `at ${HW.num(s.frequency_hz, 5)} Hz = ${HW.num(s.order, 4)}X` : `false-alarm rate ${HW.num(s.pfa)} per search`),
       number("Subharmonic velocity r.m.s.", HW.num(s.velocity_rms_mm_s), "mm/s r.m.s.",
         `peak ${HW.num(s.velocity_peak_mm_s)} mm/s · acceleration ${HW.num(s.accel_peak)} ${u} peak`),
-      number("Signal to noise", HW.num(s.snr_db), "dB", `detection threshold ${HW.num(s.threshold_db)} dB (false-alarm rate ${HW.num(s.pfa)})`),
+      number("Signal to noise", HW.num(s.snr_db), "dB",
+        `detection threshold ${HW.num(s.threshold_db)} dB (false-alarm rate ${HW.num(s.pfa)})`),
       number("Growth rate", HW.num(g.rate_per_s), "1/s",
         g.ci95_per_s && g.ci95_per_s[0] != null ? `95 % interval ${HW.num(g.ci95_per_s[0])} to ${HW.num(g.ci95_per_s[1])} 1/s · ${g.state}` : `${g.state || "not estimated"}${g.note ? ` · ${g.note}` : ""}`),
-      number("Doubling time", g.rate_per_s > 0 ? HW.num(Math.LN2 / g.rate_per_s) : "—", g.rate_per_s > 0 ? "s" : "", g.onset_s != null ? `onset at ${HW.num(g.onset_s)} s into the reading` : null),
-      number("Overall velocity r.m.s.", HW.num(o.velocity_rms_mm_s), "mm/s r.m.s.", o.band_hz ? `${HW.num(o.band_hz[0])} – ${HW.num(o.band_hz[1])} Hz · ${o.standard || "ISO 20816"}` : null),
-      el("div", { class: "n" }, el("div", { class: "k" }, "ISO 20816 zone"), el("div", { class: "v" }, HW.zoneBadge(o.zone)),
+      number("Doubling time", g.rate_per_s > 0 ? HW.num(Math.LN2 / g.rate_per_s) : "—", g.rate_per_s > 0 ? "s" : "",
+        g.onset_s != null ? `onset at ${HW.num(g.onset_s)} s into the reading` : null),
+      number("Overall velocity r.m.s.", HW.num(o.velocity_rms_mm_s), "mm/s r.m.s.",
+        o.band_hz ? `${HW.num(o.band_hz[0])} – ${HW.num(o.band_hz[1])} Hz · ${o.standard || "ISO 20816"}` : null),
+      el("div", { class: "n" }, el("div", { class: "k" }, "ISO 20816 zone"), el("div", { class: "v" },
+        HW.zoneBadge(o.zone)),
         el("div", { class: "ci" }, o.zone_limits_rms_mm_s
           ? `group ${o.machine_group}, ${o.foundation}: ${o.zone_limits_rms_mm_s.join(" / ")} mm/s r.m.s.` : "")),
       number("1X velocity r.m.s.", HW.num(one.velocity_rms_mm_s), "mm/s r.m.s.",
         `peak ${HW.num(one.velocity_peak_mm_s)} mm/s · acceleration ${HW.num(one.accel_peak)} ${u} peak`),
       number("2X velocity r.m.s.", HW.num(two.velocity_rms_mm_s), "mm/s r.m.s.",
         `peak ${HW.num(two.velocity_peak_mm_s)} mm/s · acceleration ${HW.num(two.accel_peak)} ${u} peak`),
-      number("Crest factor / kurtosis", `${HW.num((r.waveform || {}).crest_factor)} / ${HW.num((r.waveform || {}).kurtosis)}`, "", "kurtosis 3 for Gaussian noise, 1.5 for a sine"),
-      number("Spectrum", `${HW.num((r.spectrum_summary || {}).df_hz)} Hz`, "lines", `${(r.spectrum_summary || {}).n_segments} averages (Welch)`),
+      number("Crest factor / kurtosis",
+        `${HW.num((r.waveform || {}).crest_factor)} / ${HW.num((r.waveform || {}).kurtosis)}`, "",
+        "kurtosis 3 for Gaussian noise, 1.5 for a sine"),
+      number("Spectrum", `${HW.num((r.spectrum_summary || {}).df_hz)} Hz`, "lines",
+        `${(r.spectrum_summary || {}).n_segments} averages (Welch)`),
     );
     renderPrecursor(s.precursor, box);
     const q = r.quality || {};
@@ -52,13 +61,19 @@
     const note = $("#precursor-note");
     if (!p) { note.hidden = true; return; }
     const ratio = p.ratio_to_threshold != null
-      ? `${HW.num(p.ratio_to_threshold, 3)}${p.ratio_to_threshold_se != null ? ` ± ${HW.num(p.ratio_to_threshold_se, 2)}` : ""}` : "—";
+      ? `${HW.num(p.ratio_to_threshold, 3)}${p.ratio_to_threshold_se != null ? ` ± ${HW.num(p.ratio_to_threshold_se,
+        2)}` : ""}` : "—";
     box.append(
-      number("0.5X precursor centre", HW.num(p.frequency_hz, 5), "Hz", `= ${HW.num(p.order, 4)}X · a resonance bump, not a line`),
-      number("Precursor half-power width", HW.num(p.width_hz, 3), "Hz", p.resolved ? "resolved by this reading" : "upper bound: narrower than the resolution"),
-      number("Precursor decay rate γ−", HW.num(p.narrow_rate_per_s, 3), "1/s", "γ− = π × width; falls to 0 at the threshold"),
-      number("Precursor phase coherence", HW.num(p.coherence, 3), "", `a steady line here would give ${HW.num(p.line_coherence, 3)} · evidence: ${p.evidence}`),
-      number("Distance to threshold h/h_c", ratio, "", p.ratio_to_threshold != null ? "two-Lorentzian fit (1 = onset)" : (p.note || "not estimated")),
+      number("0.5X precursor centre", HW.num(p.frequency_hz, 5), "Hz",
+        `= ${HW.num(p.order, 4)}X · a resonance bump, not a line`),
+      number("Precursor half-power width", HW.num(p.width_hz, 3), "Hz",
+        p.resolved ? "resolved by this reading" : "upper bound: narrower than the resolution"),
+      number("Precursor decay rate γ−", HW.num(p.narrow_rate_per_s, 3), "1/s",
+        "γ− = π × width; falls to 0 at the threshold"),
+      number("Precursor phase coherence", HW.num(p.coherence, 3), "",
+        `a steady line here would give ${HW.num(p.line_coherence, 3)} · evidence: ${p.evidence}`),
+      number("Distance to threshold h/h_c", ratio, "",
+        p.ratio_to_threshold != null ? "two-Lorentzian fit (1 = onset)" : (p.note || "not estimated")),
     );
     note.hidden = false;
     note.textContent = `0.5X precursor: a noise-excited resonance bump centred at ${HW.num(p.frequency_hz, 5)} Hz (${HW.num(p.order, 4)}X), `
@@ -75,7 +90,8 @@
     return { x: [a, a, b, b, a], y: [ylo, yhi, yhi, ylo, ylo], type: "scatter", mode: "lines", fill: "toself",
       fillcolor: "rgba(14,116,144,0.22)", line: { color: HW.palette.precursor, width: 1 },
       name: `0.5X precursor bump (half-power width ${HW.num(p.width_hz, 3)} Hz), not a line`,
-      customdata: [p.frequency_hz], hovertemplate: `precursor centre ${HW.num(p.frequency_hz, 5)} Hz, width ${HW.num(p.width_hz, 3)} Hz<extra></extra>` };
+      customdata: [p.frequency_hz],
+        hovertemplate: `precursor centre ${HW.num(p.frequency_hz, 5)} Hz, width ${HW.num(p.width_hz, 3)} Hz<extra></extra>` };
   }
 
   function drawSpectrum() {
@@ -85,14 +101,18 @@
     const ymax = Math.max(...spec.amplitude);
     const orders = ORDERS.filter((k) => k * F <= fmax);
     const traces = [
-      { x: spec.freqs_hz, y: spec.amplitude, type: "scatter", mode: "lines", line: { color: "#1f3b4d", width: 1.2 }, name: `amplitude (${unit}, peak)`,
+      { x: spec.freqs_hz, y: spec.amplitude, type: "scatter", mode: "lines", line: { color: "#1f3b4d", width: 1.2 },
+        name: `amplitude (${unit}, peak)`,
         hovertemplate: "%{x:.4g} Hz<br>%{y:.4g} " + unit + "<extra></extra>" },
-      { x: orders.map((k) => k * F), y: orders.map(() => ymax * 1.05), text: orders.map(orderName), type: "scatter", mode: "markers+text",
-        textposition: "top center", marker: { symbol: "triangle-down", size: 9, color: orders.map((k) => (k === 0.5 ? HW.palette.half : "#64748b")) },
+      { x: orders.map((k) => k * F), y: orders.map(() => ymax * 1.05), text: orders.map(orderName), type: "scatter",
+        mode: "markers+text",
+        textposition: "top center", marker: { symbol: "triangle-down", size: 9,
+          color: orders.map((k) => (k === 0.5 ? HW.palette.half : "#64748b")) },
         name: "order markers", hovertemplate: "%{text} = %{x:.4g} Hz<extra></extra>" },
     ];
     const shapes = orders.map((k) => ({ type: "line", x0: k * F, x1: k * F, yref: "paper", y0: 0, y1: 0.93,
-      line: { color: k === 0.5 ? HW.palette.half : "#94a3b8", width: k === 0.5 ? 1.6 : 1, dash: k % 1 ? "dot" : "dash" } }));
+      line: { color: k === 0.5 ? HW.palette.half : "#94a3b8", width: k === 0.5 ? 1.6 : 1,
+        dash: k % 1 ? "dot" : "dash" } }));
     const s = bundle.result.subharmonic || {};
     const pre = s.precursor;
     const near = pre ? 2 * (pre.width_hz || 0) + 2 * (spec.freqs_hz[1] - spec.freqs_hz[0]) : 0;  // the bump's own peak
@@ -100,10 +120,12 @@
       1.25 * peakIn(pre.frequency_hz - near, pre.frequency_hz + near));
     if (band) traces.push(band);
     if (s.detected) traces.push({ x: [s.frequency_hz], y: [s.accel_peak], type: "scatter", mode: "markers",
-      marker: { symbol: "diamond", size: 11, color: HW.palette.half, line: { color: "#fff", width: 1 } }, name: `${s.class} line found` });
+      marker: { symbol: "diamond", size: 11, color: HW.palette.half, line: { color: "#fff", width: 1 } },
+        name: `${s.class} line found` });
     return HW.plot("chart-spectrum", traces, {
       xaxis: { title: { text: "frequency (Hz)" }, range: [0, Math.min(fmax, 5.2 * F)] },
-      yaxis: { title: { text: `acceleration amplitude (${unit} peak)` }, type: $("#log-y").checked ? "log" : "linear" }, shapes, hovermode: "x" });
+      yaxis: { title: { text: `acceleration amplitude (${unit} peak)` },
+        type: $("#log-y").checked ? "log" : "linear" }, shapes, hovermode: "x" });
   }
 
   function bindReadout() {
@@ -155,7 +177,8 @@
   async function pin(on) {
     $("#pin-error").hidden = true;
     try {
-      await HW.api(`/api/v1/records/${bundle.record.id}/pin`, on ? { method: "PUT", json: { note: $("#pin-note").value } } : { method: "DELETE" });
+      await HW.api(`/api/v1/records/${bundle.record.id}/pin`, on ? { method: "PUT",
+        json: { note: $("#pin-note").value } } : { method: "DELETE" });
       await renderRetention();
     } catch (e) { HW.showError("#pin-error", e); }
   }
@@ -165,10 +188,12 @@
     const traces = [];
     if (kept) {
       const w = await HW.api(`/api/v1/records/${bundle.record.id}/waveform?max_points=4000`);
-      traces.push({ x: w.t_s, y: w.value, type: "scatter", mode: "lines", line: { color: "#94a3b8", width: 0.8 }, name: `acceleration (${unit})` });
+      traces.push({ x: w.t_s, y: w.value, type: "scatter", mode: "lines", line: { color: "#94a3b8", width: 0.8 },
+        name: `acceleration (${unit})` });
     }
     if (spec.envelope && spec.envelope.length) {
-      traces.push({ x: spec.envelope_t_s, y: spec.envelope, type: "scatter", mode: "lines", line: { color: HW.palette.half, width: 2 }, name: "subharmonic envelope" });
+      traces.push({ x: spec.envelope_t_s, y: spec.envelope, type: "scatter", mode: "lines",
+        line: { color: HW.palette.half, width: 2 }, name: "subharmonic envelope" });
     }
     const g = bundle.result.growth || {};
     if (g.rate_per_s != null && g.intercept != null && g.fit_window_s && g.fit_window_s[0] != null) {
@@ -191,13 +216,19 @@
     const F = spec.forcing_hz;
     const fmax = Math.min(5.2 * F, wf.spectra[0].freqs_hz[wf.spectra[0].freqs_hz.length - 1]);
     const x = wf.spectra[0].freqs_hz.filter((f) => f <= fmax);
-    const z = wf.spectra.map((s) => s.freqs_hz.length === wf.spectra[0].freqs_hz.length ? s.amplitude.slice(0, x.length) : x.map(() => null));
+    const z = wf.spectra.map((s) => s.freqs_hz.length === wf.spectra[0].freqs_hz.length ? s.amplitude.slice(0,
+      x.length) : x.map(() => null));
     const y = wf.spectra.map((s) => HW.wall(s.measured_at, tz).slice(0, 16));
     const unit = wf.spectra[0].units || bundle.record.units;
-    const traces = [{ x, y, z, type: "heatmap", colorscale: [[0, "#fbfaf6"], [0.25, "#c7d2fe"], [0.6, "#6d28d9"], [1, "#1e1b4b"]],
-      colorbar: { title: { text: `${unit} peak` } }, name: "amplitude", hovertemplate: "%{x:.4g} Hz<br>%{y}<br>%{z:.3g} " + unit + "<extra></extra>" }];
-    const shapes = [0.5, 1].map((k) => ({ type: "line", x0: k * F, x1: k * F, yref: "paper", y0: 0, y1: 1, line: { color: k === 0.5 ? "#f59e0b" : "#0f766e", dash: "dash", width: 1.4 } }));
-    return HW.plot("chart-waterfall", traces, { xaxis: { title: { text: "frequency (Hz)" } }, yaxis: { title: { text: `reading time (${tz})` }, type: "category" }, shapes, showlegend: false, margin: { l: 140 } });
+    const traces = [{ x, y, z, type: "heatmap", colorscale: [[0, "#fbfaf6"], [0.25, "#c7d2fe"], [0.6, "#6d28d9"], [1,
+      "#1e1b4b"]],
+      colorbar: { title: { text: `${unit} peak` } }, name: "amplitude",
+        hovertemplate: "%{x:.4g} Hz<br>%{y}<br>%{z:.3g} " + unit + "<extra></extra>" }];
+    const shapes = [0.5, 1].map((k) => ({ type: "line", x0: k * F, x1: k * F, yref: "paper", y0: 0, y1: 1,
+      line: { color: k === 0.5 ? "#f59e0b" : "#0f766e", dash: "dash", width: 1.4 } }));
+    return HW.plot("chart-waterfall", traces, { xaxis: { title: { text: "frequency (Hz)" } },
+      yaxis: { title: { text: `reading time (${tz})` }, type: "category" }, shapes, showlegend: false,
+      margin: { l: 140 } });
   }
 
   function renderHead() {
@@ -242,7 +273,8 @@
     $("#zoom-orders").addEventListener("click", () => spec && zoom(0, 5.2 * spec.forcing_hz));
     $("#zoom-half").addEventListener("click", () => spec && zoom(0.28 * spec.forcing_hz, 0.72 * spec.forcing_hz));
     $("#zoom-all").addEventListener("click", () => spec && zoom(0, spec.freqs_hz[spec.freqs_hz.length - 1]));
-    $("#log-y").addEventListener("change", () => spec && Plotly.relayout("chart-spectrum", { "yaxis.type": $("#log-y").checked ? "log" : "linear", "yaxis.autorange": true }));
+    $("#log-y").addEventListener("change", () => spec && Plotly.relayout("chart-spectrum",
+      { "yaxis.type": $("#log-y").checked ? "log" : "linear", "yaxis.autorange": true }));
     load();
   });
 })();
