@@ -54,6 +54,7 @@ def read_wav(
     raw = _as_bytes(data)
     if not raw:
         raise SignalError("the WAV file is empty; upload a recorded file", field="file")
+    _check_wav_data_size(raw)
     from scipy.io import wavfile
 
     try:
@@ -76,6 +77,27 @@ def read_wav(
             y = y.astype(np.float64) / float(-np.iinfo(y.dtype).min)
         y = y * float(full_scale)
     return _finish(y, fs, units or "g", {"format": "wav", "sample_rate_source": "header"})
+
+
+def _check_wav_data_size(raw: bytes) -> None:
+    """Refuse a WAV whose ``data`` chunk claims more bytes than the file holds (a cut-short file, or a
+    streaming writer that never filled in the size): reading on would silently analyse a shorter record.
+    RIFF layout: 12-byte header, then chunks of a 4-byte id and a little-endian 32-bit size (Microsoft
+    RIFF/WAVE specification, 1991; from memory)."""
+    if len(raw) < 12 or raw[:4] != b"RIFF" or raw[8:12] != b"WAVE":
+        return  # not RIFF/WAVE at all: scipy's reader says what is wrong
+    pos = 12
+    while pos + 8 <= len(raw):
+        chunk, size = raw[pos:pos + 4], struct.unpack("<I", raw[pos + 4:pos + 8])[0]
+        if chunk == b"data":
+            held = len(raw) - (pos + 8)
+            if size > held:
+                raise SignalError(
+                    f"the WAV header says its data holds {size} bytes but the file has only {held} after the "
+                    "header; the file is cut short or was not finished: export or copy it again",
+                    field="file")
+            return
+        pos += 8 + size + (size & 1)  # chunks are padded to an even length
 
 
 def _parse_float(cell: str, line: int) -> float:

@@ -109,10 +109,11 @@ def analyze_record(
     n = len(x_raw)
     nperseg, resolution_ok = choose_nperseg(n, fs, speed)
     if nperseg == 0:
-        need = 50.0 / speed
+        need_n = int(np.ceil(fs * 50.0 / speed))  # the exact minimum of choose_nperseg
         raise SignalError(
-            f"the record is too short for the requested resolution: {n / fs:.2f} s at 1X = {speed:g} Hz; "
-            f"record at least {need:.1f} s (better {900.0 / speed:.0f} s to separate whirl from 0.5X)"
+            f"the record is too short for the requested resolution: {n} samples ({n / fs:.3f} s) at "
+            f"1X = {speed:g} Hz; send at least {need_n} samples ({need_n / fs:.3f} s at {fs:g} Hz; "
+            f"better {900.0 / speed:.0f} s to separate whirl from 0.5X)"
         )
     x = detrend(x_raw)
     spec = calibrated_spectrum(x, fs, nperseg)

@@ -106,6 +106,12 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     from server.security import KeyCache, PasswordHashing
 
     app.state.passwords = PasswordHashing(settings)
+    from server.security import signing_key
+
+    app.state.signing_key = signing_key(settings)  # session cookies are signed with HALFWATCH_SECRET_KEY
+    if not settings.secret_key:
+        log.warning("HALFWATCH_SECRET_KEY is not set: session cookies are signed with a random key of this "
+                    "process, so logins end when it restarts and other API processes do not accept them")
     db.key_cache = KeyCache(settings.api_key_cache_s)  # revocation honoured within api_key_cache_s
     install_error_handlers(app)
     from server.routes import discover

@@ -2,7 +2,8 @@
 
 - :class:`SecurityHeaders` adds a Content-Security-Policy with no remote origins, ``nosniff``,
   ``frame-ancestors 'none'`` / ``X-Frame-Options: DENY`` and a strict Referrer-Policy to every response
-  (HSTS as well when ``session_cookie_secure`` says the service runs behind TLS).
+  (HSTS as well when ``session_cookie_secure`` says the service runs behind TLS), and
+  ``Cache-Control: no-store`` to every ``/api/`` answer (plant data, CSRF tokens, keys).
 - :class:`IngestAdmission` bounds the number of ingest requests being worked on at once. One more is
   refused at once with 503 and ``Retry-After`` (nothing stored), so a burst from many sensors sheds
   load instead of piling up memory and latency until the process falls over. It also refuses new
@@ -59,10 +60,14 @@ class SecurityHeaders:
         if scope["type"] != "http":
             return await self.app(scope, receive, send)
 
+        api = scope.get("path", "").startswith("/api/")
+
         async def send_with_headers(message):
             if message["type"] == "http.response.start":
                 present = {name.lower() for name, _ in message.get("headers", ())}
                 extra = [(n, v) for n, v in self.headers if n not in present]
+                if api and b"cache-control" not in present:  # plant data and tokens stay out of caches
+                    extra.append((b"cache-control", b"no-store"))
                 message = {**message, "headers": [*message.get("headers", ()), *extra]}
             await send(message)
 
@@ -163,15 +168,15 @@ class IngestPreAuth:
         from server.errors import Forbidden, Unauthorized
         from server.security import (
             _NO_CREDENTIALS,
-            SESSION_COOKIE,
             _api_key_from,
             _principal_from_cookie,
             _principal_from_key,
+            session_token,
         )
 
         request = Request(scope)
         key = _api_key_from(request)
-        token = request.cookies.get(SESSION_COOKIE)
+        token = session_token(request)
         principal = (_principal_from_key(self.db, key) if key else
                      _principal_from_cookie(self.db, token) if token else None)
         if principal is None:

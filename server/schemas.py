@@ -5,9 +5,10 @@ from __future__ import annotations
 import datetime as dt
 from typing import Annotated, Literal
 
-from pydantic import AwareDatetime, BaseModel, ConfigDict, Field
+from pydantic import BaseModel, ConfigDict, Field
 
 from server.names import Name, UserName  # the one control-character rule for names
+from server.times import ApiTime
 
 MachineKind = Literal["pump", "fan", "compressor", "gearbox", "reciprocating_compressor", "engine", "other"]
 
@@ -25,7 +26,7 @@ class RecordJson(Strict):
 
     fs_hz: float = Field(gt=0, description="sample rate, Hz")
     units: str = Field(description="acceleration units: g, m/s2 or mm/s2")
-    measured_at: AwareDatetime = Field(description="start of the record, ISO 8601 with a zone")
+    measured_at: ApiTime = Field(description="start of the record, ISO 8601 with a zone (not a number)")
     samples_b64: str | None = Field(default=None, description="base64 of little-endian float32 (or float64)")
     dtype: Literal["float32", "float64"] = "float32"
     samples: list[float] | None = Field(default=None, description="the samples as numbers (small records)")

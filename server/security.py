@@ -13,6 +13,7 @@ API-key requests need no CSRF token (browsers never send them on their own).
 
 from __future__ import annotations
 
+import base64
 import datetime as dt
 import hashlib
 import hmac
@@ -189,12 +190,41 @@ def _principal_from_cookie(db, token: str) -> Principal | None:
     return Principal("user", user.id, user.username, user.role, via_cookie=True, csrf_token=sess.csrf_token)
 
 
+def signing_key(settings) -> bytes:
+    """The key session cookies are signed with: ``HALFWATCH_SECRET_KEY``, or (unset) a random key of this
+    process, so sessions then last only as long as the process and are not shared with other processes."""
+    return (settings.secret_key or secrets.token_hex(32)).encode()
+
+
+def _signature(key: bytes, token: str) -> str:
+    digest = hmac.new(key, token.encode(), hashlib.sha256).digest()
+    return base64.urlsafe_b64encode(digest).decode().rstrip("=")
+
+
+def sign_session(key: bytes, token: str) -> str:
+    """The session cookie's value: ``<token>.<HMAC-SHA256 of the token under the signing key>``."""
+    return f"{token}.{_signature(key, token)}"
+
+
+def session_token(request: Request) -> str | None:
+    """The session token of the request's cookie if its signature is right (no database needed to refuse
+    a forged or stale cookie: changing HALFWATCH_SECRET_KEY ends every session)."""
+    value = request.cookies.get(SESSION_COOKIE)
+    if not value or "." not in value:
+        return None
+    token, _, sig = value.rpartition(".")
+    key = getattr(request.app.state, "signing_key", None)
+    if key is None or not hmac.compare_digest(sig, _signature(key, token)):
+        return None
+    return token
+
+
 def optional_principal(request: Request) -> Principal | None:
     db = request.app.state.db
     key = _api_key_from(request)
     if key:
         return _principal_from_key(db, key)
-    token = request.cookies.get(SESSION_COOKIE)
+    token = session_token(request)
     if token:
         return _principal_from_cookie(db, token)
     return None

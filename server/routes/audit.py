@@ -76,8 +76,16 @@ def export_history(request: Request, site_id: int | None = Query(None, ge=1, le=
     events = service.history(request.app.state.db, site_id=site_id, point_id=point_id, limit=limit)
     if not principal.has_role("engineer"):
         events = [e for e in events if e["kind"] != "data-quality"]
-    return _csv(audit.to_csv(HISTORY_COLUMNS, [[e.get(c) for c in HISTORY_COLUMNS] for e in events]),
+    return _csv(audit.to_csv(HISTORY_COLUMNS, [[_where_words(e.get(c)) if c == "where" else e.get(c)
+                                                for c in HISTORY_COLUMNS] for e in events]),
                 "halfwatch-alarm-history.csv")
+
+
+def _where_words(where: dict | None) -> str:
+    """E.g. "Riverside works / Cooling water / CW pump 1 / P1-DE-H" (site / area / machine / point)."""
+    if not where:
+        return ""
+    return " / ".join(str(where[k]) for k in ("site", "area", "asset", "point") if where.get(k))
 
 
 def _flat(details: dict) -> str:

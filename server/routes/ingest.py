@@ -9,7 +9,7 @@ import numpy as np
 from fastapi import APIRouter, Depends, File, Form, Query, Request, UploadFile
 from fastapi.exceptions import RequestValidationError
 from fastapi.responses import JSONResponse
-from pydantic import AwareDatetime, ValidationError
+from pydantic import ValidationError
 from starlette.concurrency import run_in_threadpool
 
 from server.errors import AppError, Unauthorized
@@ -17,6 +17,7 @@ from server.schemas import RecordJson
 from server.security import _NO_CREDENTIALS, Principal, authorize, has_credentials, require_role
 from server.services.ingest import IngestOutcome, Limits, ingest_record
 from server.services.ingest_files import ingest_file
+from server.times import ApiTime
 
 router = APIRouter(prefix="/api/v1", tags=["ingest"])
 
@@ -52,7 +53,7 @@ async def post_record(
     point_id: int,
     fs_hz: float | None = Query(None, description="sample rate, Hz (raw body)"),
     units: str | None = Query(None, description="g, m/s2 or mm/s2 (raw body)"),
-    measured_at: AwareDatetime | None = Query(None, description="ISO 8601 with a zone (raw body)"),
+    measured_at: ApiTime | None = Query(None, description="ISO 8601 with a zone (raw body), not a number"),
     speed_hz: float | None = Query(None, description="shaft speed during the record, rev/s"),
     speed_source: str | None = Query(None, max_length=32),
     client_ref: str | None = Query(None, max_length=200, description="your id for safe retries"),
@@ -135,7 +136,7 @@ async def post_record_file(
     request: Request,
     point_id: int,
     file: UploadFile = File(..., description="a .wav, .csv or .uff/.unv file"),
-    measured_at: AwareDatetime | None = Form(None, description="ISO 8601 with a zone"),
+    measured_at: ApiTime | None = Form(None, description="ISO 8601 with a zone, not a number"),
     units: str | None = Form(None, description="g, m/s2 or mm/s2 (if the file does not say)"),
     fs_hz: float | None = Form(None, description="sample rate, Hz (CSV without a time column)"),
     speed_hz: float | None = Form(None),

@@ -9,7 +9,15 @@ from pydantic import ValidationError
 from starlette.concurrency import run_in_threadpool
 
 from server.schemas import LoginBody
-from server.security import CSRF_COOKIE, SESSION_COOKIE, Principal, optional_principal, require_role
+from server.security import (
+    CSRF_COOKIE,
+    SESSION_COOKIE,
+    Principal,
+    optional_principal,
+    require_role,
+    session_token,
+    sign_session,
+)
 from server.services import users
 
 router = APIRouter(prefix="/api/v1", tags=["session"])
@@ -56,8 +64,8 @@ async def login(request: Request):
     settings = app.state.settings
     resp = JSONResponse({"ok": True, "user": user, "csrf_token": csrf})
     max_age = int(settings.session_ttl_h * 3600)
-    resp.set_cookie(SESSION_COOKIE, token, max_age=max_age, httponly=True, samesite="lax",
-                    secure=settings.session_cookie_secure, path="/")
+    resp.set_cookie(SESSION_COOKIE, sign_session(app.state.signing_key, token), max_age=max_age,
+                    httponly=True, samesite="lax", secure=settings.session_cookie_secure, path="/")
     resp.set_cookie(CSRF_COOKIE, csrf, max_age=max_age, httponly=False, samesite="lax",
                     secure=settings.session_cookie_secure, path="/")
     return resp
@@ -72,7 +80,7 @@ def logout(request: Request):
             from server.errors import Forbidden
 
             raise Forbidden("missing or wrong CSRF token; send the X-CSRF-Token header", field="X-CSRF-Token")
-    users.logout(request.app.state.db, request.cookies.get(SESSION_COOKIE))
+    users.logout(request.app.state.db, session_token(request))
     resp = JSONResponse({"ok": True})
     resp.delete_cookie(SESSION_COOKIE, path="/")
     resp.delete_cookie(CSRF_COOKIE, path="/")

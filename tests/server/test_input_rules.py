@@ -137,3 +137,103 @@ def test_user_emails_are_validated(users, email):
     ok = c.post("/api/v1/users", json={"username": "planner8", "password": "valve train 73 hums",
                                        "email": "planner8@example.com"})
     assert ok.status_code == 201 and ok.json()["user"]["email"] == "planner8@example.com"
+
+
+def test_session_cookies_are_signed_with_the_secret_key(app, users, hw_settings):
+    """HALFWATCH_SECRET_KEY signs the session cookie (HMAC-SHA256, RFC 2104): a cookie without the right
+    signature is refused without a lookup, another process with the same key accepts it, and a new key
+    ends every session."""
+    from fastapi.testclient import TestClient
+
+    from server.app import create_app
+
+    c = users.login("viewer")
+    value = c.cookies.get("halfwatch_session")
+    token, _, sig = value.rpartition(".")
+    assert token and sig
+    assert c.get("/api/v1/me").status_code == 200
+    for forged in (token, f"{token}.{sig[::-1]}", f"{token}x.{sig}"):
+        with TestClient(app) as other:
+            other.cookies.set("halfwatch_session", forged)
+            assert other.get("/api/v1/me").status_code == 401, forged
+    for secret, expected in (("test-secret", 200), ("a-new-secret", 401)):
+        twin = create_app(hw_settings.model_copy(update={"secret_key": secret}))
+        with TestClient(twin) as t:
+            t.cookies.set("halfwatch_session", value)
+            assert t.get("/api/v1/me").status_code == expected, secret
+
+
+def test_api_answers_are_not_cached(users, plant):
+    c = users.login("viewer")
+    for path in ("/api/v1/me", "/api/v1/tree", f"/api/v1/points/{plant.point_id}/records", "/api/v1/nope"):
+        assert c.get(path).headers.get("cache-control") == "no-store", path
+
+
+@pytest.mark.parametrize("value", ["1767225600", "1767225600.5", " 1.7e9 "])
+def test_measured_at_as_a_bare_number_is_refused(users, plant, value):
+    import numpy as np
+
+    c = users.login("technician")
+    body = np.zeros(4096, "<f4").tobytes()
+    r = c.post(f"/api/v1/points/{plant.point_id}/records",
+               params={"fs_hz": 2560, "units": "m/s2", "measured_at": value}, content=body,
+               headers={"Content-Type": "application/octet-stream"})
+    assert r.status_code == 422 and r.json()["error"]["field"] == "measured_at", r.text
+    assert "bare number" in r.json()["error"]["message"] and "ISO 8601" in r.json()["error"]["message"]
+    r = c.post(f"/api/v1/points/{plant.point_id}/records",
+               json={"fs_hz": 2560, "units": "m/s2", "measured_at": float(value), "samples": [0.0] * 300})
+    assert r.status_code == 422 and r.json()["error"]["field"] == "measured_at", r.text
+
+
+def test_a_wav_whose_header_claims_more_data_than_the_file_holds_is_refused(users, plant):
+    import io
+
+    import numpy as np
+    from scipy.io import wavfile  # scipy writes the reference WAV
+
+    from analysis.errors import SignalError
+    from analysis.io import read_wav
+
+    buf = io.BytesIO()
+    wavfile.write(buf, 2560, (np.sin(np.arange(25600) * 0.3) * 8000).astype(np.int16))
+    whole = buf.getvalue()
+    assert read_wav(whole).samples.size == 25600
+    cut = whole[: len(whole) // 10]
+    with pytest.raises(SignalError, match="says its data holds 51200 bytes but the file has only"):
+        read_wav(cut)
+    c = users.login("technician")
+    r = c.post(f"/api/v1/points/{plant.point_id}/records/file", files={"file": ("cut.wav", cut)},
+               data={"measured_at": "2026-11-02T08:00:00Z", "units": "m/s2"})
+    assert r.status_code == 422 and r.json()["error"]["field"] == "file", r.text
+
+
+def test_the_alarm_history_csv_says_where_in_words(users, plant, migrated_db, hw_settings):
+    import csv
+    import io
+
+    from alarms.helpers import Feeder, make_result
+
+    feeder = Feeder(migrated_db, hw_settings)
+    for v in (0.2, 0.3, 1.5, 1.6):  # the 4th raises the half-order alert (as tests/alarms/test_mail.py)
+        feeder.feed(plant.point_id, make_result(half_v=v))
+    c = users.login("viewer")
+    text = c.get("/api/v1/alarms/history.csv").text
+    rows = list(csv.DictReader(io.StringIO(text)))
+    assert rows and rows[0]["where"] == "Riverside works / Cooling water / CW pump 1 / P1-DE-H", rows[0]
+
+
+def test_a_record_just_short_of_the_minimum_is_told_the_exact_minimum(rng):
+    import math
+
+    from analysis import analyze_record
+    from analysis.errors import SignalError
+
+    fs, f1 = 2560.0, 24.75
+    need = math.ceil(fs * 50.0 / f1)  # 50 periods of 1X: the coarsest resolution allowed (f1x/50)
+    with pytest.raises(SignalError, match=f"send at least {need} samples"):
+        analyze_record(rng.standard_normal(need - 3), fs, units="m/s2", forcing_hz=f1)
+    # the stated minimum is enough for that check
+    try:
+        analyze_record(rng.standard_normal(max(need, 256)), fs, units="m/s2", forcing_hz=f1)
+    except SignalError as exc:
+        assert "too short for the requested resolution" not in str(exc)
