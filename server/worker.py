@@ -21,7 +21,7 @@ import zlib
 from dataclasses import dataclass
 from types import SimpleNamespace
 
-from sqlalchemy import and_, bindparam, insert, or_, select, update
+from sqlalchemy import and_, bindparam, insert, or_, select, tuple_, update
 
 from server.storage import blobs
 from server.storage.packing import pack_chart
@@ -49,6 +49,7 @@ class Claim:
     record_id: int
     attempt: int
     worker_id: str
+    reason: str = ""  # "ingest": the record's first analysis, so no earlier result to supersede
 
 
 def default_worker_id() -> str:
@@ -92,7 +93,7 @@ def _claim_statement(skip_locked: bool, n: int):
         _CLAIMS[key] = (update(Job.__table__).where(target, _RUNNABLE)
                         .values(state="running", attempts=_J.attempts + 1, worker_id=bindparam("wid"),
                                 lease_until=bindparam("lease_until"))
-                        .returning(_J.id, _J.record_id, _J.attempts))
+                        .returning(_J.id, _J.record_id, _J.attempts, _J.reason))
     return _CLAIMS[key]
 
 
@@ -109,7 +110,7 @@ def claim_batch(db, worker_id: str, *, lease_s: float, max_attempts: int, n: int
         rows = conn.execute(_claim_statement(db.dialect == "postgresql", max(1, int(n))), {
             "now": now, "horizon": lease_until + CLOCK_SLACK, "wid": worker_id,
             "lease_until": lease_until}).all()
-    return sorted((Claim(r[0], r[1], r[2], worker_id) for r in rows), key=lambda c: c.job_id)
+    return sorted((Claim(r[0], r[1], r[2], worker_id, r[3] or "") for r in rows), key=lambda c: c.job_id)
 
 
 def claim(db, worker_id: str, *, lease_s: float, max_attempts: int, now: dt.datetime | None = None):
@@ -220,6 +221,11 @@ def result_row(record, analysis) -> SimpleNamespace:
 _FENCE = update(Job.__table__).where(_J.id == bindparam("jid"), _J.worker_id == bindparam("wid"),
                                      _J.attempts == bindparam("attempt"), _J.state == "running")
 _DONE = _FENCE.values(state="done", finished_at=bindparam("t"), lease_until=None, error=None)
+_DONE_MANY = (update(Job.__table__)
+              .where(tuple_(_J.id, _J.attempts).in_(bindparam("pairs", expanding=True)),
+                     _J.worker_id == bindparam("wid"), _J.state == "running")
+              .values(state="done", finished_at=bindparam("t"), lease_until=None, error=None)
+              .returning(_J.id))
 
 
 def _fence(conn, c: Claim, statement=None, **values) -> None:
@@ -262,13 +268,26 @@ def _prepare(item: Analysed) -> tuple[dict, dict, tuple | None]:
     return values, data, packed
 
 
-def _store_one(s, item: Analysed, prepared, settings, alarms: bool, now=None) -> int:
+def _fence_batch(conn, items: list[Analysed]) -> set[int]:
+    """Mark the batch's jobs done in one statement; the ids still leased to this worker at their attempt."""
+    wid = items[0].claim.worker_id
+    if any(item.claim.worker_id != wid for item in items):
+        raise ValueError("one batch, one worker")
+    pairs = [(item.claim.job_id, item.claim.attempt) for item in items]
+    return set(conn.execute(_DONE_MANY, {"pairs": pairs, "wid": wid, "t": utcnow()}).scalars())
+
+
+def _store_one(s, item: Analysed, prepared, settings, alarms: bool, now=None, *, fenced: bool = False) -> int:
+    """Store one analysed job. ``fenced``: its job was already marked done and its waveform compacted by
+    the batch's statements (``store_batch``); otherwise both are done here."""
     values, data, packed = prepared
     conn, record = s.connection(), item.record
-    _fence(conn, item.claim, _DONE)
-    if packed is not None:
-        conn.execute(_COMPACT, {"rid": record.id, "codec": packed[0], "data": packed[1]})
-    conn.execute(_SUPERSEDE, {"rid": record.id})
+    if not fenced:
+        _fence(conn, item.claim, _DONE)
+        if packed is not None:
+            conn.execute(_COMPACT, {"rid": record.id, "codec": packed[0], "data": packed[1]})
+    if item.claim.reason != "ingest":  # a re-analysis: the earlier result stops being current
+        conn.execute(_SUPERSEDE, {"rid": record.id})
     result_id = conn.execute(_INSERT_RESULT, values).scalar_one()
     if alarms:
         from server.alarms import evaluate_result
@@ -306,11 +325,19 @@ def store_batch(db, items: list[Analysed], settings=None, *, alarms: bool = True
     try:
         out: list[int | Exception] = []
         with db.unit_of_work() as s:
+            conn = s.connection()
+            fenced = _fence_batch(conn, items)  # one statement marks every job of the batch done
+            packs = [{"rid": item.record.id, "codec": prep[2][0], "data": prep[2][1]}
+                     for item, prep in zip(items, prepared, strict=True)
+                     if prep[2] is not None and item.claim.job_id in fenced]
+            if packs:  # and one compacts their waveforms
+                conn.execute(_COMPACT, packs)
             for item, prep in zip(items, prepared, strict=True):
-                try:
-                    out.append(_store_one(s, item, prep, settings, alarms))
-                except LeaseLost as exc:
-                    out.append(exc)
+                if item.claim.job_id not in fenced:  # the lease ran out and someone else owns the job
+                    out.append(LeaseLost(f"job {item.claim.job_id} attempt {item.claim.attempt} is no longer "
+                                         f"leased to {item.claim.worker_id}"))
+                    continue
+                out.append(_store_one(s, item, prep, settings, alarms, fenced=True))
         return out
     except Exception as exc:
         if len(items) == 1:
