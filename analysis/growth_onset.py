@@ -71,7 +71,8 @@ def _h(rho: np.ndarray) -> np.ndarray:
     rho = np.asarray(rho, dtype=float)
     small = rho < 1e-4
     safe = np.where(small, 1.0, rho)
-    return np.where(small, -_EULER + rho - 0.25 * rho * rho, np.log(safe) + special.exp1(safe))
+    r = np.minimum(rho, 1e-4)
+    return np.where(small, -_EULER + r - 0.25 * r * r, np.log(safe) + special.exp1(safe))
 
 
 def _log_a(model: str, q: np.ndarray, t: np.ndarray) -> np.ndarray:

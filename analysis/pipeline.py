@@ -11,6 +11,7 @@ from .detect import HALF_ORDER_TOL, detect_subharmonic, other_tones
 from .errors import SignalError
 from .forcing import line_near, refine_forcing
 from .growth import band_signal, chart_envelope, estimate_growth, growth_band, not_estimated
+from .known_look import whole_record_look
 from .precursor import bump_test
 from .quality import quality_flags
 from .results import Forcing, OrderLine, Overall, Quality, RecordAnalysis
@@ -125,16 +126,20 @@ def analyze_record(
     f1 = forcing.frequency_hz
 
     # two looks, each at half the record's false-alarm probability: the full average, then the last
-    # segments on their own (a line emerging near the end is diluted in the full average)
+    # segments on their own (a line emerging near the end is diluted in the full average); with 1X given,
+    # a third look at 0.5X on one periodogram of the whole record takes half the probability and the two
+    # others a quarter each (Bonferroni: the shares add up to the record's pfa, whatever the dependence)
+    known_1x = forcing_hz is not None
+    pfa_look = pfa / 4 if known_1x else pfa / 2
     sub = detect_subharmonic(
-        spec, f1, units, pfa / 2, bump_test=lambda k, f: bump_test(x, fs, spec, k, f, f1)
+        spec, f1, units, pfa_look, bump_test=lambda k, f: bump_test(x, fs, spec, k, f, f1)
     )
     late = None if sub.detected else last_segments_spectrum(x, fs, spec)
     if late is not None:
         n_late = (LAST_SEGMENTS + 1) * spec.nperseg // 2
         x_late = x[-n_late:]
         sub_late = detect_subharmonic(
-            late, f1, units, pfa / 2, bump_test=lambda k, f: bump_test(x_late, fs, late, k, f, f1)
+            late, f1, units, pfa_look, bump_test=lambda k, f: bump_test(x_late, fs, late, k, f, f1)
         )
         # beside a noise-excited bump, few averages let it pass for a line (its skirts for a whirl line):
         # then only a half-order line that stands 6 dB over the bump's average reading counts
@@ -143,6 +148,10 @@ def analyze_record(
         )
         if sub_late.detected and not bump_near:
             sub = replace(sub_late, spectrum="last-segments", precursor=sub_late.precursor or sub.precursor)
+    if not sub.detected and known_1x and sub.precursor is None:
+        whole = whole_record_look(x, fs, spec, f1, units, pfa / 2)
+        if whole.detected:
+            sub = whole
     sub = replace(sub, pfa=pfa)
     pw = power(spec)
     orders = {}

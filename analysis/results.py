@@ -151,7 +151,8 @@ class Subharmonic:
     pfa: float
     family: dict[str, float | None] = field(default_factory=dict)
     precursor: Precursor | None = None  # a noise-excited bump at 0.5X that was not taken for a line
-    spectrum: str = "average"  # which spectrum detected the line: "average" | "last-segments"
+    #: which spectrum detected the line: "average" | "last-segments" | "whole-record" (0.5X look, 1X given)
+    spectrum: str = "average"
 
     @property
     def velocity_rms_mm_s(self) -> float | None:
