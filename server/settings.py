@@ -36,7 +36,8 @@ class Settings(BaseSettings):
     # HTTP service
     host: str = "127.0.0.1"
     port: int = Field(default=8000, ge=0, le=65535)
-    secret_key: str = Field(default="", description="random string for tokens (set it in production)")
+    secret_key: str = Field(default="", description="signs session cookies: a long random string, the same "
+                            "for every API process; a new one ends every session")
     public_base_url: str = Field(default="http://127.0.0.1:8000", description="base of links in emails")
     session_cookie_secure: bool = False
     session_ttl_h: float = Field(default=12.0, gt=0)
