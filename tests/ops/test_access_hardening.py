@@ -165,3 +165,58 @@ def api_key_for():
         return create_api_key(db, name="gw", role="technician", site=plant.site_id)[0]
 
     return make
+
+
+def test_a_large_route_upload_is_spooled_not_held_in_memory(backend, procs, api_key_for):
+    """A 48 MiB route ZIP (a 47 MiB attachment beside one small reading) with a valid key: the server's
+    peak RSS rises by well under the upload's size (house bound: a third of it)."""
+    import io
+    import zipfile
+
+    import numpy as np
+
+    db, settings, plant = backend
+    proc, base = procs.server(settings)
+    buf = io.BytesIO()
+    with zipfile.ZipFile(buf, "w", compression=zipfile.ZIP_STORED) as zf:
+        zf.writestr("manifest.csv", "point,measured_at,file,fs_hz,units\n"
+                                    "P1-DE-H,2026-11-02T08:00:00Z,a.csv,2560,m/s2\n")
+        zf.writestr("a.csv", "\n".join(f"{v:.5f}" for v in np.sin(np.arange(8192) * 0.06)) + "\n")
+        zf.writestr("photos/pump.bin", np.random.default_rng(7).bytes(47 * 1024 * 1024))
+    data = buf.getvalue()
+    peak0 = _status_mib(proc.pid, "VmHWM")
+    r = httpx.post(f"{base}/api/v1/routes/{plant.route_id}/uploads", content=data, timeout=120,
+                   headers={"X-API-Key": api_key_for(db, plant), "Content-Type": "application/zip"})
+    assert r.status_code == 201 and r.json()["accepted"] == 1, r.text
+    rise = _status_mib(proc.pid, "VmHWM") - peak0
+    size = len(data) / 2**20
+    assert rise < size / 3, f"peak RSS rose {rise:.0f} MiB for a {size:.0f} MiB upload"
+
+
+def test_a_full_set_of_hash_slots_answers_503_and_does_not_count(tmp_path, migrated_template):
+    from fastapi.testclient import TestClient
+    from support.fixtures import migrate, settings_for
+
+    from server.app import create_app
+    from server.services.users import add_user
+
+    settings = settings_for(tmp_path, login_hash_slots=1)
+    migrate(settings, migrated_template)
+    app = create_app(settings)
+    add_user(app.state.db, settings, username="planner5", password="a long enough secret", role="viewer",
+             hashing=app.state.passwords)
+    app.state.hash_slots.wait_s = 0.2
+    with TestClient(app) as c:
+        app.state.hash_slots.acquire()  # another login is being checked
+        try:
+            for _ in range(settings.login_max_failures + 2):
+                r = c.post("/api/v1/session", json={"username": "planner5", "password": "wrong"})
+                assert r.status_code == 503 and int(r.headers["Retry-After"]) >= 1, r.text
+        finally:
+            app.state.hash_slots.release()
+        # none of those were counted: the full allowance of failures is still there, then 429
+        for _ in range(settings.login_max_failures):
+            assert c.post("/api/v1/session", json={"username": "planner5", "password": "wrong"}
+                          ).status_code == 401
+        assert c.post("/api/v1/session", json={"username": "planner5", "password": "wrong"}
+                      ).status_code == 429
