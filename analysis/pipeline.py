@@ -23,6 +23,9 @@ from .validate import normalize_units, validate_samples
 #: 1X wander (max - min over the record, in orders) that invalidates the half-order reading: 0.5X moves by
 #: half the 1X change, so a 2 % wander smears it over ±0.01 orders, the whole ±2 % half-order window
 SPEED_DRIFT_ORDERS = 2 * HALF_ORDER_TOL
+#: share of the record's false-alarm probability given to the whole-record look at 0.5X when 1X is given
+#: (the averaged and last-segment looks take half the rest each); measured in bench/detection_limit.py
+WHOLE_LOOK_SHARE = 0.8
 
 
 def _check_speed(value, name: str, fs: float) -> float:
@@ -127,10 +130,11 @@ def analyze_record(
 
     # two looks, each at half the record's false-alarm probability: the full average, then the last
     # segments on their own (a line emerging near the end is diluted in the full average); with 1X given,
-    # a third look at 0.5X on one periodogram of the whole record takes half the probability and the two
-    # others a quarter each (Bonferroni: the shares add up to the record's pfa, whatever the dependence)
+    # a third look at 0.5X on one periodogram of the whole record takes WHOLE_LOOK_SHARE of the probability
+    # and the two others the rest in halves (Bonferroni: the shares add up to the record's pfa, whatever
+    # the dependence between the looks)
     known_1x = forcing_hz is not None
-    pfa_look = pfa / 4 if known_1x else pfa / 2
+    pfa_look = pfa * (1.0 - WHOLE_LOOK_SHARE) / 2 if known_1x else pfa / 2
     sub = detect_subharmonic(
         spec, f1, units, pfa_look, bump_test=lambda k, f: bump_test(x, fs, spec, k, f, f1)
     )
@@ -149,7 +153,7 @@ def analyze_record(
         if sub_late.detected and not bump_near:
             sub = replace(sub_late, spectrum="last-segments", precursor=sub_late.precursor or sub.precursor)
     if not sub.detected and known_1x and sub.precursor is None:
-        whole = whole_record_look(x, fs, spec, f1, units, pfa / 2)
+        whole = whole_record_look(x, fs, spec, f1, units, pfa * WHOLE_LOOK_SHARE)
         if whole.detected:
             sub = whole
     sub = replace(sub, pfa=pfa)
