@@ -52,7 +52,7 @@ def load_state(folder: Path) -> DemoState:
         return DemoState(**json.loads(path.read_text()))
     now = dt.datetime.now(dt.UTC).replace(minute=0, second=0, microsecond=0)
     state = DemoState(anchor=now.isoformat(), secret_key=secrets.token_urlsafe(32),
-                      passwords={r: secrets.token_urlsafe(9) for r in ROLES})
+                      passwords={r: _demo_password(DEMO_USERS[r]) for r in ROLES})
     save_state(folder, state)
     return state
 
@@ -74,6 +74,15 @@ def demo_settings(folder: Path, state: DemoState, *, port: int, smtp_port: int):
                     host="127.0.0.1", port=port, public_base_url=f"http://127.0.0.1:{port}",
                     smtp_host="127.0.0.1", smtp_port=smtp_port, smtp_security="none",
                     smtp_from="halfwatch-demo@sallowmere.example", mail_poll_s=2.0, worker_poll_s=0.2)
+
+
+def _demo_password(username: str) -> str:
+    """A random password that the password rule accepts (it may not contain the user name)."""
+    from server.services.users import password_problem
+
+    while password_problem(pw := secrets.token_urlsafe(9), username) is not None:
+        pass
+    return pw
 
 
 def ensure_people(db, settings, state: DemoState, folder: Path) -> None:
