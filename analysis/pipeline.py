@@ -154,8 +154,11 @@ def analyze_record(
             sub = replace(sub_late, spectrum="last-segments", precursor=sub_late.precursor or sub.precursor)
     if not sub.detected and known_1x and sub.precursor is None:
         whole = whole_record_look(x, fs, spec, f1, units, pfa * WHOLE_LOOK_SHARE)
-        if whole.detected:
-            sub = whole
+        if whole.detected and whole.frequency_hz is not None:
+            # a narrow noise-excited bump (a mode below threshold) is one or two bins wide at full
+            # resolution too: the same line-vs-bump test as the averaged look (phase coherence, width)
+            bump = bump_test(x, fs, spec, int(round(whole.frequency_hz / spec.df_hz)), whole.frequency_hz, f1)
+            sub = whole if bump is None else replace(sub, precursor=bump)
     sub = replace(sub, pfa=pfa)
     pw = power(spec)
     orders = {}
