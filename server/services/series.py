@@ -63,7 +63,7 @@ def point_series(s, point_id: int, t0: dt.datetime, t1: dt.datetime, max_points:
     a, b = t0.timestamp(), t1.timestamp()
     dialect = s.bind.dialect.name
     cols = _columns()
-    scope = (Result.point_id == point_id, Result.current.is_(True), Result.measured_ts >= a,
+    scope = (Result.point_id == point_id, Result.current, Result.measured_ts >= a,
              Result.measured_ts <= b)
     n = s.scalar(select(func.count()).where(*scope)) or 0
     names = list(cols)
@@ -104,7 +104,7 @@ def asset_sparks(s, points: list[Point], *, days: float = 30.0, buckets: int = 3
         return {}
     bucket = time_bucket(s.bind.dialect.name, a, b, buckets)
     rows = s.execute(select(Result.point_id, bucket, func.max(Result.sub_velocity_rms_mm_s))
-                     .where(Result.point_id.in_(list(asset_of)), Result.current.is_(True),
+                     .where(Result.point_id.in_(list(asset_of)), Result.current,
                             Result.measured_ts >= a, Result.measured_ts <= b)
                      .group_by(Result.point_id, bucket)).all()
     out: dict[int, list[float | None]] = {}
@@ -123,7 +123,7 @@ def trend_readings(s, point_id: int, end_ts: float) -> list[tuple[float, float]]
     The rules also leave out readings they judged a data-quality problem (sensor faults, off-speed);
     those are rare and are kept here, so on such a point the two can differ slightly."""
     width = checks.BUCKET_S
-    scope = (Result.point_id == point_id, Result.current.is_(True), Result.measured_ts <= end_ts)
+    scope = (Result.point_id == point_id, Result.current, Result.measured_ts <= end_ts)
     start = func.floor(Result.measured_ts / width) if s.bind.dialect.name == "postgresql" \
         else cast(Result.measured_ts / width, Integer)
     newest = select(start.label("b")).where(*scope).group_by(start).order_by(start.desc()) \

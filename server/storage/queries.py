@@ -146,7 +146,7 @@ def trend(s, point_id: int, metric: str, t0: dt.datetime, t1: dt.datetime, max_p
     if b <= a:
         raise AppError("end must be after start", field="end")
     metric = METRIC_ALIASES.get(metric, metric)
-    scope = (Result.point_id == point_id, Result.current.is_(True), Result.measured_ts >= a,
+    scope = (Result.point_id == point_id, Result.current, Result.measured_ts >= a,
              Result.measured_ts <= b)
     col = METRIC_COLUMNS.get(metric)
     if col is not None:
@@ -212,7 +212,7 @@ def _buckets(metric: str, rows, n_source: int) -> dict:
 def waterfall(s, point_id: int, n: int) -> dict:
     rows = s.execute(
         select(Result, Record.measured_at, Record.speed_hz).join(Record, Record.id == Result.record_id)
-        .where(Result.point_id == point_id, Result.current.is_(True))
+        .where(Result.point_id == point_id, Result.current)
         .order_by(Result.measured_ts.desc()).limit(n)
     ).all()
     spectra = []
