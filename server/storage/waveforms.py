@@ -84,8 +84,11 @@ class FileBlobs:
         """Create ``folder`` (two levels under the root) and fsync each parent that got a new entry."""
         if folder.is_dir():
             return
+        if not self.root.is_dir():
+            self.root.mkdir(parents=True, exist_ok=True)
+            _fsync_dir(self.root.parent)
         made = []
-        for level in (self.root, folder.parent, folder):
+        for level in (folder.parent, folder):
             try:
                 level.mkdir()
                 made.append(level)
@@ -319,8 +322,9 @@ class WaveformStore:
                     updates.append({"rid": rid, "was": store, "codec": blobs.RAW_CODEC, "data": b"",
                                     "store": "files", "digest": checksum})
                 else:
-                    updates.append({"rid": rid, "was": store, "codec": blobs.RAW_CODEC,
-                                    "data": blobs.encode_raw(x)[1], "store": "database", "digest": None})
+                    codec, packed = blobs.encode_waveform(x)  # compact, as the worker leaves analysed ones
+                    updates.append({"rid": rid, "was": store, "codec": codec, "data": packed,
+                                    "store": "database", "digest": None})
                     dropped.append(digest)
             with db.write() as conn:
                 done = conn.execute(update(Waveform.__table__)
