@@ -50,6 +50,7 @@ POLICY = {
     ("GET", "/api/v1/records/{record_id}"): "viewer",
     ("GET", "/api/v1/records/{record_id}/spectrum"): "viewer",
     ("GET", "/api/v1/records/{record_id}/waveform"): "viewer",
+    ("GET", "/api/v1/records/{record_id}/retention"): "viewer",
     ("GET", "/api/v1/points/{point_id}/records"): "viewer",
     ("GET", "/api/v1/points/{point_id}/trend"): "viewer",
     ("GET", "/api/v1/points/{point_id}/waterfall"): "viewer",
@@ -86,6 +87,8 @@ POLICY = {
     ("PUT", "/api/v1/points/{point_id}"): "engineer",
     ("POST", "/api/v1/routes"): "engineer",
     ("PUT", "/api/v1/routes/{route_id}"): "engineer",
+    ("PUT", "/api/v1/records/{record_id}/pin"): "engineer",  # keeps evidence past retention; audited
+    ("DELETE", "/api/v1/records/{record_id}/pin"): "engineer",
     ("GET", "/api/v1/audit"): "engineer",
     ("GET", "/api/v1/audit.csv"): "engineer",
     # administration
