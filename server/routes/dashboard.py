@@ -14,7 +14,7 @@ from sqlalchemy import select
 from server.answers import SeriesAnswer, WindowAnswer
 from server.security import Principal, require_role
 from server.services import dashboard as dashboard_service
-from server.services import series
+from server.services import plant_view, series
 from server.storage import tree as tree_queries
 from server.storage.tables import Area, Asset, Point, Site
 from server.times import ApiTime
@@ -58,14 +58,17 @@ def overview(request: Request, principal: Principal = Depends(viewer)):
                 zones = [p["latest"]["zone"] for p in pts if p["latest"] and p["latest"]["zone"] in ZONES]
                 asset.update(alarms=_alarm_summary(alarms.get(asset["id"], [])), last_measured_at=last,
                              zone=max(zones, default=None),
-                             spark=sparks.get(asset["id"], []),
                              spark_half_order_velocity_rms_mm_s=sparks.get(asset["id"], []),
                              states=sorted({p["state"] for p in pts}))
+    with db.read() as s:  # plant page: staleness, sparkline levels, summary strip (services.plant_view)
+        counts = plant_view.decorate(s, tree["sites"], due["routes"], plant_view.parse(due["now"]),
+                                     lambda s_, aid, ids: point_levels(s_, s_.get(Asset, aid), ids))
     overdue = [{"route_id": r["id"], "route": r["name"], **st} for r in due["routes"] for st in r["stops"]
                if st["status"] in ("due", "overdue")]
     return {"ok": True, "now": due["now"], "simulated": settings.simulated_data, "sites": tree["sites"],
-            "spark_days": 30, "routes": [{k: r[k] for k in ("id", "name", "site_id", "counts")}
-                                         for r in due["routes"]], "due_points": overdue}
+            "summary": counts, "spark_days": 30,
+            "routes": [{k: r[k] for k in ("id", "name", "site_id", "counts")} for r in due["routes"]],
+            "due_points": overdue}
 
 
 @router.get("/sites", summary="The sites the caller may see, with the time zone the dashboard shows")

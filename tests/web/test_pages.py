@@ -51,9 +51,9 @@ def test_overview_lists_assets_with_their_worst_level(login, site, screenshot):
         card = page.locator(f"article.machine[data-asset-id='{aid}']")
         expected = max(levels[name], key=rank.get, default="normal")
         assert card.get_attribute("data-level") == expected
-        # the level is written out and carries an icon, not only a colour
+        # the level is written out and carries a drawn icon (inline SVG), not only a colour
         badge = card.locator(".level").inner_text().lower()
-        assert expected in badge and any(icon in badge for icon in "○▲◆")
+        assert expected in badge and card.locator(f".level svg[data-icon='{expected}']").count() == 1
     assert levels["pump"] and max(levels["pump"], key=rank.get) != "normal"  # the growing half-order
     spark = page.evaluate(f"document.getElementById('spark-{plant.asset_ids['pump']}').data[0].y")
     assert sum(v is not None for v in spark) >= 10

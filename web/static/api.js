@@ -91,11 +91,35 @@ window.HW = window.HW || {};
     if (a !== 0 && (a < 1e-3 || a >= 1e5)) return x.toExponential(2);
     return Number(x.toPrecision(digits)).toString();
   };
-  const LEVELS = { normal: ["○", "normal"], alert: ["▲", "alert"], danger: ["◆", "danger"] };
+  /* ---- icons: inline SVG, so no icon depends on an emoji or symbol font ---- */
+  const SVGNS = "http://www.w3.org/2000/svg";
+  const ICONS = {
+    normal: [["circle", { cx: 8, cy: 8, r: 5.5, fill: "none", stroke: "currentColor", "stroke-width": 2 }]],
+    alert: [["path", { d: "M8 1.8 L14.6 14 H1.4 Z", fill: "currentColor" }]],
+    danger: [["path", { d: "M8 1 L15 8 L8 15 L1 8 Z", fill: "currentColor" }]],
+    clock: [["circle", { cx: 8, cy: 8, r: 6.2, fill: "none", stroke: "currentColor", "stroke-width": 1.8 }],
+      ["path", { d: "M8 4.2 V8.3 L10.8 10", fill: "none", stroke: "currentColor", "stroke-width": 1.8, "stroke-linecap": "round" }]],
+    check: [["path", { d: "M2.5 8.5 L6.5 12.5 L13.5 4", fill: "none", stroke: "currentColor", "stroke-width": 2.2, "stroke-linecap": "round" }]],
+    caution: [["path", { d: "M8 1.2 L15.2 14.4 H0.8 Z", fill: "none", stroke: "currentColor", "stroke-width": 1.6, "stroke-linejoin": "round" }],
+      ["path", { d: "M8 5.6 V9.8", stroke: "currentColor", "stroke-width": 1.8, "stroke-linecap": "round" }],
+      ["circle", { cx: 8, cy: 12.2, r: 1.05, fill: "currentColor" }]],
+  };
+  /* An inline SVG icon (aria-hidden: the word beside it carries the meaning). */
+  HW.icon = function (name, cls) {
+    const svg = document.createElementNS(SVGNS, "svg");
+    for (const [k, v] of Object.entries({ viewBox: "0 0 16 16", width: "1em", height: "1em", "aria-hidden": "true", focusable: "false",
+      class: `icon icon-${name}${cls ? " " + cls : ""}`, "data-icon": name })) svg.setAttribute(k, v);
+    for (const [tag, attrs] of ICONS[name] || ICONS.normal) {
+      const e = document.createElementNS(SVGNS, tag);
+      for (const [k, v] of Object.entries(attrs)) e.setAttribute(k, v);
+      svg.append(e);
+    }
+    return svg;
+  };
   HW.levelBadge = function (level) {
-    const [icon, word] = LEVELS[level] || ["·", level || "unknown"];
+    const word = ["normal", "alert", "danger"].includes(level) ? level : (level || "unknown");
     const span = HW.el("span", { class: `level level-${level}` });
-    span.append(HW.el("span", { class: "level-icon", "aria-hidden": "true" }, icon), " ", word);
+    span.append(HW.icon(ICONS[level] ? level : "normal", "level-icon"), " ", word);
     return span;
   };
   const ZONE_WORDS = { A: "A · newly commissioned", B: "B · unrestricted", C: "C · restricted", D: "D · damage risk" };

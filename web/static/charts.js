@@ -30,7 +30,7 @@
     }
     const cfg = Object.assign({ responsive: true, displaylogo: false,
       modeBarButtonsToRemove: ["lasso2d", "select2d", "toImage"] }, config);
-    el.setAttribute("role", "img");
+    el.setAttribute("role", "figure"); // a figure may hold the chart's own buttons (role img may not)
     if (!el.getAttribute("aria-label")) el.setAttribute("aria-label", (layout.title && layout.title.text) || el.dataset.label || "chart");
     return Plotly.react(el, traces, merged, cfg).then(() => { el.dataset.drawn = "1"; return el; });
   };
