@@ -1,0 +1,193 @@
+"""Tach pulses: times from a pulse channel, the refusals of a bad tach, the shaft phase.
+
+Reference: the speed profile is a linear ramp f(t) = f0 + (f1 - f0) t / T, whose phase is the one
+scipy.signal.chirp(method="linear") uses, φ(t) = 2π (f0 t + (f1 - f0) t² / (2T)) (scipy docs of chirp).
+The true pulse times solve φ(t_k) = 2π k (the quadratic formula); scipy.signal.square(φ) rises from -1 to +1
+exactly there (scipy docs of square: +1 for 0 <= φ mod 2π < 2π·duty).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from scipy import signal
+
+from analysis.errors import SignalError
+from analysis.tach import (
+    PERIOD_JUMP_TOLERANCE,
+    check_pulses,
+    phase_from_pulses,
+    pulses_from_channel,
+    speed_from_pulses,
+    tach_phase,
+)
+
+FS, T, F0, F1 = 5120.0, 8.0, 28.5, 31.5  # a 10 % run-up over 8 s (invented)
+
+
+def true_pulse_times(f0=F0, f1=F1, dur=T, per_rev=1):
+    """Roots of f0 t + (f1 - f0) t² / (2 dur) = k / per_rev, k = 0, 1, ... within the record."""
+    a = 0.5 * (f1 - f0) / dur
+    revs = f0 * dur + a * dur * dur
+    k = np.arange(int(np.floor(revs * per_rev)) + 1) / per_rev
+    t = (-f0 + np.sqrt(f0 * f0 + 4 * a * k)) / (2 * a)
+    return t[t <= dur - 1.0 / FS]  # pulses at or before the last sample
+
+
+def record_time(n=int(FS * T)):
+    return np.arange(n) / FS
+
+
+def ramp_phase(t):
+    return 2 * np.pi * (F0 * t + 0.5 * (F1 - F0) / T * t * t)
+
+
+def test_square_train_pulse_times_within_one_sample():
+    # scipy.signal.square as the reference pulse train: an ideal step lands between two samples, so the
+    # best a sampled edge can give is within one sample period (common practice)
+    t = record_time()
+    ch = 5.0 * (signal.square(ramp_phase(t)) + 1.0) / 2.0  # 0-5 V TTL-like pulses
+    got = pulses_from_channel(ch, FS)
+    want = true_pulse_times()[1:]  # the edge at t = 0 has no sample below the level before it
+    assert got.size == want.size
+    assert np.max(np.abs(got - want)) <= 1.0 / FS
+
+
+def test_smooth_pulse_edges_are_timed_to_a_small_fraction_of_a_sample():
+    # a finite rise time: tanh of scipy.signal.chirp's sine (phi=-90 makes it sin φ, rising through 0 at
+    # φ = 2πk); linear interpolation of the crossing recovers the sub-sample time
+    t = record_time()
+    ch = np.tanh(4.0 * signal.chirp(t, F0, T, F1, method="linear", phi=-90))
+    got = pulses_from_channel(ch, FS)
+    want = true_pulse_times()[1:]
+    assert got.size == want.size
+    assert np.max(np.abs(got - want)) < 0.02 / FS
+
+
+def test_speed_from_pulses_follows_the_ramp():
+    # for a linear ramp, 1 / revolution time equals f at the revolution's mid-time exactly (mean of a
+    # linear function); scipy.signal.chirp sets the profile
+    t = record_time()
+    ch = np.tanh(4.0 * signal.chirp(t, F0, T, F1, method="linear", phi=-90))
+    mid, f = speed_from_pulses(pulses_from_channel(ch, FS), 1)
+    want = F0 + (F1 - F0) * mid / T
+    assert np.max(np.abs(f / want - 1.0)) < 1e-4
+
+
+def test_hysteresis_ignores_noise_that_a_bare_threshold_counts():
+    # noise of 3 % of the pulse height on slow edges: a bare level crossing counts extra edges, the
+    # Schmitt trigger (hysteresis ±10 % of the span) counts each pulse once (common practice)
+    rng = np.random.default_rng(4)
+    t = record_time()
+    ch = np.tanh(1.5 * np.sin(ramp_phase(t))) + 0.03 * rng.standard_normal(t.size)
+    level = 0.5 * float(np.sum(np.percentile(ch, [1, 99])))
+    bare = int(np.sum((ch[:-1] < level) & (ch[1:] >= level)))
+    got = pulses_from_channel(ch, FS)
+    want = true_pulse_times()[1:]
+    assert bare > want.size  # the noise does make extra crossings
+    assert got.size == want.size
+    assert np.max(np.abs(got - want)) < 2.0 / FS
+
+
+def test_given_level_and_inverted_levels():
+    t = record_time()
+    ch = 2.0 + 3.0 * (signal.square(ramp_phase(t)) + 1.0) / 2.0  # 2-5 V
+    assert pulses_from_channel(ch, FS, level=3.0).size == true_pulse_times().size - 1
+    with pytest.raises(SignalError) as e:
+        pulses_from_channel(ch, FS, level=7.0)
+    assert e.value.field == "tach_level" and "span" in str(e.value)
+
+
+def test_phase_matches_the_chirp_phase():
+    # θ(t) - θ(t_0) against the analytic phase of scipy.signal.chirp's linear sweep, inside and outside
+    # the pulses (extrapolated at the end revolution's speed)
+    t = record_time()
+    ch = np.tanh(4.0 * signal.chirp(t, F0, T, F1, method="linear", phi=-90))
+    p = pulses_from_channel(ch, FS)
+    theta = tach_phase(p, 1, t.size, FS)
+    want = ramp_phase(t) - ramp_phase(p[0])
+    inside = (t >= p[0]) & (t <= p[-1])
+    assert np.max(np.abs(theta - want)[inside]) < 1e-4  # rad
+    # outside, a straight line at the nearest revolution's mean speed misses the ramp's quadratic term:
+    # 2π·(df/dt)·Δt² with Δt one revolution = 2π·0.375·0.035² ≈ 2.9e-3 rad (worked by hand)
+    assert np.max(np.abs(theta - want)[~inside]) < 4e-3
+    assert np.all(np.diff(theta) > 0)
+
+
+def test_phase_with_several_pulses_per_revolution():
+    # four marks per revolution, evenly spaced: θ advances π/2 per pulse
+    times = true_pulse_times(per_rev=4)
+    t = np.linspace(0.0, T, 2001)
+    theta = phase_from_pulses(times, 4, t)
+    assert np.max(np.abs(theta - ramp_phase(t))) < 2e-3
+    mid, f = speed_from_pulses(times, 4)
+    assert np.max(np.abs(f / (F0 + (F1 - F0) * mid / T) - 1.0)) < 1e-4
+
+
+def test_uneven_marks_repeat_each_revolution_and_pass():
+    # two marks per revolution at 0° and 150° (not evenly spaced): each gap equals the same gap one
+    # revolution before, so the check passes; comparing neighbouring gaps (150° vs 210°) would not
+    revs = np.arange(40)
+    times = np.sort(np.concatenate([revs, revs + 150 / 360]) / 30.0)
+    check_pulses(times, 2, 40 / 30.0)
+
+
+def test_missed_pulse_is_refused_with_the_tolerance():
+    p = true_pulse_times()
+    bad = np.delete(p, 100)
+    with pytest.raises(SignalError) as e:
+        check_pulses(bad, 1, T)
+    msg = str(e.value)
+    assert e.value.field == "tach_pulses_s"
+    assert "irregular" in msg and f"±{100 * PERIOD_JUMP_TOLERANCE:.0f} %" in msg and "+100 %" in msg
+
+
+def test_extra_pulse_is_refused():
+    p = true_pulse_times()
+    bad = np.sort(np.append(p, 0.5 * (p[50] + p[51])))
+    with pytest.raises(SignalError, match="irregular"):
+        check_pulses(bad, 1, T)
+
+
+def test_wrong_pulses_per_rev_is_refused_on_a_toothed_wheel():
+    # a 4-tooth wheel with one tooth missing (a common reference gap): the gap is 2x the others
+    times = true_pulse_times(per_rev=4)
+    times = times[np.arange(times.size) % 4 != 3]
+    with pytest.raises(SignalError, match="irregular"):
+        check_pulses(times, 4, T)
+
+
+def test_a_real_speed_change_within_tolerance_passes():
+    # a 10 % run-up over 8 s changes neighbouring revolutions by about 0.05 %: well within the tolerance
+    assert check_pulses(true_pulse_times(), 1, T).size == true_pulse_times().size
+
+
+@pytest.mark.parametrize(
+    "times, ppr, dur, field, words",
+    [
+        ([], 1, 1.0, "tach_pulses_s", "0 pulses"),
+        ([0.1, 0.2, 0.3], 1, 0.4, "tach_pulses_s", "at least 5"),
+        (np.arange(12) / 30.0, 4, 0.4, "tach_pulses_s", "at least 17"),
+        (np.r_[np.arange(10), 9.0] / 30.0, 1, 0.4, "tach_pulses_s", "must increase"),
+        (np.arange(10) / 30.0 + 0.5, 1, 0.6, "tach_pulses_s", "record lasts"),
+        (np.arange(10) / 30.0, 1, 2.0, "tach_pulses_s", "missing at the end"),
+        (np.arange(10) / 30.0 + 1.0, 1, 1.4, "tach_pulses_s", "missing at the start"),
+        (np.arange(10) / 30.0, 0, 1.0, "pulses_per_rev", "whole number"),
+        (np.arange(10) / 30.0, 1.5, 1.0, "pulses_per_rev", "whole number"),
+        ([0.0, float("nan"), 0.2], 1, 1.0, "tach_pulses_s", "non-finite"),
+    ],
+)
+def test_bad_tach_is_refused_naming_the_field(times, ppr, dur, field, words):
+    with pytest.raises(SignalError) as e:
+        check_pulses(times, ppr, dur)
+    assert e.value.field == field
+    assert words in str(e.value)
+
+
+def test_flat_or_broken_channel_is_refused():
+    with pytest.raises(SignalError, match="flat"):
+        pulses_from_channel(np.full(4096, 1.2), FS)
+    ch = np.ones(4096)
+    ch[7] = np.nan
+    with pytest.raises(SignalError, match="non-finite"):
+        pulses_from_channel(ch, FS)
