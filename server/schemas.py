@@ -92,6 +92,7 @@ class UserIn(Strict):
                           "name, not a very common password, not one character repeated")
     role: Literal["viewer", "technician", "engineer", "admin"] = "viewer"
     email: str = ""
+    site_id: DbId | None = Field(None, description="limit the user to this site; leave out for every site")
 
 
 class ApiKeyIn(Strict):

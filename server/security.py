@@ -73,7 +73,7 @@ class Principal:
     id: int
     name: str
     role: str
-    site_id: int | None = None  # an API key limited to one site; None = every site
+    site_id: int | None = None  # an API key or a user limited to one site; None = every site
     via_cookie: bool = False
     csrf_token: str | None = None
 
@@ -187,7 +187,8 @@ def _principal_from_cookie(db, token: str) -> Principal | None:
     sess, user = row
     if sess.expires_at < utcnow() or not user.active:
         return None
-    return Principal("user", user.id, user.username, user.role, via_cookie=True, csrf_token=sess.csrf_token)
+    return Principal("user", user.id, user.username, user.role, site_id=user.site_id, via_cookie=True,
+                     csrf_token=sess.csrf_token)
 
 
 def signing_key(settings) -> bytes:

@@ -85,12 +85,13 @@ def cmd_user_add(args) -> int:
     db = _database(settings)
     try:
         user = users.add_user(db, settings, username=args.username, password=password,
-                              role=args.role, email=args.email or "")
+                              role=args.role, email=args.email or "", site=args.site)
     except AppError as exc:
         raise UsageError(str(exc)) from None
     finally:
         db.dispose()
-    print(f"user {user['username']} ({user['role']}) added")
+    where = f", limited to site {user['site_id']}" if user["site_id"] is not None else ""
+    print(f"user {user['username']} ({user['role']}{where}) added")
     return 0
 
 
@@ -155,10 +156,12 @@ def register(sub: argparse._SubParsersAction) -> None:
     p = sub.add_parser("user", help="user accounts")
     usub = p.add_subparsers(dest="user_command", required=True, metavar="ACTION")
     u = usub.add_parser("add", help="add a user (password from --password or stdin)")
-    u.add_argument("username")
-    u.add_argument("--role", choices=("viewer", "technician", "engineer", "admin"), default="viewer")
-    u.add_argument("--email", default="")
-    u.add_argument("--password", default=None)
+    u.add_argument("username", help="the login name (no control characters)")
+    u.add_argument("--role", choices=("viewer", "technician", "engineer", "admin"), default="viewer",
+                   help="what the user may do (default: viewer)")
+    u.add_argument("--email", default="", help="address for alert mail they subscribe to (optional)")
+    u.add_argument("--password", default=None, help="the password (default: read from stdin or asked)")
+    u.add_argument("--site", default=None, help="site name or id the user is limited to (default: all sites)")
     u.set_defaults(func=cmd_user_add)
 
     p = sub.add_parser("apikey", help="API keys for sensors and gateways")

@@ -1,6 +1,7 @@
 """Users and API keys (admin).
 
-Users are not limited to a site, so a key limited to one site cannot list or manage them; such a key
+A user may be limited to one site (``site_id``), as a key may; managing users still needs a caller who
+is not limited to a site (a limited admin could otherwise widen a user's reach). A key limited to a site
 lists, creates and revokes only keys limited to its own site (never an unlimited key: that would
 widen its own reach).
 """
@@ -11,7 +12,7 @@ from typing import Literal
 
 from fastapi import APIRouter, Depends, Request
 from fastapi.responses import JSONResponse
-from pydantic import BaseModel, ConfigDict
+from pydantic import BaseModel, ConfigDict, Field
 
 from server.errors import Forbidden
 from server.schemas import ApiKeyIn, UserIn
@@ -23,10 +24,10 @@ admin = require_role("admin")
 
 
 def user_admin(principal: Principal = Depends(admin)) -> Principal:
-    """Managing users needs an admin who is not limited to one site (users see every site)."""
+    """Managing users needs an admin who is not limited to one site."""
     if principal.site_id is not None:
-        raise Forbidden("users can see every site; a key limited to one site cannot list or manage them "
-                        "(use an admin login or an unlimited admin key)", field="site_id")
+        raise Forbidden("users may be given any site; a caller limited to one site cannot list or manage "
+                        "them (use an admin login or an admin key not limited to a site)", field="site_id")
     return principal
 
 
@@ -34,6 +35,9 @@ class UserPatch(BaseModel):
     model_config = ConfigDict(extra="forbid")
     role: Literal["viewer", "technician", "engineer", "admin"] | None = None
     active: bool | None = None
+    site_id: int | None = Field(None, ge=1, le=2**63 - 1, strict=True,
+                                description="limit the user to this site; null for every site "
+                                "(leave the field out to keep the limit as it is)")
 
 
 @router.get("/users", summary="List users (admin)")
@@ -45,14 +49,15 @@ def list_users(request: Request, principal: Principal = Depends(user_admin)):
 def add_user(request: Request, body: UserIn, principal: Principal = Depends(user_admin)):
     app = request.app
     user = users.add_user(app.state.db, app.state.settings, username=body.username, password=body.password,
-                          role=body.role, email=body.email, hashing=app.state.passwords,
+                          role=body.role, email=body.email, site=body.site_id, hashing=app.state.passwords,
                           actor=principal.label)
     return JSONResponse({"ok": True, "user": user}, status_code=201)
 
 
 @router.patch("/users/{user_id}", summary="Change a user's role or deactivate them (admin)")
 def patch_user(request: Request, user_id: int, body: UserPatch, principal: Principal = Depends(user_admin)):
-    user = users.set_user(request.app.state.db, user_id, role=body.role, active=body.active,
+    site = body.site_id if "site_id" in body.model_fields_set else users.KEEP
+    user = users.set_user(request.app.state.db, user_id, role=body.role, active=body.active, site=site,
                           actor=principal.label)
     return {"ok": True, "user": user}
 

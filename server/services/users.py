@@ -62,11 +62,25 @@ def check_email(email: str, field: str = "email") -> str:
 
 
 def _user_dict(u: User) -> dict:
-    return {"id": u.id, "username": u.username, "email": u.email, "role": u.role, "active": u.active}
+    return {"id": u.id, "username": u.username, "email": u.email, "role": u.role, "active": u.active,
+            "site_id": u.site_id}
+
+
+def find_site_id(s, site: str | int | None) -> int | None:
+    """The id of the site a user or a key is limited to, from its id or name; None (or '') = every site."""
+    if site is None or site == "":
+        return None
+    found = s.get(Site, int(site)) if str(site).isdigit() else None
+    found = found or s.scalar(select(Site).where(Site.name == str(site)))
+    if found is None:
+        raise UserError(f"no site {site!r}; give a site name or id, or leave it out for every site",
+                        field="site_id", status=422, code="invalid")
+    return found.id
 
 
 def add_user(db, settings, *, username: str, password: str, role: str, email: str = "",
-             hashing: PasswordHashing | None = None, actor: str = "cli") -> dict:
+             site: str | int | None = None, hashing: PasswordHashing | None = None,
+             actor: str = "cli") -> dict:
     if role not in ROLES:
         raise UserError(f"role {role!r} is not one of {', '.join(ROLES)}", field="role")
     check_name(username, "username")
@@ -76,7 +90,8 @@ def add_user(db, settings, *, username: str, password: str, role: str, email: st
     with db.unit_of_work() as s:
         if s.scalar(select(User.id).where(User.username == username)) is not None:
             raise Conflict(f"user {username!r} already exists", field="username")
-        user = User(username=username, email=email, password_hash=hashing.hash(password), role=role)
+        user = User(username=username, email=email, password_hash=hashing.hash(password), role=role,
+                    site_id=find_site_id(s, site))
         s.add(user)
         s.flush()
         out = _user_dict(user)
@@ -89,8 +104,13 @@ def list_users(db) -> list[dict]:
         return [_user_dict(u) for u in s.scalars(select(User).order_by(User.username))]
 
 
+KEEP = object()  # set_user: leave the site limit as it is
+
+
 def set_user(db, user_id: int, *, role: str | None = None, active: bool | None = None,
-             actor: str = "cli") -> dict:
+             site: object = KEEP, actor: str = "cli") -> dict:
+    """Change the role, deactivate (ends the user's sessions) or change the site limit (``site``: an id
+    or a name, None for every site; takes effect on the user's next request)."""
     with db.unit_of_work() as s:
         user = s.get(User, user_id)
         if user is None:
@@ -103,8 +123,11 @@ def set_user(db, user_id: int, *, role: str | None = None, active: bool | None =
             user.active = active
             if not active:
                 s.execute(delete(UserSession).where(UserSession.user_id == user.id))
-        audit.record(s, actor=actor, action="update", target="user", target_id=user.id, role=role,
-                     active=active)
+        changes: dict = {"role": role, "active": active}
+        if site is not KEEP:
+            user.site_id = find_site_id(s, site)  # type: ignore[arg-type]
+            changes["site_id"] = user.site_id
+        audit.record(s, actor=actor, action="update", target="user", target_id=user.id, **changes)
         return _user_dict(user)
 
 
@@ -147,13 +170,7 @@ def create_api_key(db, *, name: str, role: str = "technician", site: str | int |
     check_name(name, "name")
     key, prefix, digest = new_api_key()
     with db.unit_of_work() as s:
-        site_id = None
-        if site is not None and site != "":
-            found = s.get(Site, int(site)) if str(site).isdigit() else None
-            found = found or s.scalar(select(Site).where(Site.name == str(site)))
-            if found is None:
-                raise UserError(f"no site {site!r}; give a site name or id", field="site")
-            site_id = found.id
+        site_id = find_site_id(s, site)
         row = ApiKey(prefix=prefix, key_hash=digest, name=name, role=role, site_id=site_id,
                      created_by=created_by)
         s.add(row)

@@ -259,6 +259,8 @@ class User(Base):
     role: Mapped[str] = mapped_column(String(16))
     active: Mapped[bool] = mapped_column(Boolean, default=True)
     created_at: Mapped[dt.datetime] = mapped_column(UTCDateTime, default=utcnow)
+    # a user limited to one site (migration 0011); None = every site
+    site_id: Mapped[int | None] = mapped_column(ForeignKey("sites.id", ondelete="CASCADE"))
 
 
 class UserSession(Base):

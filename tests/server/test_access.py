@@ -172,3 +172,43 @@ def test_admin_adds_user_who_can_log_in(users, app):
     with TestClient(app) as c:
         assert c.post("/api/v1/session", json={"username": "route.tech", "password": "long enough pw"}
                       ).status_code == 200
+
+
+def _site_names(c) -> list[str]:
+    r = c.get("/api/v1/tree")
+    assert r.status_code == 200, r.text
+    return sorted(s["name"] for s in r.json()["sites"])
+
+
+def test_a_user_limited_to_a_site_sees_only_that_site_until_the_limit_changes(users, app, plant):
+    """A user may be limited to one site like an API key (users.site_id, migration 0011); the limit is
+    read on every request, so a change holds from the user's next request, and is in the audit trail."""
+    admin = users.login("admin")
+    r = admin.post("/api/v1/users", json={"username": "hill.viewer", "password": "long enough pw",
+                                          "site_id": plant.other_site_id})
+    assert r.status_code == 201 and r.json()["user"]["site_id"] == plant.other_site_id, r.text
+    uid = r.json()["user"]["id"]
+    with TestClient(app) as c:
+        assert c.post("/api/v1/session", json={"username": "hill.viewer", "password": "long enough pw"}
+                      ).status_code == 200
+        assert _site_names(c) == ["Hilltop annex"]
+        assert c.get(f"/api/v1/dashboard/points/{plant.point_id}/series").status_code == 403  # Riverside
+        assert _site_names(admin) == ["Hilltop annex", "Riverside works"]
+        # a change of role leaves the limit as it is; null lifts it
+        r = admin.patch(f"/api/v1/users/{uid}", json={"role": "technician"})
+        assert r.status_code == 200 and r.json()["user"]["site_id"] == plant.other_site_id
+        assert _site_names(c) == ["Hilltop annex"]
+        assert admin.patch(f"/api/v1/users/{uid}", json={"site_id": None}).status_code == 200
+        assert _site_names(c) == ["Hilltop annex", "Riverside works"]
+        assert admin.patch(f"/api/v1/users/{uid}", json={"site_id": plant.site_id}).status_code == 200
+        assert _site_names(c) == ["Riverside works"]
+        # a user limited to a site cannot manage users (it could widen its own reach)
+        assert c.get("/api/v1/users").status_code == 403
+    r = admin.post("/api/v1/users", json={"username": "nowhere", "password": "long enough pw",
+                                          "site_id": 987654})
+    assert r.status_code == 422 and r.json()["error"]["field"] == "site_id", r.text
+    r = admin.get("/api/v1/audit", params={"target": "user"})
+    assert r.status_code == 200, r.text
+    limits = [c["details"].get("site_id", "-") for c in r.json()["changes"]
+              if c["target_id"] == uid and c["action"] == "update"]
+    assert limits == [plant.site_id, None, "-"], limits  # newest first; a role change leaves no site_id

@@ -46,6 +46,7 @@ SITE2_NAMES = ("Hilltop annex", "Boiler house", "ID fan", "F-DE-H", "Hilltop wal
                "hilltop gateway")
 ID_KEYS = ("site_id", "area_id", "asset_id", "point_id", "record_id")
 SETUP = Principal("user", 0, "setup", "admin")  # an unlimited admin for building the scenario
+S1_USER_PASSWORD = "river bend 4 quay"
 
 
 @dataclass
@@ -137,6 +138,9 @@ def build_world(app, rng) -> World:
     _key2, info2 = create_api_key(db, name="hilltop gateway", role="technician", site=plant.other_site_id)
     user = add_user(db, settings, username="planner", password="a long pass phrase 7", role="viewer",
                     email="planner@example.test", hashing=app.state.passwords)["id"]
+    # a user limited to site 1 (migration 0011), an admin so a role check cannot hide a missing site check
+    add_user(db, settings, username="riverside-admin", password=S1_USER_PASSWORD, role="admin",
+             email="", site=plant.site_id, hashing=app.state.passwords)
     fan_area = make_area_of(db, plant.asset_ids["fan"])
     s1 = Side(plant.site_id, plant.area_id, plant.asset_ids["pump"], p1, plant.route_id, recs[0], jobs[0],
               states[0], subs[0], spare1["id"])
@@ -253,6 +257,7 @@ SITE_RULES: dict[tuple[str, str], tuple] = {
     ("GET", "/api/v1/points/{point_id}/waterfall"): (REFUSE, None),
     ("GET", "/api/v1/dashboard/assets/{asset_id}"): (REFUSE, None),
     ("GET", "/api/v1/dashboard/points/{point_id}/series"): (REFUSE, None),
+    ("GET", "/api/v1/dashboard/points/{point_id}/readings"): (REFUSE, None),
     ("GET", "/api/v1/dashboard/points/{point_id}/window"): (REFUSE, None),
     ("GET", "/api/v1/dashboard/records/{record_id}"): (REFUSE, None),
     ("GET", "/api/v1/alarms/rules"): (REFUSE, q(point_id="@point")),
@@ -376,10 +381,18 @@ def world(app, rng):
     return build_world(app, rng)
 
 
-@pytest.fixture
-def key_client(app, world):
+@pytest.fixture(params=["api-key", "login"])
+def key_client(request, app, world):
+    """A caller limited to site 1: the site-1 admin API key, or a logged-in admin user limited to site 1
+    (session cookie and its CSRF token, as the dashboard sends them)."""
     with TestClient(app, follow_redirects=False) as c:
-        c.headers.update(world.headers)
+        if request.param == "api-key":
+            c.headers.update(world.headers)
+        else:
+            r = c.post("/api/v1/session", json={"username": "riverside-admin", "password": S1_USER_PASSWORD})
+            assert r.status_code == 200, r.text
+            c.headers["X-CSRF-Token"] = c.cookies["halfwatch_csrf"]
+            c.headers["Origin"] = "http://testserver"
         yield c
 
 
