@@ -27,6 +27,28 @@ class Recording:
     fs_hz: float
     units: str
     meta: dict = field(default_factory=dict)
+    #: the tach channel's raw samples (any unit) when a reader was asked for ``tach_channel``
+    tach: np.ndarray | None = None
+
+
+def _pick_channels(y: np.ndarray, tach_channel: int | None) -> tuple[np.ndarray, np.ndarray | None]:
+    """(acceleration, tach) from samples x channels: channels count from 1; the acceleration is the first
+    channel that is not the tach."""
+    y = y.reshape(len(y), -1)
+    if tach_channel is None:
+        return y[:, 0], None
+    nch = y.shape[1]
+    try:
+        n = int(tach_channel)
+        ok = n == float(tach_channel)
+    except (TypeError, ValueError, OverflowError):
+        ok = False
+    if not ok or not 1 <= n <= nch or nch < 2:
+        raise SignalError(
+            f"tach channel {tach_channel!r} is not in this file: it has {nch} channel(s), counted from 1; "
+            "a tach needs a second channel beside the acceleration", field="tach_channel")
+    accel = 1 if n == 1 else 0
+    return y[:, accel], np.asarray(y[:, n - 1], dtype=np.float64)
 
 
 def _as_bytes(data: bytes | str | os.PathLike) -> bytes:
@@ -38,15 +60,17 @@ def _as_bytes(data: bytes | str | os.PathLike) -> bytes:
         raise SignalError(f"cannot read {data}: {exc.strerror}; check the path", field="file") from None
 
 
-def _finish(samples, fs, units, meta) -> Recording:
+def _finish(samples, fs, units, meta, tach: np.ndarray | None = None) -> Recording:
     x, fs = validate_samples(samples, fs)
-    return Recording(samples=x, fs_hz=fs, units=normalize_units(units), meta=meta)
+    return Recording(samples=x, fs_hz=fs, units=normalize_units(units), meta=meta, tach=tach)
 
 
 def read_wav(
-    data: bytes | str | os.PathLike, *, units: str | None = None, full_scale: float = 1.0
+    data: bytes | str | os.PathLike, *, units: str | None = None, full_scale: float = 1.0,
+    tach_channel: int | None = None,
 ) -> Recording:
-    """WAV, PCM 8/16/24/32-bit or IEEE float; sample rate from the header, first channel.
+    """WAV, PCM 8/16/24/32-bit or IEEE float; sample rate from the header, first channel (with
+    ``tach_channel``: that channel as the tach, the first other channel as the acceleration).
 
     PCM values are scaled to ±1 at full scale and multiplied by ``full_scale`` (the sensor's acceleration at
     digital full scale, in ``units``); float files are taken as acceleration values.
@@ -67,16 +91,14 @@ def read_wav(
         raise SignalError(
             f"not a readable WAV file ({exc}); export PCM or float WAV, or use CSV", field="file"
         ) from None
-    y = np.asarray(y)
-    if y.ndim == 2:
-        y = y[:, 0]
+    y, tach = _pick_channels(np.asarray(y), tach_channel)
     if y.dtype.kind in "iu":
         if y.dtype == np.uint8:
             y = (y.astype(np.float64) - 128.0) / 128.0
         else:
             y = y.astype(np.float64) / float(-np.iinfo(y.dtype).min)
         y = y * float(full_scale)
-    return _finish(y, fs, units or "g", {"format": "wav", "sample_rate_source": "header"})
+    return _finish(y, fs, units or "g", {"format": "wav", "sample_rate_source": "header"}, tach)
 
 
 def _check_wav_data_size(raw: bytes) -> None:
@@ -125,9 +147,13 @@ def _parse_rows(rows: list[list[str]], ncol: int, has_header: bool) -> np.ndarra
 
 
 def read_csv(
-    data: bytes | str | os.PathLike, *, units: str | None = None, sample_rate_hz: float | None = None
+    data: bytes | str | os.PathLike, *, units: str | None = None, sample_rate_hz: float | None = None,
+    tach_channel: int | None = None,
 ) -> Recording:
     """CSV with one acceleration column, or time [s] + acceleration; an optional header line.
+
+    With ``tach_channel`` the file has two or more channel columns, after a time column when the first
+    column increases in even steps; channels count from 1 after the time column.
 
     With a time column the sample rate comes from the (even) time steps; otherwise give ``sample_rate_hz``.
     A header naming units in brackets or after an underscore ("accel [m/s^2]", "acc_g") sets the units when
@@ -155,7 +181,7 @@ def read_csv(
     if not rows:
         raise SignalError("the CSV file has a header but no samples", field="file")
     ncol = len([c for c in rows[0] if c.strip()])
-    if ncol not in (1, 2):
+    if ncol not in (1, 2) and tach_channel is None:
         raise SignalError(
             f"the CSV has {ncol} columns; give one (acceleration) or two (time, acceleration)", field="file"
         )
@@ -165,8 +191,16 @@ def read_csv(
             raise ValueError
     except ValueError:
         values = _parse_rows(rows, ncol, header is not None)
-    if units is None and header:
-        units = _units_from_header(header[-1])
+    accel_col = ncol - 1
+    tach = None
+    if tach_channel is not None:
+        has_time = len(values) > 1 and bool(np.all(np.diff(values[:, 0]) > 0))
+        y, tach = _pick_channels(values[:, int(has_time):], tach_channel)
+        accel_col = int(has_time) + (1 if tach_channel == 1 else 0)
+        values = np.column_stack([values[:, 0], y]) if has_time else y[:, None]
+        ncol = 2 if has_time else 1
+    if units is None and header and len(header) > accel_col:
+        units = _units_from_header(header[accel_col])
     meta = {"format": "csv"}
     if ncol == 2:
         t = values[:, 0]
@@ -203,7 +237,7 @@ def read_csv(
         fs = sample_rate_hz
         meta["sample_rate_source"] = "given"
         y = values[:, 0]
-    return _finish(y, fs, units or "g", meta)
+    return _finish(y, fs, units or "g", meta, tach)
 
 
 def _units_from_header(name: str) -> str | None:
@@ -223,8 +257,12 @@ def _units_from_header(name: str) -> str | None:
     return None
 
 
-def read_uff58(data: bytes | str | os.PathLike, *, units: str | None = None) -> Recording:
+def read_uff58(data: bytes | str | os.PathLike, *, units: str | None = None,
+               tach_channel: int | None = None) -> Recording:
     """The first time-response record (function type 1) of a Universal File Format dataset 58, via pyuff.
+
+    With ``tach_channel`` the file's datasets 58 are its channels, counted from 1 in file order; they must
+    share the length and the time increment.
 
     Units come from the ordinate axis label when not given; the sample rate from the abscissa increment.
     """
@@ -248,15 +286,25 @@ def read_uff58(data: bytes | str | os.PathLike, *, units: str | None = None) -> 
             raise SignalError(
                 "the file holds no UFF dataset 58 (time data); export the record as dataset 58", field="file"
             )
-        idx = types.index(58)
+        idx = [i for i, k in enumerate(types) if k == 58][: None if tach_channel is not None else 1]
         try:
-            s = uff.read_sets(idx)
+            sets = [uff.read_sets(i) for i in idx]
         except Exception as exc:
             raise SignalError(
                 f"the UFF dataset 58 cannot be read ({exc}); re-export it", field="file"
             ) from None
     finally:
         os.unlink(name)
+    s = sets[0]
+    tach = None
+    if tach_channel is not None:
+        if len({len(np.asarray(k["data"])) for k in sets}) > 1 or len(
+                {float(k.get("abscissa_inc") or 0.0) for k in sets}) > 1:
+            raise SignalError("the UFF datasets 58 differ in length or time increment; a tach channel must "
+                              "be sampled with the acceleration", field="tach_channel")
+        both = np.column_stack([np.real(np.asarray(k["data"])) for k in sets])
+        _, tach = _pick_channels(both, tach_channel)
+        s = sets[1 if int(tach_channel) == 1 else 0]
     y = np.asarray(s["data"])
     if np.iscomplexobj(y):
         raise SignalError(
@@ -280,7 +328,7 @@ def read_uff58(data: bytes | str | os.PathLike, *, units: str | None = None) -> 
         "sample_rate_source": "abscissa increment",
         "id1": str(s.get("id1", "")).strip(),
     }
-    return _finish(y.astype(np.float64), 1.0 / inc, units or "g", meta)
+    return _finish(y.astype(np.float64), 1.0 / inc, units or "g", meta, tach)
 
 
 def read_any(
@@ -289,18 +337,20 @@ def read_any(
     *,
     units: str | None = None,
     sample_rate_hz: float | None = None,
+    tach_channel: int | None = None,
 ) -> Recording:
-    """Read bytes (an upload) or a path; the format comes from the file name's extension."""
+    """Read bytes (an upload) or a path; the format comes from the file name's extension. With
+    ``tach_channel`` (counted from 1) that channel comes back raw in ``Recording.tach``."""
     name = str(filename if filename is not None else data if not isinstance(data, bytes | bytearray) else "")
     ext = Path(name).suffix.lower()
     if units is not None:
         units = normalize_units(units)
     if ext == ".wav":
-        rec = read_wav(data, units=units)
+        rec = read_wav(data, units=units, tach_channel=tach_channel)
     elif ext in (".csv", ".txt", ".tsv"):
-        return read_csv(data, units=units, sample_rate_hz=sample_rate_hz)
+        return read_csv(data, units=units, sample_rate_hz=sample_rate_hz, tach_channel=tach_channel)
     elif ext in (".uff", ".unv", ".uf"):
-        rec = read_uff58(data, units=units)
+        rec = read_uff58(data, units=units, tach_channel=tach_channel)
     else:
         raise SignalError(
             f"unknown file type {ext or '(no extension)'!r}; use .wav, .csv or .uff (dataset 58)",

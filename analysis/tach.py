@@ -210,6 +210,12 @@ def speed_from_pulses(times_s, pulses_per_rev: int) -> tuple[np.ndarray, np.ndar
     return 0.5 * (tp[ppr:] + tp[:-ppr]), 1.0 / period
 
 
+def mean_speed_hz(times_s, pulses_per_rev: int) -> float:
+    """Mean shaft speed in Hz (rev/s) over the pulses: whole pulse intervals / P over their span."""
+    tp = np.asarray(times_s, dtype=np.float64).ravel()
+    return float((tp.size - 1) / _ppr(pulses_per_rev) / (tp[-1] - tp[0]))
+
+
 def tach_phase(times_s, pulses_per_rev: int, n_samples: int, fs: float, *,
                field: str = "tach_pulses_s") -> np.ndarray:
     """Checked pulses -> the shaft phase at each sample of an ``n_samples`` record at ``fs`` Hz."""

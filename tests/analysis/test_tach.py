@@ -191,3 +191,72 @@ def test_flat_or_broken_channel_is_refused():
     ch[7] = np.nan
     with pytest.raises(SignalError, match="non-finite"):
         pulses_from_channel(ch, FS)
+
+
+# --- readers: a tach channel beside the acceleration (analysis/io.py) ---------------------------------
+
+def _two_channels():
+    t = record_time(int(FS * 2))
+    accel = 0.3 * np.sin(2 * np.pi * 30.0 * t)
+    tach = 5.0 * (signal.square(2 * np.pi * 30.0 * t) + 1.0) / 2.0
+    return t, accel, tach
+
+
+def test_wav_tach_channel(tmp_path):
+    # writer: scipy.io.wavfile (float32 WAV, samples x channels)
+    from scipy.io import wavfile
+
+    from analysis.io import read_any
+
+    t, accel, tach = _two_channels()
+    path = tmp_path / "two.wav"
+    wavfile.write(path, int(FS), np.column_stack([tach, accel]).astype(np.float32))
+    rec = read_any(path, str(path), tach_channel=1)
+    np.testing.assert_allclose(rec.samples, accel, atol=1e-6)
+    np.testing.assert_allclose(rec.tach, tach, atol=1e-6)
+    assert pulses_from_channel(rec.tach, rec.fs_hz).size == 59  # 60 revolutions in 2 s, edge at 0 unseen
+    with pytest.raises(SignalError) as e:
+        read_any(path, str(path), tach_channel=3)
+    assert e.value.field == "tach_channel" and "2 channel(s)" in str(e.value)
+
+
+def test_csv_tach_channel_with_and_without_time_column(tmp_path):
+    from analysis.io import read_any
+
+    t, accel, tach = _two_channels()
+    path = tmp_path / "three.csv"
+    np.savetxt(path, np.column_stack([t, accel, tach]), delimiter=",", header="time_s,accel [g],tach [V]",
+               comments="")
+    rec = read_any(path, str(path), tach_channel=2)
+    assert rec.fs_hz == pytest.approx(FS, rel=1e-6) and rec.units == "g"
+    np.testing.assert_allclose(rec.tach, tach, atol=1e-9)
+    np.testing.assert_allclose(rec.samples, accel, atol=1e-9)
+    path2 = tmp_path / "two.csv"
+    np.savetxt(path2, np.column_stack([tach, accel]), delimiter=",")
+    rec2 = read_any(path2, str(path2), tach_channel=1, sample_rate_hz=FS)
+    np.testing.assert_allclose(rec2.samples, accel, atol=1e-9)
+    with pytest.raises(SignalError, match="tach channel 1 is not in this file"):
+        path1 = tmp_path / "one.csv"
+        np.savetxt(path1, accel[:, None], delimiter=",")
+        read_any(path1, str(path1), tach_channel=1, sample_rate_hz=FS)
+
+
+def test_uff_tach_channel(tmp_path):
+    # writer: pyuff (open Universal File Format, two datasets 58 = two channels)
+    import pyuff
+
+    from analysis.io import read_any
+
+    t, accel, tach = _two_channels()
+    sets = [pyuff.prepare_58(
+        binary=0, id1=name, func_type=1, rsp_node=1, rsp_dir=3, ref_node=1, ref_dir=3,
+        abscissa_spacing=1, abscissa_spec_data_type=17, abscissa_axis_units_lab="s",
+        ordinate_spec_data_type=12, ordinate_axis_units_lab=unit, orddenom_spec_data_type=0,
+        z_axis_spec_data_type=0, data=data, x=t,
+    ) for name, unit, data in (("accel", "g", accel), ("tach", "V", tach))]  # fmt: skip
+    path = tmp_path / "two.uff"
+    pyuff.UFF(str(path)).write_sets(sets, mode="add")
+    rec = read_any(path.read_bytes(), "two.uff", tach_channel=2)
+    assert rec.units == "g"
+    np.testing.assert_allclose(rec.samples, accel, atol=1e-9)
+    np.testing.assert_allclose(rec.tach, tach, atol=1e-9)
