@@ -18,7 +18,7 @@ calibration: a sine locked to the shaft with peak A is A cos(kθ + φ) at every 
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 import scipy.fft as sfft
@@ -26,6 +26,7 @@ from scipy.interpolate import CubicSpline, make_lsq_spline
 from scipy.signal import fftconvolve, firwin
 
 from .errors import SignalError
+from .results import Growth
 
 #: −6 dB point of the low-pass after demodulation, in orders of 1X: holds a 1X swing of about ±10 %
 FIR_CUTOFF = 0.2
@@ -37,6 +38,9 @@ KNOT_REVS = 12.0
 HARMONIC_AGREE_RAD = 0.05
 #: shaft-phase residual (r.m.s., rad of shaft angle) above which the record's own phase is not trusted
 MAX_RESIDUAL_RAD = 0.2
+#: order tracking starts when the per-segment 1X moves by more than this many bin spacings over the record
+#: (analysis.pipeline): 0.5X then moves by more than half a bin and a fixed-frequency line test fails
+TRACK_BINS = 1.0
 #: anti-alias cut-off as a fraction of the new Nyquist order (spr / 2), applied at the lowest speed
 ANTI_ALIAS_FRACTION = 0.9
 
@@ -54,6 +58,11 @@ class PhaseTrack:
     @property
     def speed_min_hz(self) -> float:
         return float(np.min(self.speed_hz))
+
+    @property
+    def trusted(self) -> bool:
+        """Whether the phase is clean enough to resample on (residual within ``MAX_RESIDUAL_RAD``)."""
+        return bool(self.residual_rad <= MAX_RESIDUAL_RAD)
 
     @property
     def speed_max_hz(self) -> float:
@@ -295,3 +304,40 @@ def resample_to_angle(
         speed_max_hz=float(np.max(speed)),
         source=source,
     )
+
+
+def angle_growth_to_time(growth: Growth, env_t: np.ndarray, angle: AngleRecord) -> tuple[Growth, np.ndarray]:
+    """A growth fit made on the equal-angle axis, told in the record's own time.
+
+    Times (onset, fit window, levelling, envelope samples) are mapped through the angle samples' times;
+    the rate and its interval are scaled by the mean speed over the fit window against the record's mean
+    speed (a rate per revolution times revolutions per second), so they are per second of the record.
+    """
+    t_real = angle.real_time(env_t) if len(env_t) else env_t
+
+    def at(v: float | None) -> float | None:
+        return None if v is None else float(angle.real_time(v))
+
+    def pair(p: tuple[float | None, float | None]) -> tuple[float | None, float | None]:
+        return at(p[0]), at(p[1])
+
+    a, b = growth.fit_window_s
+    scale = 1.0
+    if a is not None and b is not None and b > a:
+        ra, rb = at(a), at(b)
+        if ra is not None and rb is not None and rb > ra:
+            scale = (b - a) / (rb - ra)
+
+    def rate(v: float | None) -> float | None:
+        return None if v is None else v * scale
+
+    g = replace(
+        growth,
+        rate_per_s=rate(growth.rate_per_s),
+        ci95_per_s=(rate(growth.ci95_per_s[0]), rate(growth.ci95_per_s[1])),
+        onset_s=at(growth.onset_s),
+        fit_window_s=pair(growth.fit_window_s),
+        onset_ci95_s=pair(growth.onset_ci95_s),
+        level_off_s=at(growth.level_off_s),
+    )
+    return g, np.asarray(t_real, dtype=float)

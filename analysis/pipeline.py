@@ -12,6 +12,7 @@ from .errors import SignalError
 from .forcing import line_near, refine_forcing
 from .growth import band_signal, chart_envelope, estimate_growth, growth_band, not_estimated
 from .known_look import whole_record_look
+from .orders import TRACK_BINS, angle_growth_to_time, resample_to_angle, shaft_phase_from_signal
 from .precursor import bump_test
 from .quality import quality_flags
 from .results import Forcing, OrderLine, Overall, Quality, RecordAnalysis
@@ -128,6 +129,38 @@ def analyze_record(
         forcing = refine_forcing(spec, speed)
     f1 = forcing.frequency_hz
 
+    # ---- order tracking (analysis/orders.py; owner: orders) --------------------------------------------
+    # Rule: track when the per-segment 1X moves by more than TRACK_BINS bin spacings over the record (the
+    # 0.5X line then smears over more than half a bin and loses its phase coherence). The shaft angle comes
+    # from the tach pulses when given, else from the record (refused when its phase residual is too large);
+    # the record is resampled to equal angle steps and everything below runs in orders on it, with x, fs,
+    # spec and f1 rebound (fs = samples per rev x mean speed, so f1 is the mean speed). Overall level and
+    # waveform statistics stay on the time record (x_time, spec_time).
+    x_time, fs_time, spec_time = x, fs, spec
+    spread, _ = one_x_spread(x, fs, spec, f1)
+    angle = None
+    tach_phase = locals().get("tach_phase_rad")
+    if tach_phase is not None:
+        angle = resample_to_angle(x, fs, tach_phase, source="tach")
+    elif spread is not None and spread > TRACK_BINS * spec.df_hz:
+        try:
+            track = shaft_phase_from_signal(x, fs, f1)
+        except SignalError:
+            track = None
+        if track is not None and track.trusted:
+            angle = resample_to_angle(x, fs, track.phase_rad, source="phase")
+    if angle is not None:
+        x, fs, f1 = angle.samples, angle.fs_equiv_hz, angle.mean_speed_hz
+        spec = calibrated_spectrum(x, fs, choose_nperseg(len(x), fs, f1)[0] or nperseg)
+        forcing = replace(
+            forcing,
+            frequency_hz=f1,
+            tracking=angle.source,
+            speed_min_hz=angle.speed_min_hz,
+            speed_max_hz=angle.speed_max_hz,
+        )
+    # ---- end of order tracking --------------------------------------------------------------------------
+
     # two looks, each at half the record's false-alarm probability: the full average, then the last
     # segments on their own (a line emerging near the end is diluted in the full average); with 1X given,
     # a third look at 0.5X on one periodogram of the whole record takes WHOLE_LOOK_SHARE of the probability
@@ -186,9 +219,11 @@ def analyze_record(
         y, lo, hi, _ = band_signal(x, fs, f_half, growth_band(f_half, f1, spec.df_hz, line_hz))
         env_t, env = chart_envelope(y, fs, f_half)
         growth = not_estimated("no subharmonic detected", (lo, hi))
+    if angle is not None:  # back from the equal-angle axis to the time of the record (order tracking)
+        growth, env_t = angle_growth_to_time(growth, env_t, angle)
 
-    band = iso_band(f1, fs)
-    v_rms = band_velocity_rms(spec.freqs_hz, spec.psd, units, band)
+    band = iso_band(f1, fs_time)
+    v_rms = band_velocity_rms(spec_time.freqs_hz, spec_time.psd, units, band)
     overall = Overall(
         velocity_rms_mm_s=v_rms,
         zone=zone(v_rms, limits),
@@ -198,17 +233,16 @@ def analyze_record(
         zone_limits_mm_s=limits,
         standard=ZONE_STANDARD,
     )
-    wave = waveform_stats(x)
+    wave = waveform_stats(x_time)
     flags = quality_flags(x_raw, resolution_ok)
-    spread, _ = one_x_spread(x, fs, spec, f1)
     forcing = replace(forcing, spread_hz=spread)
-    if spread is not None and spread > SPEED_DRIFT_ORDERS * f1:
-        flags = (*flags, "speed-drift")
+    if angle is None and spread is not None and spread > SPEED_DRIFT_ORDERS * f1:
+        flags = (*flags, "speed-drift")  # the speed moved and could not be tracked
     quality = Quality(ok=not flags, flags=flags)
     for a in (env_t, env):
         a.setflags(write=False)
     return RecordAnalysis(
-        sample_rate_hz=fs,
+        sample_rate_hz=fs_time,
         n_samples=n,
         units=units,
         forcing=forcing,

@@ -129,7 +129,9 @@ def record_analysis_from_dict(data: dict) -> RecordAnalysis:
         sample_rate_hz=_f(d.get("sample_rate_hz")), n_samples=int(d.get("n_samples") or 0),
         units=d.get("units") or "",
         forcing=Forcing(frequency_hz=_f(fo.get("frequency_hz")), source=fo.get("source") or "",
-                        nominal_hz=fo.get("nominal_hz"), spread_hz=fo.get("spread_hz")),
+                        nominal_hz=fo.get("nominal_hz"), spread_hz=fo.get("spread_hz"),
+                        tracking=fo.get("tracking") or "none", speed_min_hz=fo.get("speed_min_hz"),
+                        speed_max_hz=fo.get("speed_max_hz")),
         subharmonic=Subharmonic(
             detected=bool(sub.get("detected")), klass=sub.get("class") or "none",
             frequency_hz=sub.get("frequency_hz"), order=sub.get("order"), amplitude=sub.get("accel_peak"),

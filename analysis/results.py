@@ -69,6 +69,11 @@ class Forcing:
     source: str  # "given" | "refined" | "nominal" (refinement found no line near the nominal speed)
     nominal_hz: float | None
     spread_hz: float | None = None  # max - min of the per-segment 1X frequency (speed wander)
+    #: order tracking (analysis.orders): "none" | "phase" (shaft angle from the record) | "tach" (pulses);
+    #: when tracked, frequency_hz is the mean speed and lines are measured in orders of the shaft angle
+    tracking: str = "none"
+    speed_min_hz: float | None = None  # lowest and highest 1X within the record (tracked records)
+    speed_max_hz: float | None = None
 
     def to_dict(self) -> dict:
         return {
@@ -76,6 +81,9 @@ class Forcing:
             "source": self.source,
             "nominal_hz": _num(self.nominal_hz),
             "spread_hz": _num(self.spread_hz),
+            "tracking": self.tracking,
+            "speed_min_hz": _num(self.speed_min_hz),
+            "speed_max_hz": _num(self.speed_max_hz),
         }
 
 

@@ -59,16 +59,22 @@ def test_two_looks_keep_the_stated_false_alarm_probability():
     assert stats.binomtest(hits, trials, pfa, alternative="greater").pvalue > 0.01, hits
 
 
-@pytest.mark.parametrize(("drift", "flagged"), [(0.01, False), (0.05, True)])
-def test_speed_wander_is_measured_and_flagged_only_past_the_half_order_window(drift, flagged):
+@pytest.mark.parametrize(("drift", "tracking"), [(0.002, "none"), (0.01, "phase"), (0.05, "phase")])
+def test_speed_wander_is_measured_and_tracked_past_one_bin(drift, tracking):
+    # a speed that moves by more than a bin spacing over the record is order-tracked (analysis/orders.py);
+    # a tracked record is not flagged speed-drift: its lines are read in orders
     fs, f1, seconds = 4096.0, 24.0, 40.0
     t = np.arange(int(fs * seconds)) / fs
     phase = 2 * np.pi * f1 * (t + 0.5 * drift * t * t / seconds)  # 1X from f1 to f1 (1 + drift)
     rng = np.random.default_rng(2)
     x = 0.2 * np.sin(phase) + 0.05 * np.sin(2 * phase) + 0.005 * rng.standard_normal(len(t))
     r = analyze_record(x, fs, units="g", forcing_hz=f1 * (1 + drift / 2))
-    nps = r.spectrum.nperseg
-    expected = drift * f1 * (len(t) - nps) / len(t)
+    nps, _ = choose_nperseg(len(t), fs, f1 * (1 + drift / 2))
+    expected = drift * f1 * (len(t) - nps) / len(t)  # the segment centres span (n - nperseg) samples
     assert r.forcing.spread_hz == pytest.approx(expected, rel=0.15)
     assert r.to_dict()["forcing"]["spread_hz"] == pytest.approx(r.forcing.spread_hz)
-    assert ("speed-drift" in r.quality.flags) is flagged
+    assert r.forcing.tracking == tracking
+    assert "speed-drift" not in r.quality.flags
+    if tracking != "none":  # the speed range of the ramp (analytic: f1 to f1 (1 + drift))
+        assert r.forcing.speed_min_hz == pytest.approx(f1, rel=2e-3)
+        assert r.forcing.speed_max_hz == pytest.approx(f1 * (1 + drift), rel=2e-3)
