@@ -18,8 +18,8 @@ install: $(STAMP)
 test: $(STAMP)
 	$(PY) -m pytest -q tests
 
-demo: $(STAMP)
-	$(VENV)/bin/halfwatch demo
+demo: $(STAMP)  # make demo PORT=8080 serves on another port
+	$(VENV)/bin/halfwatch demo $(if $(PORT),--port $(PORT))
 
 lint: $(STAMP)
 	$(VENV)/bin/ruff check analysis server tests bench
