@@ -206,3 +206,25 @@ def test_cli_writes_wav_and_truth(tmp_path, capsys):
     assert cli_main(["simulate", "whirl", "--out", str(tmp_path / "x.wav"), "--set", "nonsense"]) == 2
     assert "NAME=VALUE" in capsys.readouterr().err
     assert cli_main(["simulate", "whirl", "--out", str(tmp_path / "x.txt")]) == 2
+
+
+def test_cli_healthy_record_reads_as_a_healthy_machine(tmp_path):
+    """``halfwatch simulate healthy`` is a machine in good condition: zone A or B, not D.
+
+    1X of 0.04 g peak at 24.75 Hz is a velocity of 0.04 * 9.80665 / (2 pi 24.75) / sqrt 2 = 1.784 mm/s
+    r.m.s. (single-integration of a sine: common practice); the ISO 20816-3 group 2 rigid B/C boundary is
+    2.8 mm/s r.m.s. (from memory), so the overall level must stay below it."""
+    from analysis.pipeline import analyze_record
+
+    out = tmp_path / "healthy.wav"
+    assert cli_main(["simulate", "healthy", "--out", str(out), "--duration-s", "8"]) == 0
+    fs, data = wavfile.read(out)
+    truth = json.loads(out.with_suffix(".json").read_text())
+    one_x = next(line for line in truth["lines"] if line["name"] == "1X")
+    assert one_x["amplitude"] == pytest.approx(0.04)
+    v_1x = one_x["amplitude"] * 9.80665 / (2 * math.pi * 24.75) / math.sqrt(2) * 1000.0
+    assert v_1x == pytest.approx(1.784, abs=0.001)
+    an = analyze_record(data.astype(float), float(fs), units="g", forcing_hz=24.75)
+    assert v_1x <= an.overall.velocity_rms_mm_s < 2.8
+    assert an.overall.zone in ("A", "B")
+    assert not an.subharmonic.detected
