@@ -19,6 +19,7 @@ from .results import Forcing, OrderLine, Overall, Quality, RecordAnalysis
 from .segments import LAST_SEGMENTS, last_segments_spectrum, one_x_spread
 from .severity import ZONE_STANDARD, iso_band, waveform_stats, zone, zone_limits
 from .spectrum import calibrated_spectrum, choose_nperseg, power
+from .tach import check_pulses, mean_speed_hz, phase_from_pulses
 from .validate import normalize_units, validate_samples
 
 #: 1X wander (max - min over the record, in orders) that invalidates the half-order reading: 0.5X moves by
@@ -49,6 +50,26 @@ def _check_speed(value, name: str, fs: float) -> float:
     return f
 
 
+#: largest relative gap between a forcing_hz given with tach pulses and the nearest whole or half multiple
+#: of the pulses' mean speed (2 %: the half-order window; beyond it the two speeds disagree)
+TACH_FORCING_TOL = 0.02
+
+
+def _forcing_per_rev(forcing_hz, shaft_hz: float) -> float:
+    """Forcing cycles per shaft revolution (a multiple of 0.5) from forcing_hz and the tach speed."""
+    try:
+        ratio = float(forcing_hz) / shaft_hz
+    except (TypeError, ValueError):
+        ratio = float("nan")
+    k = round(2.0 * ratio) / 2.0 if np.isfinite(ratio) else 0.0
+    if k < 0.5 or abs(ratio / k - 1.0) > TACH_FORCING_TOL:
+        raise SignalError(
+            f"forcing_hz {forcing_hz!r} disagrees with the tach pulses' mean speed {shaft_hz:.4g} Hz (not a "
+            f"whole or half multiple within {100 * TACH_FORCING_TOL:g} %); check pulses_per_rev or leave "
+            "forcing_hz out", field="forcing_hz")
+    return k
+
+
 def analyze_record(
     samples: np.ndarray,
     fs_hz: float,
@@ -59,6 +80,8 @@ def analyze_record(
     machine_group: int = 2,
     foundation: str = "rigid",
     pfa: float = 1e-3,
+    tach_pulses_s=None,
+    pulses_per_rev: int = 1,
 ) -> RecordAnalysis:
     """Analyse one acceleration record for subharmonic onset.
 
@@ -77,6 +100,12 @@ def analyze_record(
         ISO 20816 machine group (1 or 2) and support (``"rigid"`` or ``"flexible"``) for the zone.
     pfa : float
         False-alarm probability of the subharmonic detector per record (0 < pfa < 0.5).
+    tach_pulses_s, pulses_per_rev : array_like, int, optional
+        Tachometer pulse times in s from the first sample and the pulses per shaft revolution; checked by
+        ``analysis.tach.check_pulses`` (a bad tach raises, never a silent fallback). The shaft phase from
+        them drives the order tracking (``forcing.tracking == "tach"``). Without forcing_hz / nominal_hz
+        the mean speed of the pulses is the 1X; a forcing_hz given with them must be a whole or half
+        multiple of that speed (within ``TACH_FORCING_TOL``): the forcing per revolution.
 
     Returns
     -------
@@ -95,6 +124,16 @@ def analyze_record(
     """
     x_raw, fs = validate_samples(samples, fs_hz)
     units = normalize_units(units)
+    tach_phase_rad = None  # forcing phase at each sample from the tach pulses, for the order tracking
+    if tach_pulses_s is not None:
+        pulses = check_pulses(tach_pulses_s, pulses_per_rev, len(x_raw) / fs)
+        shaft_hz = mean_speed_hz(pulses, pulses_per_rev)
+        per_rev = 1.0
+        if forcing_hz is not None:
+            per_rev = _forcing_per_rev(forcing_hz, shaft_hz)
+        elif nominal_hz is None:
+            forcing_hz = shaft_hz
+        tach_phase_rad = per_rev * phase_from_pulses(pulses, pulses_per_rev, np.arange(len(x_raw)) / fs)
     if (forcing_hz is None) == (nominal_hz is None):
         raise SignalError(
             "give exactly one of forcing_hz (exact 1X, e.g. from a tachometer) or nominal_hz "
@@ -139,7 +178,7 @@ def analyze_record(
     x_time, fs_time, spec_time = x, fs, spec
     spread, _ = one_x_spread(x, fs, spec, f1)
     angle = None
-    tach_phase = locals().get("tach_phase_rad")
+    tach_phase = tach_phase_rad
     if tach_phase is not None:
         angle = resample_to_angle(x, fs, tach_phase, source="tach")
     elif spread is not None and spread > TRACK_BINS * spec.df_hz:

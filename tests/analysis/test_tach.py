@@ -260,3 +260,47 @@ def test_uff_tach_channel(tmp_path):
     assert rec.units == "g"
     np.testing.assert_allclose(rec.samples, accel, atol=1e-9)
     np.testing.assert_allclose(rec.tach, tach, atol=1e-9)
+
+
+# --- analyze_record with tach pulses -------------------------------------------------------------------
+
+def _ramp_record(seconds=12.8, seed=1):
+    # invented: 1X ramps 28.5 -> 31.5 Hz, a 0.05 g peak line locked at half the shaft angle, 1 g at 1X
+    t = np.arange(int(FS * seconds)) / FS
+    ph = 2 * np.pi * (F0 * t + 0.5 * (F1 - F0) / seconds * t * t)
+    x = np.sin(ph) + 0.05 * np.sin(ph / 2 + 0.3) + 0.002 * np.random.default_rng(seed).standard_normal(t.size)
+    tach = np.tanh(4.0 * signal.chirp(t, F0, seconds, F1, method="linear", phi=-90))
+    return x, pulses_from_channel(tach, FS)
+
+
+def test_analyze_record_tracks_orders_from_the_tach():
+    # computed order tracking (Fyfe & Munck 1997, MSSP 11(2)): resampled at equal shaft angle, a line
+    # locked at half the shaft angle reads 0.5 orders with its true peak amplitude (0.05 g by construction)
+    from analysis import analyze_record
+
+    x, pulses = _ramp_record()
+    d = analyze_record(x, FS, units="g", tach_pulses_s=pulses).to_dict()
+    assert d["forcing"]["tracking"] == "tach"
+    assert d["forcing"]["frequency_hz"] == pytest.approx(30.0, rel=1e-3)  # mean of the linear ramp
+    assert d["forcing"]["speed_min_hz"] == pytest.approx(F0, rel=5e-3)
+    assert d["forcing"]["speed_max_hz"] == pytest.approx(F1, rel=5e-3)
+    s = d["subharmonic"]
+    assert s["detected"] and s["class"] == "half-order"
+    assert s["order"] == pytest.approx(0.5, abs=1e-3)
+    assert s["accel_peak"] == pytest.approx(0.05, rel=0.03)
+
+
+def test_analyze_record_refuses_a_bad_tach_rather_than_falling_back():
+    from analysis import analyze_record
+
+    x, pulses = _ramp_record()
+    with pytest.raises(SignalError) as e:
+        analyze_record(x, FS, units="g", tach_pulses_s=np.delete(pulses, 200))
+    assert e.value.field == "tach_pulses_s" and "irregular" in str(e.value)
+    with pytest.raises(SignalError) as e:
+        analyze_record(x, FS, units="g", tach_pulses_s=pulses, forcing_hz=41.0)
+    assert e.value.field == "forcing_hz" and "mean speed" in str(e.value)
+    # a forcing at twice the shaft speed is a whole multiple: accepted, the phase scaled with it
+    d = analyze_record(x, FS, units="g", tach_pulses_s=pulses, forcing_hz=60.0).to_dict()
+    assert d["forcing"]["tracking"] == "tach"
+    assert d["forcing"]["frequency_hz"] == pytest.approx(60.0, rel=1e-3)
