@@ -109,6 +109,14 @@ def point_series(request: Request, point_id: int,
     return JSONResponse(data)
 
 
+@router.get("/points/{point_id}/readings",
+            summary="The newest readings of a point with their result (half-order r.m.s., class, zone, "
+                    "growth)")
+def point_readings(request: Request, point_id: int, limit: int = Query(15, ge=1, le=200),
+                   principal: Principal = Depends(viewer)):
+    return dashboard_service.readings_view(request.app.state.db, principal, point_id, limit)
+
+
 @router.get("/records/{record_id}", summary="One record with its point, asset, site time zone and result")
 def record_bundle(request: Request, record_id: int, principal: Principal = Depends(viewer)):
     return dashboard_service.record_view(request.app.state.db, request.app.state.settings, principal,

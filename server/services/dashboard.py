@@ -13,7 +13,7 @@ from sqlalchemy import select
 
 from server.alarms.rules import default_rules, rules_in_force, zone_limits
 from server.errors import AppError, Forbidden, NotFound
-from server.services import series, window
+from server.services import machine_view, series, window
 from server.services.access import check_point, check_record
 from server.storage import queries
 from server.storage import tree as tree_queries
@@ -84,9 +84,11 @@ def asset_view(db, settings, principal, asset_id: int) -> dict:
         pts = next(a["points"] for ar in tree["sites"][0]["areas"] for a in ar["assets"]
                    if a["id"] == asset_id)
         levels = point_levels(s, asset, [p["id"] for p in pts])
+        periods = {p["id"]: machine_view.default_period(s, p["id"]) for p in pts}
     limits = zone_limits({}, group=asset.machine_group, support=asset.foundation)
     for p in pts:
         p["levels"] = levels[p["id"]]
+        p["default_period"] = periods[p["id"]]
     alarms = service.list_alarms(db, view="all", asset_id=asset_id)
     return {"ok": True, "asset": asset_dict(asset, area, site, settings), "points": pts,
             "zone_limits_rms_mm_s": list(limits) if limits else None, "alarms": alarms,
@@ -123,11 +125,19 @@ def series_view(db, principal, point_id: int, start, end, max_points: int, limit
             level = point_levels(s, point.asset, [point_id])[point_id]["half_order_velocity"]
             limit = level["danger"] if level and level["danger"] else None
         data = series.point_series(s, point_id, start, end, max_points)
+        changes = machine_view.speed_changes(s, point_id, start, end)
         readings = series.trend_readings(s, point_id, end.timestamp())
     fit = series.trend_forecast(readings, limit)
     return {"ok": True, "point_id": point_id, "start": queries.iso(start), "end": queries.iso(end),
             "max_points": max_points, "units": {k: unit for k, (_, unit) in series.SERIES.items()}, **data,
-            "trend": fit}
+            "trend": fit, "speed_changes": changes}
+
+
+def readings_view(db, principal, point_id: int, limit: int) -> dict:
+    with db.read() as s:
+        check_point(s, principal, point_id)
+        rows = machine_view.recent_readings(s, point_id, limit)
+    return {"ok": True, "point_id": point_id, "readings": rows}
 
 
 def record_view(db, settings, principal, record_id: int) -> dict:
@@ -157,4 +167,5 @@ def window_view(db, settings, principal, point_id: int, start, end, max_readings
         rows = window.history_rows(s, point_id, start_ts=start.timestamp(), end_ts=end.timestamp(),
                                    limit=max_readings)
     return {"ok": True, "point": {"id": point.id, "name": point.name, "units": point.units},
-            "asset": asset_dict(asset, area, site, settings), **window.window_answer(rows)}
+            "asset": asset_dict(asset, area, site, settings),
+            **window.window_answer(rows, units=point.units, forcing_per_rev=asset.forcing_multiplier)}

@@ -111,7 +111,8 @@ def test_asset_page_draws_every_chart_with_data(login, site, screenshot):
     assert annotations == ["zone A", "zone B", "zone C", "zone D"]
     # readings with a half-order line carry no 0.5X precursor: its chart says so instead of staying blank
     none = page.evaluate("document.getElementById('chart-precursor').layout.annotations.map(a => a.text)")
-    assert none == ["no 0.5X precursor in this period"]
+    assert none == ["no precursor: a half-order line is detected (see the note)"]
+    assert "Above the parametric threshold" in page.locator("#precursor-note").inner_text()
     screenshot(page, "asset")
     no_js_errors(page)
 

@@ -85,11 +85,17 @@ window.HW = window.HW || {};
   };
 
   /* ---- numbers and levels ---- */
+  /* A number in plain positional form (never "3.82e-5"), rounded to `digits` significant digits;
+     whole numbers from 10^digits up are rounded to units. */
   HW.num = function (x, digits = 3) {
     if (x === null || x === undefined || !isFinite(x)) return "—";
     const a = Math.abs(x);
-    if (a !== 0 && (a < 1e-3 || a >= 1e5)) return x.toExponential(2);
-    return Number(x.toPrecision(digits)).toString();
+    if (a === 0) return "0";
+    if (a >= 10 ** digits) return Math.round(x).toString();
+    const exp = Math.floor(Math.log10(a));
+    const places = Math.max(0, digits - 1 - exp);
+    const s = x.toFixed(Math.min(places, 20));
+    return s.includes(".") ? s.replace(/\.?0+$/, "") : s;
   };
   /* ---- icons: inline SVG, so no icon depends on an emoji or symbol font ---- */
   const SVGNS = "http://www.w3.org/2000/svg";
@@ -126,6 +132,24 @@ window.HW = window.HW || {};
   HW.zoneBadge = function (zone) {
     if (!zone) return HW.el("span", { class: "muted" }, "—");
     return HW.el("span", { class: `zone zone-${zone}`, title: ZONE_WORDS[zone] || zone }, `zone ${zone}`);
+  };
+
+  /* ---- words for stored codes ---- */
+  const KIND_WORDS = { reciprocating_compressor: "reciprocating compressor", screw_compressor: "screw compressor",
+    centrifugal_compressor: "centrifugal compressor", gearbox: "gearbox", pump: "pump", fan: "fan",
+    motor: "motor", blower: "blower", cooling_tower: "cooling-tower fan", turbine: "turbine" };
+  HW.kindWords = (kind) => KIND_WORDS[kind] || String(kind || "machine").replace(/_/g, " ");
+  const FORCING_WORDS = { shaft: "shaft rotation", stroke: "piston strokes", mesh: "gear mesh",
+    blade: "blade pass", other: "another source" };
+  HW.forcingWords = (kind) => FORCING_WORDS[kind] || String(kind || "").replace(/_/g, " ");
+  /* What "speed" means on a machine: always shaft speed; the forcing (1X) may be a multiple of it. */
+  HW.speedMeaning = function (asset) {
+    const m = Number(asset.forcing_multiplier || 1);
+    if (Math.abs(m - 1) < 1e-9 && (asset.forcing_kind || "shaft") === "shaft") {
+      return "speed = shaft speed; the forcing (1X) is the shaft speed";
+    }
+    return `speed = shaft speed; the forcing (1X, ${HW.forcingWords(asset.forcing_kind)}) is `
+      + `${HW.num(m, 4)} × shaft speed`;
   };
 
   /* ---- DOM ---- */

@@ -6,7 +6,9 @@
 (function () {
   const { el, $ } = HW;
   const root = () => $("#asset-root");
-  let asset = null, tz = "UTC", point = null, early = null;
+  let asset = null, tz = "UTC", point = null, early = null, changes = [];
+  const ISO_DAY = /^\d{4}-\d{2}-\d{2}$/;
+  const maxPoints = () => (/^\d+$/.test(HW.param("max_points") || "") ? HW.param("max_points") : "600");
 
   function periodQuery() {
     const p = $("#period").value;
@@ -14,17 +16,35 @@
       const end = new Date();
       return { start: new Date(end - Number(p) * 86400e3).toISOString(), end: end.toISOString() };
     }
-    const s = $("#start").value, e = $("#end").value;
-    if (!s || !e) throw new HW.ApiError(0, "invalid", "give both dates of the period", "start");
+    const s = $("#start").value.trim(), e = $("#end").value.trim();
+    if (!ISO_DAY.test(s)) throw new HW.ApiError(0, "invalid", "give the first day as YYYY-MM-DD", "start");
+    if (!ISO_DAY.test(e)) throw new HW.ApiError(0, "invalid", "give the last day as YYYY-MM-DD", "end");
     return { start: HW.fromWall(s + "T00:00", tz), end: HW.fromWall(e + "T23:59", tz) };
   }
 
   const xaxis = () => ({ title: { text: `time (${tz})` }, type: "date" });
 
+  /* Speed changes as vertical lines on every chart (labelled on the speed chart). */
+  function changeShapes(labelled) {
+    return changes.map((c) => ({ type: "line", xref: "x", yref: "paper", x0: HW.wall(c.t, tz),
+      x1: HW.wall(c.t, tz), y0: 0, y1: 1, line: { color: HW.palette.speed, width: 1.5, dash: "dashdot" },
+      label: labelled ? { text: `speed ${HW.num(c.from_hz, 4)} → ${HW.num(c.to_hz, 4)} Hz`,
+        textposition: "end", font: { size: 11, color: HW.palette.speed } } : undefined }));
+  }
+  function withChanges(layout, labelled) {
+    layout.shapes = (layout.shapes || []).concat(changeShapes(labelled));
+    return layout;
+  }
+
+  /* Detected / not detected per reading, or per bucket (◆ when any reading of the bucket had the line). */
   function pointMarkers(d) {
-    if (d.bucketed) return {};
-    return { marker: { size: 7, symbol: d.detected.map((x) => (x ? "diamond" : "circle-open")) },
-      customdata: d.record_id, hovertemplate: "%{y:.3g}<br>%{x}<br>reading %{customdata}<extra></extra>" };
+    const marker = { size: d.bucketed ? 6 : 7, symbol: d.detected.map((x) => (x ? "diamond" : "circle-open")) };
+    if (d.bucketed) {
+      return { mode: "lines+markers", marker, customdata: d.count,
+        hovertemplate: "%{y:.3g} (bucket mean)<br>%{x}<br>%{customdata} readings<extra></extra>" };
+    }
+    return { mode: "lines+markers", marker, customdata: d.record_id,
+      hovertemplate: "%{y:.3g}<br>%{x}<br>reading %{customdata}<extra></extra>" };
   }
 
   function seriesTraces(d, x, key, name, color, unit) {
@@ -79,10 +99,12 @@
     }
     else if (t.message) note.push(`Trend: ${t.message}.`);
     if (t.onset_iso) note.push(`Onset about ${HW.when(t.onset_iso, tz)}.`);
-    note.push("Markers: ◆ half-order detected, ○ not detected.");
+    note.push(d.bucketed ? "Markers: ◆ a half-order line detected in the bucket, ○ in none of its readings."
+      : "Markers: ◆ half-order detected, ○ not detected.");
+    if (changes.length) note.push(`Dash-dot lines: speed changes (${changes.length} in this period).`);
     $("#trend-note").textContent = note.join(" ");
-    return HW.plot("chart-half", traces, { xaxis: xaxis(),
-      yaxis: { title: { text: "half-order velocity r.m.s. (mm/s r.m.s.)" }, rangemode: "tozero" }, shapes });
+    return HW.plot("chart-half", traces, withChanges({ xaxis: xaxis(),
+      yaxis: { title: { text: "half-order velocity r.m.s. (mm/s r.m.s.)" }, rangemode: "tozero" }, shapes }));
   }
 
   function drawOverall(d, x, limits) {
@@ -102,13 +124,13 @@
       });
       $("#zone-note").textContent = `ISO 20816 zone boundaries for group ${asset.asset.machine_group}, ${asset.asset.foundation} support: A/B ${limits[0]}, B/C ${limits[1]}, C/D ${limits[2]} mm/s r.m.s.`;
     }
-    return HW.plot("chart-overall", traces, { xaxis: xaxis(),
-      yaxis: { title: { text: "velocity r.m.s. (mm/s r.m.s.)" }, range: [0, top] }, shapes, annotations });
+    return HW.plot("chart-overall", traces, withChanges({ xaxis: xaxis(),
+      yaxis: { title: { text: "velocity r.m.s. (mm/s r.m.s.)" }, range: [0, top] }, shapes, annotations }));
   }
 
   function simple(id, d, x, key, name, color, unit, ytitle, extra) {
-    return HW.plot(id, seriesTraces(d, x, key, name, color, unit), Object.assign({ xaxis: xaxis(),
-      yaxis: { title: { text: ytitle } } }, extra || {}));
+    return HW.plot(id, seriesTraces(d, x, key, name, color, unit), withChanges(Object.assign({ xaxis: xaxis(),
+      yaxis: { title: { text: ytitle } } }, extra || {})));
   }
 
   /* γ− of the noise-excited 0.5X bump (below threshold): it falls towards 0 as the machine nears the
@@ -116,16 +138,27 @@
   function drawPrecursor(d, x) {
     const s = d.precursor_rate_per_s || { mean: [] };
     const n = s.mean.filter((v) => v != null).length;
-    $("#precursor-note").textContent = (n
-      ? `${n} ${d.bucketed ? "buckets" : "readings"} with a 0.5X precursor in this period; gaps are readings without one. `
-      : "No 0.5X precursor in this period. ")
+    const lines = d.detected.filter(Boolean).length;
+    const unit = d.bucketed ? "buckets" : "readings";
+    let why;
+    if (n) why = `${n} ${unit} with a 0.5X precursor in this period; gaps are ${unit} without one. `;
+    else if (lines) {
+      why = `No 0.5X precursor in this period: a half-order line is detected in ${lines} ${unit}. Above the `
+        + "parametric threshold the noise-excited bump turns into that line, so there is no bump left to measure; "
+        + "follow the half-order chart instead. ";
+    } else {
+      why = "No 0.5X precursor in this period: no noise-excited bump stood out at 0.5X in these readings "
+        + "(the machine is far from the threshold, or the bump is below the noise floor). ";
+    }
+    $("#precursor-note").textContent = why
       + "γ− = π × half-power width of the noise-excited bump at 0.5X. A falling γ− means the machine is approaching "
       + "the parametric threshold (γ− reaches 0 at onset); it is an early warning, not a detected half-order line.";
     return HW.plot("chart-precursor",
       seriesTraces(d, x, "precursor_rate_per_s", "precursor γ−", HW.palette.precursor, "1/s"),
-      { xaxis: xaxis(), yaxis: { title: { text: "narrow decay rate γ− (1/s)" }, rangemode: "tozero" },
+      withChanges({ xaxis: xaxis(), yaxis: { title: { text: "narrow decay rate γ− (1/s)" }, rangemode: "tozero" },
         annotations: n ? [] : [{ xref: "paper", yref: "paper", x: 0.5, y: 0.5, showarrow: false,
-          text: "no 0.5X precursor in this period", font: { size: 13, color: "#5b6670" } }] });
+          text: lines ? "no precursor: a half-order line is detected (see the note)"
+            : "no 0.5X precursor in this period", font: { size: 13, color: "#5b6670" } }] }));
   }
 
   function drawSpeed(d, x) {
@@ -137,9 +170,10 @@
     const tr = seriesTraces(dd, x, "speed", "shaft speed", HW.palette.speed, "Hz");
     tr[tr.length - 1].hovertemplate = "%{y:.4g} Hz = %{customdata} rpm<extra></extra>";
     tr[tr.length - 1].customdata = dd.speed.mean.map((v) => v == null ? null : Math.round(v * 60));
-    return HW.plot("chart-speed", tr, { xaxis: xaxis(), yaxis: { title: { text: "shaft speed (Hz = rev/s)" } },
+    return HW.plot("chart-speed", tr, withChanges({ xaxis: xaxis(),
+      yaxis: { title: { text: "shaft speed (Hz = rev/s)" } },
       shapes: [HW.hline(asset.asset.nominal_speed_hz, "#64748b", "dot",
-        `nominal ${asset.asset.nominal_speed_hz} Hz`)] });
+        `nominal ${asset.asset.nominal_speed_hz} Hz`)] }, true));
   }
 
   function bindClicks() {
@@ -160,7 +194,7 @@
     let q;
     try { q = periodQuery(); } catch (e) { HW.showError("#asset-error", e); return; }
     const levels = point.levels.half_order_velocity;
-    const params = new URLSearchParams({ start: q.start, end: q.end, max_points: "600" });
+    const params = new URLSearchParams({ start: q.start, end: q.end, max_points: maxPoints() });
     if (levels && levels.danger) params.set("limit", levels.danger);
     let d;
     try {
@@ -169,6 +203,8 @@
       d = await (head || HW.api(`/api/v1/dashboard/points/${point.id}/series?${params}`));
     } catch (e) { HW.showError("#asset-error", e); return; }
     const x = d.t.map((v) => HW.wall(v, tz));
+    changes = d.speed_changes || [];
+    const growthLevels = point.levels.growth_rate;
     await Promise.all([
       drawHalf(d, x, levels),
       drawOverall(d, x, asset.zone_limits_rms_mm_s),
@@ -178,13 +214,17 @@
         "amplitude ratio, peak / peak (1 = equal)",
         { shapes: point.levels.half_order_ratio ? [HW.hline(point.levels.half_order_ratio.danger, HW.palette.limit,
           "dash", "danger"), HW.hline(point.levels.half_order_ratio.alert, HW.palette.alert, "dot", "alert")] : [] }),
-      simple("chart-growth", d, x, "growth_rate_per_s", "growth rate", HW.palette.growth, "1/s", "growth rate (1/s)"),
+      simple("chart-growth", d, x, "growth_rate_per_s", "growth rate", HW.palette.growth, "1/s",
+        "growth rate of the envelope (1/s)", { shapes: growthLevels ? [
+          HW.hline(growthLevels.danger, HW.palette.limit, "dash", `danger ${HW.num(growthLevels.danger)} 1/s`),
+          HW.hline(growthLevels.alert, HW.palette.alert, "dot", `alert ${HW.num(growthLevels.alert)} 1/s`)] : [] }),
       drawPrecursor(d, x),
       drawSpeed(d, x),
     ]);
     bindClicks();
     $("#bucket-note").textContent = d.bucketed
-      ? `${d.n_source} readings in ${d.t.length} time buckets: lines are bucket means, shaded bands the min–max of each bucket.`
+      ? `${d.n_source} readings in ${d.t.length} time buckets: lines are bucket means, shaded bands the `
+        + "min–max of each bucket; markers: ◆ a half-order line in the bucket, ○ none."
       : `${d.n_source} readings; click a marker to open that reading.`;
     document.body.dataset.ready = "1";
     loadReadings();
@@ -192,11 +232,20 @@
 
   async function loadReadings() {
     const body = $("#readings tbody");
-    const r = await HW.api(`/api/v1/points/${point.id}/records?limit=15`);
-    body.replaceChildren(...r.records.map((rec) => el("tr", {},
-      el("td", {}, HW.when(rec.measured_at, tz)), el("td", {}, rec.speed_hz ? `${HW.num(rec.speed_hz, 4)} Hz` : "—"),
+    const r = await HW.api(`/api/v1/dashboard/points/${point.id}/readings?limit=15`);
+    const cls = (rec) => !rec.analysed ? "not analysed yet"
+      : rec.half_order_detected ? (rec.half_order_class || "detected") : "none detected";
+    body.replaceChildren(...r.readings.map((rec) => el("tr", { "data-record-id": rec.record_id },
+      el("td", {}, HW.when(rec.measured_at, tz)),
+      el("td", {}, rec.speed_hz ? `${HW.num(rec.speed_hz, 4)} Hz` : "—"),
+      el("td", { class: "num" }, rec.half_order_detected ? HW.num(rec.half_order_velocity_rms_mm_s) : "—"),
+      el("td", {}, cls(rec)),
+      el("td", { class: "num" }, HW.num(rec.overall_velocity_rms_mm_s)),
+      el("td", {}, HW.zoneBadge(rec.zone)),
+      el("td", { class: "num" }, HW.num(rec.growth_rate_per_s)),
       el("td", {}, rec.origin), el("td", {}, `${rec.n_samples} @ ${HW.num(rec.fs_hz, 5)} Hz`),
-      el("td", {}, el("a", { href: `/records/${rec.id}` }, "open reading")))));
+      el("td", {}, el("a", { href: `/records/${rec.record_id}` }, "open reading")))));
+    if (!r.readings.length) body.append(el("tr", {}, el("td", { colspan: 10 }, "No reading yet.")));
   }
 
   function renderAlarms() {
@@ -221,6 +270,7 @@
 
   function selectPoint(id) {
     point = asset.points.find((p) => p.id === id) || asset.points[0];
+    usePointPeriod();
     const l = point.latest;
     $("#point-facts").textContent = `${point.location || "location not given"} · ${point.direction} · records in ${point.units} · ${point.records} readings · state: ${point.state.replace(/-/g, " ")}`;
     const links = $("#point-links");
@@ -228,18 +278,34 @@
     if (l) links.append(el("a", { href: `/records/${l.record_id}` }, "latest reading"), " · ");
     links.append(el("a", { href: `/points/${point.id}/window` }, "operating window"));
     const q = new URLSearchParams({ point: point.id });
-    if ($("#period").value !== "custom") q.set("days", $("#period").value);
+    if ($("#period").value !== "custom" && HW.param("days")) q.set("days", $("#period").value);
+    if (HW.param("max_points")) q.set("max_points", maxPoints());
+    describePeriod();
     history.replaceState(null, "", `?${q}`);
     return loadSeries();
   }
 
+  /* The default period shows the last change of alarm level or speed (server: services.machine_view). */
+  function usePointPeriod() {
+    const dp = point.default_period;
+    if (!HW.param("days") && dp && $("#period").value !== "custom" && [...$("#period").options].some((o) => o.value === String(dp.days))) {
+      $("#period").value = String(dp.days);
+    }
+  }
+  function describePeriod() {
+    const dp = point.default_period, days = $("#period").value;
+    $("#period-note").textContent = dp && String(dp.days) === days && !HW.param("days")
+      ? `Default period: last ${dp.days} days, chosen because it ${dp.reason}.` : "";
+  }
+  function isoDay(ms) { return HW.wall(new Date(ms).toISOString(), tz).slice(0, 10); }
+
   async function load() {
     const id = root().dataset.assetId;
-    const p0 = Number(HW.param("point")), days0 = HW.param("days") || "30";
-    if (p0 && /^\d+$/.test(days0)) {  // the point is known: ask for its series while the machine loads
+    const p0 = Number(HW.param("point")), days0 = HW.param("days");
+    if (p0 && days0 && /^\d+$/.test(days0)) {  // the point is known: ask for its series while the machine loads
       const end = new Date();
       const q = new URLSearchParams({ start: new Date(end - Number(days0) * 86400e3).toISOString(),
-        end: end.toISOString(), max_points: "600" });
+        end: end.toISOString(), max_points: maxPoints() });
       early = { pid: p0, days: days0, promise: HW.api(`/api/v1/dashboard/points/${p0}/series?${q}`) };
       early.promise.catch(() => {});
     }
@@ -250,7 +316,9 @@
     document.title = `${a.name} · halfwatch`;
     $("#asset-name").textContent = a.name;
     $("#asset-level").replaceChildren(HW.levelBadge(asset.alarm_summary.level));
-    $("#asset-where").textContent = `${a.site} › ${a.area} · ${a.kind.replace(/_/g, " ")} · nominal ${a.nominal_speed_hz} Hz (${Math.round(a.nominal_speed_hz * 60)} rpm) · forcing ${a.forcing_kind} × ${a.forcing_multiplier} · ISO group ${a.machine_group}, ${a.foundation} · times in ${tz}`;
+    $("#asset-where").textContent = `${a.site} › ${a.area} · ${HW.kindWords(a.kind)} · nominal shaft speed `
+      + `${a.nominal_speed_hz} Hz (${Math.round(a.nominal_speed_hz * 60)} r/min) · ${HW.speedMeaning(a)} · `
+      + `ISO 20816 group ${a.machine_group}, ${a.foundation} support · times in ${tz}`;
     const days = HW.param("days");
     if (days && [...$("#period").options].some((o) => o.value === days)) $("#period").value = days;
     const sel = $("#point-select");
@@ -268,7 +336,15 @@
     $("#period").addEventListener("change", (e) => {
       const custom = e.target.value === "custom";
       $("#start").disabled = !custom; $("#end").disabled = !custom;
-      if (!custom) selectPoint(point.id);
+      if (custom && !$("#start").value) {
+        const days = Number(point.default_period ? point.default_period.days : 30);
+        $("#start").value = isoDay(Date.now() - days * 86400e3); $("#end").value = isoDay(Date.now());
+      }
+      if (!custom) {
+        const q = new URLSearchParams(location.search); q.set("days", e.target.value);
+        history.replaceState(null, "", `?${q}`);
+        selectPoint(point.id);
+      }
     });
     $("#apply").addEventListener("click", () => loadSeries());
     load();
