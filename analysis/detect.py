@@ -16,6 +16,7 @@ HALF_ORDER_TOL = 0.01  # ±2 % of 0.5X, in orders
 WHIRL_BAND = (0.38, 0.48)  # fluid-film whirl, orders (common practice)
 MIN_VELOCITY_MM_S = 0.02  # absolute floor (peak): below this a line is sensor noise (common practice)
 MAX_TONES = 12
+AMBIGUOUS_NOTE = "0.5X or whirl: take a longer reading"
 #: Scatter of the floor estimate as degrees of freedom per test-bin d.o.f.: medians of 32-bin blocks
 #: (median efficiency 2/π for Gaussian-like data) of Hann bins that are correlated over ~ENBW = 1.5 bins.
 FLOOR_DOF_FACTOR = 32 * (2.0 / np.pi) / 1.5
@@ -29,6 +30,37 @@ def independent_cells(spec: Spectrum, n_bins: int) -> int:
     """Number of independent tests in a band of n_bins: adjacent Hann bins are correlated, and a band holds
     about (width / ENBW) statistically independent resolution cells."""
     return max(1, int(round(n_bins / spec.enbw_bins)))
+
+
+def order_interval(spec: Spectrum, f_hz: float, f1x: float, power_ratio: float) -> tuple[float, float]:
+    """Interval of orders a line measured at f_hz may stand for: ± (half the resolution bandwidth + 1.96 σ).
+
+    The resolution bandwidth of a segment of T s is B_e = 1/T (Bendat & Piersol, *Random Data*, 4th ed.,
+    §11.5, resolution of spectral estimates; from memory): a second line within about half of it is not
+    separated from the first, so the measured order stands for anything in ±B_e/2. σ is the Cramér-Rao
+    bound of a single tone's frequency (Rife & Boorstyn 1974, IEEE Trans. IT-20(5)), written with the
+    per-bin SNR ρ of a Hann bin (ENBW 1.5 bins): σ = Δf/(2π)·√(12 / (1.5 ρ)).
+    """
+    res = spec.df_hz  # fs / nperseg: one bin of an unpadded segment = its resolution bandwidth 1/T
+    sigma = res / (2 * np.pi) * np.sqrt(12.0 / (spec.enbw_bins * max(power_ratio, 1e-12)))
+    half = 0.5 * res + 1.96 * sigma
+    return (f_hz - half) / f1x, (f_hz + half) / f1x
+
+
+def line_class(order: float, interval: tuple[float, float]) -> str | None:
+    """Class of a line at ``order``: "subharmonic" when its interval reaches both the half-order window
+    and the whirl band (the reading cannot tell them apart), else "half-order" / "sub-synchronous" by the
+    order itself, else None (no subharmonic)."""
+    lo, hi = interval
+    reaches_half = lo <= 0.5 + HALF_ORDER_TOL and hi >= 0.5 - HALF_ORDER_TOL
+    reaches_whirl = lo <= WHIRL_BAND[1] and hi >= WHIRL_BAND[0]
+    if reaches_half and reaches_whirl:
+        return "subharmonic"
+    if abs(order - 0.5) <= HALF_ORDER_TOL:
+        return "half-order"
+    if WHIRL_BAND[0] <= order <= WHIRL_BAND[1]:
+        return "sub-synchronous"
+    return None
 
 
 def threshold(spec: Spectrum, pfa: float, n_tested: int) -> float:
@@ -93,7 +125,9 @@ def detect_subharmonic(
     Significant lines in 0.30X-0.70X pass the CFAR threshold (family-wise false-alarm probability ``pfa``
     over the bins searched) and the absolute velocity floor. The strongest significant line within ±2 % of
     0.5X makes the record "half-order"; failing that, the strongest in the whirl band 0.38-0.48X makes it
-    "sub-synchronous"; other lines (0.31X, 0.62X, ...) are no subharmonic and are listed as tones. With no
+    "sub-synchronous"; in a short reading (one segment) a line whose order interval (``order_interval``)
+    reaches both is "subharmonic" with the note "0.5X or whirl: take a longer reading"; other
+    lines (0.31X, 0.62X, ...) are no subharmonic and are listed as tones. With no
     detection the line nearest 0.5X is still measured (for trends), with class "none".
 
     ``bump_test(bin, frequency)`` (analysis.precursor) returns a Precursor when the half-order candidate is
@@ -103,12 +137,11 @@ def detect_subharmonic(
     tau, cands = significant_lines(spec, f1x, pfa)
     best: dict[str, tuple[float, float, float, float, int]] = {}
     for k, f, a, ratio in cands:
-        order = f / f1x
-        if abs(order - 0.5) <= HALF_ORDER_TOL:
-            klass = "half-order"
-        elif WHIRL_BAND[0] <= order <= WHIRL_BAND[1]:
-            klass = "sub-synchronous"
-        else:
+        # a short reading (one segment) may not tell 0.5X from whirl; an averaged spectrum resolves
+        # f1x/50 or finer, and its classes stay those of the measured order
+        span = order_interval(spec, f, f1x, ratio) if spec.n_segments == 1 else (f / f1x, f / f1x)
+        klass = line_class(f / f1x, span)
+        if klass is None:
             continue
         v = velocity_mm_s(a, f, units)
         if v >= min_velocity_mm_s and (klass not in best or a > best[klass][1]):
@@ -122,7 +155,7 @@ def detect_subharmonic(
     floor = _floor_power(spec)
     df = spec.df_hz
     family_tau = threshold(spec, pfa, 5)
-    for klass in ("half-order", "sub-synchronous"):
+    for klass in ("half-order", "sub-synchronous", "subharmonic"):
         if klass in best:
             f, a, ratio, v, _k = best[klass]
             family = {}
@@ -142,6 +175,8 @@ def detect_subharmonic(
                 pfa=pfa,
                 family=family,
                 precursor=precursor,
+                order_interval=order_interval(spec, f, f1x, ratio),
+                note=AMBIGUOUS_NOTE if klass == "subharmonic" else "",
             )
     hit = line_near(spec, pw, 0.5 * f1x, half_bins=max(1, int(round(HALF_ORDER_TOL * f1x / df))))
     if hit is None:

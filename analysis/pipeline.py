@@ -18,7 +18,7 @@ from .quality import quality_flags
 from .results import Forcing, OrderLine, Overall, Quality, RecordAnalysis
 from .segments import LAST_SEGMENTS, last_segments_spectrum, one_x_spread
 from .severity import ZONE_STANDARD, iso_band, waveform_stats, zone, zone_limits
-from .spectrum import calibrated_spectrum, choose_nperseg, power
+from .spectrum import MIN_CYCLES, calibrated_spectrum, choose_nperseg, min_samples, power
 from .tach import check_pulses, mean_speed_hz, phase_from_pulses
 from .validate import normalize_units, validate_samples
 
@@ -153,11 +153,12 @@ def analyze_record(
     n = len(x_raw)
     nperseg, resolution_ok = choose_nperseg(n, fs, speed)
     if nperseg == 0:
-        need_n = int(np.ceil(fs * 50.0 / speed))  # the exact minimum of choose_nperseg
+        need_n = min_samples(fs, speed)  # the exact minimum of choose_nperseg: MIN_CYCLES cycles of 1X
         raise SignalError(
-            f"the record is too short for the requested resolution: {n} samples ({n / fs:.3f} s) at "
-            f"1X = {speed:g} Hz; send at least {need_n} samples ({need_n / fs:.3f} s at {fs:g} Hz; "
-            f"better {900.0 / speed:.0f} s to separate whirl from 0.5X)"
+            f"the record is too short: {n} samples ({n / fs:.3f} s) at 1X = {speed:g} Hz; send at least "
+            f"{need_n} samples ({need_n / fs:.3f} s at {fs:g} Hz, {MIN_CYCLES} cycles of 1X; "
+            f"better {900.0 / speed:.0f} s to separate whirl from 0.5X)",
+            field="samples",
         )
     x = detrend(x_raw)
     spec = calibrated_spectrum(x, fs, nperseg)
@@ -277,7 +278,15 @@ def analyze_record(
     forcing = replace(forcing, spread_hz=spread)
     if angle is None and spread is not None and spread > SPEED_DRIFT_ORDERS * f1:
         flags = (*flags, "speed-drift")  # the speed moved and could not be tracked
-    quality = Quality(ok=not flags, flags=flags)
+    notes: tuple[str, ...] = ()
+    if spec_time.n_segments == 1:  # a short reading: say what its resolution cannot separate
+        res = spec_time.df_hz
+        notes = (
+            f"short reading: one segment of {n / fs_time:.2f} s ({n / fs_time * f1:.0f} cycles of 1X), "
+            f"resolution {res:.3g} Hz = {res / f1:.3f} orders: lines closer than that are not separated "
+            f"(0.5X from whirl at {0.5 - res / f1:.2f}X, a line from its sidebands)",
+        )
+    quality = Quality(ok=not flags, flags=flags, notes=notes)
     for a in (env_t, env):
         a.setflags(write=False)
     return RecordAnalysis(

@@ -149,7 +149,7 @@ class Subharmonic:
     ``velocity_mm_s`` its velocity peak in mm/s (JSON: ``accel_peak``, ``velocity_peak_mm_s``)."""
 
     detected: bool
-    klass: str  # "half-order" | "sub-synchronous" | "none"
+    klass: str  # "half-order" | "sub-synchronous" | "subharmonic" (a short reading: either) | "none"
     frequency_hz: float | None
     order: float | None
     amplitude: float | None
@@ -161,6 +161,9 @@ class Subharmonic:
     precursor: Precursor | None = None  # a noise-excited bump at 0.5X that was not taken for a line
     #: which spectrum detected the line: "average" | "last-segments" | "whole-record" (0.5X look, 1X given)
     spectrum: str = "average"
+    #: orders the measured line may stand for (± half the resolution bandwidth + 1.96 σ; analysis.detect)
+    order_interval: tuple[float | None, float | None] = (None, None)
+    note: str = ""  # e.g. "0.5X or whirl: take a longer reading" for class "subharmonic"
 
     @property
     def velocity_rms_mm_s(self) -> float | None:
@@ -182,6 +185,8 @@ class Subharmonic:
             "family": {k: _num(v) for k, v in self.family.items()},
             "precursor": None if self.precursor is None else self.precursor.to_dict(),
             "spectrum": self.spectrum,
+            "order_interval": [_num(v) for v in self.order_interval],
+            "note": self.note,
         }
 
 
@@ -295,9 +300,11 @@ class Waveform:
 class Quality:
     ok: bool
     flags: tuple[str, ...]
+    #: plain statements about the reading, e.g. what a short reading's resolution cannot separate
+    notes: tuple[str, ...] = ()
 
     def to_dict(self) -> dict:
-        return {"ok": bool(self.ok), "flags": list(self.flags)}
+        return {"ok": bool(self.ok), "flags": list(self.flags), "notes": list(self.notes)}
 
 
 @dataclass(frozen=True)

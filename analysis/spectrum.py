@@ -186,18 +186,30 @@ def local_peaks(values: np.ndarray, lo: int, hi: int) -> np.ndarray:
     return np.flatnonzero(is_peak) + lo
 
 
+#: the shortest reading analysed, in cycles of 1X: one segment then resolves 1/16 of an order (Hann main
+#: lobe ±2 bins = ±0.125 orders), enough to tell 0.5X from 1X and to measure a line's order to a fraction
+#: of that by interpolation (issue 12: route collectors take 1-4 s readings)
+MIN_CYCLES = 16
+
+
+def min_samples(fs: float, f1x: float) -> int:
+    """The fewest samples analysed at 1X = f1x: ``MIN_CYCLES`` cycles."""
+    return int(np.ceil(fs * MIN_CYCLES / f1x))
+
+
 def choose_nperseg(n: int, fs: float, f1x: float) -> tuple[int, bool]:
     """Segment length for a forcing frequency f1x: returns (nperseg, resolution_ok).
 
     Target resolution Δf = f1x/200 so whirl at 0.48X sits 4 bins from 0.5X (Hann main lobe ±2 bins) and
     the ±2 % half-order window is ±2 bins wide, with ≥ 8 averages; a shorter record keeps 8 averages at a
-    coarser resolution down to Δf = f1x/50 (0.5X and 1X 25 bins apart), then fewer averages. None of
-    this fits -> 0 (the caller raises).
+    coarser resolution down to Δf = f1x/50 (0.5X and 1X 25 bins apart), then fewer averages; a shorter
+    reading of at least ``MIN_CYCLES`` cycles is one segment of the whole record. Less -> 0 (the caller
+    raises).
     """
     fine = int(np.ceil(fs * 200.0 / f1x))
     coarse = int(np.ceil(fs * 50.0 / f1x))
-    if n < coarse:
-        return 0, False
+    if n < coarse:  # a short reading: one segment of the whole record, down to MIN_CYCLES cycles of 1X
+        return (n, False) if n >= min_samples(fs, f1x) else (0, False)
     fast = sfft.next_fast_len(fine, real=True)
     if n >= 4.5 * fast:
         return fast, True

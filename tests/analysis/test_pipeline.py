@@ -49,11 +49,11 @@ def test_flat_record_is_flagged_and_json_safe():
 
 def test_short_record_is_flagged_or_rejected(make_record):
     # 4 s at 30 Hz: 0.5X and 1X resolved, but not whirl at 0.48X from 0.5X (needs >= 250/f1x s: Rayleigh
-    # resolution 1/T, common practice)
+    # resolution 1/T, common practice); under 16 cycles of 1X (1366 samples here) it is refused
     x = make_record(2560.0, 4.0, [(30.0, 0.4, 0)], noise=0.01)
     assert "too-short-for-resolution" in analyze_record(x, 2560.0, forcing_hz=30.0).quality.flags
-    with pytest.raises(SignalError, match="too short for the requested resolution"):
-        analyze_record(x[:2000], 2560.0, forcing_hz=30.0)
+    with pytest.raises(SignalError, match="too short: 1300 samples .* send at least 1366 samples"):
+        analyze_record(x[:1300], 2560.0, forcing_hz=30.0)
 
 
 @pytest.mark.parametrize(
