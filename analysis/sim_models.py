@@ -322,3 +322,23 @@ def onset_envelope(
         return a0 * np.exp(0.5 * x)
     q = (a0 / a_sat) ** 2
     return a0 * np.exp(0.5 * (x - np.logaddexp(np.log1p(-q), np.log(q) + x)))
+
+
+def speed_profile(t: np.ndarray, mean_hz: float, change_pct: float, shape: str) -> np.ndarray:
+    """Shaft speed (Hz) at times t with mean about ``mean_hz`` that moves by ``change_pct`` % of it.
+
+    ``ramp``: linear from mean (1 - c/2) to mean (1 + c/2); ``step``: a smooth step (tanh, a tenth of the
+    record wide) between the same two speeds at mid-record; ``swing``: one sine period of ± c/2 (a speed
+    that rises and falls back). Invented profiles for tests and benchmarks.
+    """
+    c = change_pct / 100.0
+    u = (t - t[0]) / max(float(t[-1] - t[0]), 1e-12)  # 0..1 over the record
+    if shape == "ramp":
+        rel = c * (u - 0.5)
+    elif shape == "step":
+        rel = 0.5 * c * np.tanh((u - 0.5) / 0.05)
+    elif shape == "swing":
+        rel = 0.5 * c * np.sin(2 * np.pi * u)
+    else:
+        raise ValueError(f"profile must be ramp, step or swing; got {shape!r}")
+    return mean_hz * (1.0 + rel)

@@ -18,6 +18,13 @@ Kinds (``KINDS``):
 ``onset-growth``  a steady 0.5X line (``sub_amp_g``, 0.02 g; 0 for none) that starts growing at
                   ``growth_per_s`` (0.5 1/s) from ``onset_s`` (half the record) on, levelling off at
                   ``sat_amp_g`` when given (Landau form); with no steady line it grows from ``seed_amp_g``.
+``speed-ramp``    the shaft speed moves by ``change_pct`` (4 %) over the record, ``profile`` "ramp" (default),
+                  "step" or "swing" (analysis.sim_models.speed_profile); a 0.5X line (``sub_amp_g``, 0.03 g)
+                  locked to the shaft phase with 1.5X; ``sub_amp_g=0`` for none; ``fixed_tone_hz`` adds
+                  lines at fixed frequencies (structural resonances unrelated to speed, ``fixed_tone_g``
+                  0.03 g each): the negatives for order tracking.
+``ramp-whirl``    the same speed profiles with a whirl line at ``whirl_order`` (0.42-0.46, drawn) of the
+                  mean speed that follows the speed only by ``follow`` (0.5) of its change: not locked.
 """
 
 from __future__ import annotations
@@ -32,7 +39,17 @@ from analysis.stability import floquet_growth, threshold_floquet
 
 __all__ = ["KINDS", "SimulatedRecord", "simulate"]
 
-KINDS = ("healthy", "parametric", "two-mode", "half-order", "whirl", "speed-drift", "onset-growth")
+KINDS = (
+    "healthy",
+    "parametric",
+    "two-mode",
+    "half-order",
+    "whirl",
+    "speed-drift",
+    "onset-growth",
+    "speed-ramp",
+    "ramp-whirl",
+)
 NOTE = "invented record from the halfwatch simulator; not a measurement"
 
 
@@ -172,8 +189,11 @@ def simulate(
     p = dict(params)
     given = dict(params)
     drift = float(p.pop("drift_pct", 2.0 if kind == "speed-drift" else 0.0))
-    if drift and kind in ("parametric", "two-mode"):
-        raise ValueError("drift_pct is only for healthy, half-order, whirl and speed-drift records")
+    if drift and kind in ("parametric", "two-mode", "speed-ramp", "ramp-whirl"):
+        raise ValueError(
+            "drift_pct is only for healthy, half-order, whirl and speed-drift records (speed-ramp and "
+            "ramp-whirl take change_pct and profile)"
+        )
     b = _Builder(kind, int(seed), fs, dur, fw, drift)
     if kind in ("healthy", "speed-drift"):
         b.background(p)
@@ -184,6 +204,10 @@ def simulate(
         sub = _whirl(b, p)
     elif kind == "onset-growth":
         sub = _onset_growth(b, p, dur)
+    elif kind == "speed-ramp":
+        sub = _speed_ramp(b, p)
+    elif kind == "ramp-whirl":
+        sub = _ramp_whirl(b, p)
     elif kind == "parametric":
         sub = _parametric(b, p, fw)
     else:
@@ -246,6 +270,88 @@ def _onset_growth(b: _Builder, p: dict, dur: float) -> dict:
         "onset_s": t0,
         "sat_amp_g": sat,
         "locked": True,
+    }
+
+
+def _moving_speed(b: _Builder, p: dict) -> None:
+    """Give the builder a moving shaft speed (change_pct, profile) and its phase; truth gets the profile."""
+    change = float(p.pop("change_pct", 4.0))
+    if not 0.0 <= change <= 20.0:
+        raise ValueError(f"change_pct must be between 0 and 20, got {change}")
+    shape = str(p.pop("profile", "ramp"))
+    b.speed = sm.speed_profile(b.t, b.truth["forcing_hz"], change, shape)
+    b.phase = 2 * math.pi * np.concatenate(([0.0], np.cumsum(0.5 * (b.speed[1:] + b.speed[:-1])) / b.fs))
+    b.truth.update(
+        {
+            "forcing_hz": float(b.phase[-1] / (2 * math.pi) / max(b.t[-1], 1e-12)),
+            "speed_hz_start": float(b.speed[0]),
+            "speed_hz_end": float(b.speed[-1]),
+            "speed_hz_min": float(b.speed.min()),
+            "speed_hz_max": float(b.speed.max()),
+            "profile": shape,
+            "change_pct": change,
+        }
+    )
+
+
+def _speed_ramp(b: _Builder, p: dict) -> dict:
+    _moving_speed(b, p)
+    amp = _positive("sub_amp_g", p.pop("sub_amp_g", 0.03), allow_zero=True)
+    fixed = p.pop("fixed_tone_hz", ())
+    fixed = [float(f) for f in (fixed if isinstance(fixed, list | tuple) else [fixed])]
+    fixed_g = _positive("fixed_tone_g", p.pop("fixed_tone_g", 0.03))
+    b.background(p)
+    for f in fixed:  # fixed-frequency lines: an order that moves against the shaft
+        b.x += fixed_g * np.cos(2 * math.pi * f * b.t + b.rng.uniform(0, 2 * math.pi))
+        b.lines.append(
+            {
+                "name": f"fixed {f:g} Hz",
+                "order": f / b.truth["forcing_hz"],
+                "frequency_hz": f,
+                "amplitude": fixed_g,
+                "locked": False,
+            }
+        )
+    if amp == 0:
+        return _none_sub()
+    b.tone("0.5X", 0.5, amp)
+    b.tone("1.5X", 1.5, 0.5 * amp)
+    return {
+        "present": True,
+        "class": "half-order",
+        "frequency_hz": 0.5 * b.truth["forcing_hz"],
+        "order": 0.5,
+        "amplitude": amp,
+        "growth_rate_per_s": 0.0,
+        "onset_s": None,
+        "locked": True,
+    }
+
+
+def _ramp_whirl(b: _Builder, p: dict) -> dict:
+    _moving_speed(b, p)
+    order = p.pop("whirl_order", None)
+    order = float(b.rng.uniform(0.42, 0.46)) if order is None else float(order)
+    if not 0.3 <= order <= 0.49:
+        raise ValueError(f"whirl_order must be between 0.30 and 0.49, got {order}")
+    follow = float(p.pop("follow", 0.5))
+    amp = _positive("sub_amp_g", p.pop("sub_amp_g", 0.04))
+    b.background(p)
+    f_mean = b.truth["forcing_hz"]
+    freq = order * (f_mean + follow * (b.speed - f_mean))  # follows the speed change only partly
+    ph = 2 * math.pi * np.cumsum(freq) / b.fs - order * b.phase
+    b.tone("whirl", order, amp, locked=False, extra_phase=ph)
+    b.lines[-1]["frequency_hz"] = float(freq.mean())
+    return {
+        "present": True,
+        "class": "sub-synchronous",
+        "frequency_hz": float(freq.mean()),
+        "order": float(freq.mean() / f_mean),
+        "amplitude": amp,
+        "growth_rate_per_s": 0.0,
+        "onset_s": None,
+        "locked": False,
+        "follow": follow,
     }
 
 

@@ -17,6 +17,7 @@ import pytest
 from scipy import signal
 from scipy.io import wavfile
 
+from analysis import sim_models as sm
 from analysis.simulate import KINDS, simulate
 from analysis.stability import floquet_growth, growth_rate_first_order
 from server.cli import main as cli_main
@@ -166,7 +167,8 @@ def test_reproducible_and_validated():
     b = simulate("whirl", seed=9)
     c = simulate("whirl", seed=10)
     assert np.array_equal(a.samples, b.samples) and not np.array_equal(a.samples, c.samples)
-    kinds = {"healthy", "parametric", "two-mode", "half-order", "whirl", "speed-drift", "onset-growth"}
+    kinds = {"healthy", "parametric", "two-mode", "half-order", "whirl", "speed-drift", "onset-growth",
+             "speed-ramp", "ramp-whirl"}
     assert set(KINDS) >= kinds
     with pytest.raises(ValueError, match="kind must be one of"):
         simulate("wobble")
@@ -228,3 +230,28 @@ def test_cli_healthy_record_reads_as_a_healthy_machine(tmp_path):
     assert v_1x <= an.overall.velocity_rms_mm_s < 2.8
     assert an.overall.zone in ("A", "B")
     assert not an.subharmonic.detected
+
+
+@pytest.mark.parametrize("profile", ["ramp", "step", "swing"])
+def test_speed_ramp_kind_locks_its_half_order_line_to_the_shaft(profile):
+    # the truth's speed range is the profile's (change_pct of the mean); the 0.5X line is locked: after
+    # demodulating with half the true shaft phase its phasor is constant, so its mean magnitude is A/2
+    # (a sine of peak A = A/2 e^{iφ} + c.c.; common practice)
+    rec = simulate("speed-ramp", seed=2, fs_hz=4096.0, duration_s=8.0, change_pct=6.0, profile=profile)
+    tr = rec.truth
+    assert tr["speed_hz_max"] - tr["speed_hz_min"] == pytest.approx(0.06 * 24.75, rel=0.05)
+    t = np.arange(rec.samples.size) / rec.fs_hz
+    speed = sm.speed_profile(t, 24.75, 6.0, profile)
+    phase = 2 * math.pi * np.concatenate(([0.0], np.cumsum(0.5 * (speed[1:] + speed[:-1])) / rec.fs_hz))
+    z = np.mean(rec.samples * np.exp(-0.5j * phase))
+    assert abs(z) == pytest.approx(tr["subharmonic"]["amplitude"] / 2, rel=0.05)
+    assert tr["subharmonic"]["class"] == "half-order" and tr["subharmonic"]["locked"]
+
+
+def test_ramp_whirl_kind_follows_speed_only_partly():
+    rec = simulate("ramp-whirl", seed=4, fs_hz=4096.0, duration_s=8.0, change_pct=5.0, whirl_order=0.44)
+    sub = rec.truth["subharmonic"]
+    assert sub["class"] == "sub-synchronous" and not sub["locked"] and sub["follow"] == 0.5
+    assert sub["order"] == pytest.approx(0.44, abs=1e-3)
+    with pytest.raises(ValueError, match="change_pct"):
+        simulate("speed-ramp", drift_pct=2.0)
