@@ -16,7 +16,7 @@ from analysis.tongue import band as _band
 from analysis.tongue import growth_rate as _growth
 from analysis.tongue import threshold_amplitude as _threshold_amp
 
-__all__ = ["simulate_history"]
+__all__ = ["repeat_readings", "simulate_history"]
 
 
 def simulate_history(
@@ -76,4 +76,30 @@ def simulate_history(
         "present": present,
         "growth_rate_per_s": growth,
         "truth": truth,
+    }
+
+
+def repeat_readings(h: dict, per_day: int, *, seed: int = 0, scatter: float = 0.001) -> dict:
+    """Each record of a history read ``per_day`` times within its day, hourly: the same machine state, so the
+    same label and nearly the same speed, 1X amplitude and growth (relative ``scatter`` each). Dependent
+    readings of this kind are what an hourly online sensor gives; the truth is that of ``h``."""
+    if per_day < 1:
+        raise ValueError(f"per_day must be at least 1, got {per_day}")
+    rng = np.random.default_rng(seed)
+    n = h["speed_hz"].size * per_day
+
+    def rep(v):
+        return np.repeat(np.asarray(v, dtype=float), per_day)
+
+    def jitter():
+        return np.exp(scatter * rng.standard_normal(n))
+
+    return {
+        "time_days": np.floor(rep(h["time_days"])) + np.tile(np.arange(per_day) / 24.0, h["speed_hz"].size),
+        "speed_hz": rep(h["speed_hz"]) * jitter(),
+        "amp_1x": rep(h["amp_1x"]) * jitter(),
+        "amp_sub": rep(h["amp_sub"]) * jitter(),
+        "present": rep(h["present"]),
+        "growth_rate_per_s": rep(h["growth_rate_per_s"]) * jitter(),
+        "truth": h["truth"],
     }

@@ -192,7 +192,7 @@ def conclusion(fit: WindowFit | Mapping[str, Any], amplitude_1x: float, speed_hz
         if a_ci is not None and b_ci is not None:
             text += (f" Within the fit's 95 % uncertainty a band from {_hz(a_ci[0])} to {_hz(b_ci[1])} Hz "
                      "cannot be ruled out.")
-        skip = _skip(a_ci, b_ci, margin, rpm)
+        skip = _skip(a_ci, b_ci, margin, forcing_per_rev)
         return WindowConclusion("stable", usable, text, inside=False, band_probability=prob,
                                 band_low_ci95_hz=a_ci, band_high_ci95_hz=b_ci, **skip, **common)
     a, b = est
@@ -202,8 +202,11 @@ def conclusion(fit: WindowFit | Mapping[str, Any], amplitude_1x: float, speed_hz
     inside = speed is not None and a <= speed <= b
     ext_lo = not _supported(a, speeds)
     ext_hi = not _supported(b, speeds)
-    text = (f"{lead}{at}, speeds from {_hz(a)} to {_hz(b)} Hz ({_rpm(a * rpm)} to {_rpm(b * rpm)} r/min) are "
-            f"unstable (95 % intervals of the edges {_hz(a_ci[0])}–{_hz(a_ci[1])} Hz and "
+    what = "speeds" if forcing_per_rev == 1 else "1X frequencies"
+    shaft = "" if forcing_per_rev == 1 else f" shaft, {forcing_per_rev:g} forcing cycles per revolution"
+    text = (f"{lead}{at}, {what} from {_hz(a)} to {_hz(b)} Hz ({_rpm(a * rpm)} to {_rpm(b * rpm)} "
+            f"r/min{shaft})"
+            f" are unstable (95 % intervals of the edges {_hz(a_ci[0])}–{_hz(a_ci[1])} Hz and "
             f"{_hz(b_ci[0])}–{_hz(b_ci[1])} Hz). The nearest stable speeds are below {_hz(below)} Hz "
             f"({_rpm(below * rpm)} r/min) or above {_hz(above)} Hz ({_rpm(above * rpm)} r/min).")
     if speed is not None:
@@ -211,7 +214,8 @@ def conclusion(fit: WindowFit | Mapping[str, Any], amplitude_1x: float, speed_hz
                                                    else f"{_hz(speed - b)} Hz above the band")
         text += f" The present speed, {_hz(speed)} Hz, is {where}."
     if ext_lo or ext_hi:
-        seen = ", ".join(f"{_hz(lo)}–{_hz(hi)} Hz" for lo, hi in common["observed_ranges_hz"]) or "none"
+        parts = [f"{_hz(lo)}–{_hz(hi)} Hz" for lo, hi in common["observed_ranges_hz"]]
+        seen = " and ".join([", ".join(parts[:-1]), parts[-1]] if len(parts) > 1 else parts) or "no speed"
         which = "both edges are" if ext_lo and ext_hi else ("the lower edge is" if ext_lo
                                                             else "the upper edge is")
         text += (f" Readings were taken only at {seen}: {which} extrapolated from the model, not seen "
@@ -221,16 +225,19 @@ def conclusion(fit: WindowFit | Mapping[str, Any], amplitude_1x: float, speed_hz
                             band_low_ci95_hz=a_ci, band_high_ci95_hz=b_ci, band_probability=prob,
                             stable_below_hz=below, stable_above_hz=above, stable_below_rpm=below * rpm,
                             stable_above_rpm=above * rpm, extrapolated_low=ext_lo, extrapolated_high=ext_hi,
-                            **_skip(a_ci, b_ci, margin, rpm), **common)
+                            **_skip(a_ci, b_ci, margin, forcing_per_rev), **common)
 
 
-def _skip(a_ci, b_ci, margin: float, rpm: float) -> dict:
+def _skip(a_ci, b_ci, margin: float, forcing_per_rev: float) -> dict:
     """The skipped-speed range: the band's outer 95 % limits widened by ``margin`` of speed."""
     if a_ci is None or b_ci is None:
         return {}
     lo, hi = a_ci[0] * (1.0 - margin), b_ci[1] * (1.0 + margin)
-    text = (f"On a variable-speed drive, program a skipped (avoided) speed range from {_hz(lo)} to "
-            f"{_hz(hi)} Hz ({_rpm(lo * rpm)} to {_rpm(hi * rpm)} r/min shaft speed): the unstable band's "
-            f"95 % interval widened by {100 * margin:g} % of speed on each side. A drive set in output "
-            "frequency needs these speeds times the motor's pole pairs, plus slip.")
+    rpm = 60.0 / forcing_per_rev
+    one_x = "" if forcing_per_rev == 1 else f"; 1X {_hz(lo)} to {_hz(hi)} Hz"
+    text = (f"On a variable-speed drive, program a skipped (avoided) speed range from "
+            f"{_hz(lo / forcing_per_rev)} to {_hz(hi / forcing_per_rev)} Hz shaft speed ({_rpm(lo * rpm)} to "
+            f"{_rpm(hi * rpm)} r/min{one_x}): the unstable band's 95 % interval widened by "
+            f"{100 * margin:g} % of speed on each side. A drive set in output frequency needs these shaft "
+            "speeds times the motor's pole pairs, plus slip.")
     return {"skip_hz": (lo, hi), "skip_rpm": (lo * rpm, hi * rpm), "skip_text": text}

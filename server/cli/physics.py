@@ -273,6 +273,7 @@ def cmd_window(args: argparse.Namespace) -> int:
             h["amp_1x"],
             h["present"],
             growth_rate_per_s=growth,
+            time_s=h["time_days"] * 86400.0,
             today_speed_hz=today_speed,
             today_amp_1x=today_amp,
         )
@@ -292,11 +293,11 @@ def cmd_window(args: argparse.Namespace) -> int:
     if d["amp_threshold"] is not None:
         print(
             f"1X threshold at today's speed  {d['amp_threshold']:.4g}  "
-            f"(90 %: {_fmt(d['amp_threshold_lo'])} to {_fmt(d['amp_threshold_hi'])})"
+            f"(95 %: {_fmt(d['amp_threshold_lo'])} to {_fmt(d['amp_threshold_hi'])})"
         )
     if d["margin_pct"] is not None:
         print(
-            f"margin to onset  {d['margin_pct']:+.1f} %  (90 %: {_fmt(d['margin_pct_lo'], '+.1f')} to "
+            f"margin to onset  {d['margin_pct']:+.1f} %  (95 %: {_fmt(d['margin_pct_lo'], '+.1f')} to "
             f"{_fmt(d['margin_pct_hi'], '+.1f')}); today's 1X is {d['ratio_to_threshold_pct']:.1f} % "
             "of the threshold"
         )

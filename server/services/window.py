@@ -1,5 +1,12 @@
-"""The operating window of a point: its readings in (forcing frequency, 1X acceleration peak) and the
-fitted instability region from :mod:`analysis.window` when the data constrain it.
+"""The operating window of a point: its readings in (forcing frequency, 1X acceleration peak), the
+fitted instability region from :mod:`analysis.window` when the data constrain it, and the plain
+conclusion (:func:`analysis.window.conclusion`, the one home of its wording).
+
+The fit uses the labels (half-order line present or not) and the reading times (one day = one cluster of
+dependent readings). It is not given the within-record growth rates: on a line that has reached its
+limit cycle they read about 0 1/s, and on the demo's restarts they came out 3-5 times below the
+linear-stage rate of the invented mode, so they pinned f0 far from it with a falsely small interval
+(docs/window.md).
 
 Used by the dashboard (``GET /api/v1/dashboard/points/{id}/window``) and by the alarm margin rule
 (:mod:`server.alarms.margin`), so both read the same rows and the same fit. The threshold a_c(f) itself
@@ -14,7 +21,7 @@ import math
 
 from sqlalchemy import select
 
-from analysis.window import fit_operating_window, threshold_amplitude
+from analysis.window import conclusion, fit_operating_window, threshold_amplitude
 from server.storage.queries import iso
 from server.storage.tables import Result
 
@@ -35,7 +42,7 @@ ROW_COLUMNS = (Result.measured_ts, Result.forcing_hz, Result.one_x_accel_peak, R
 def history_rows(s, point_id: int, *, start_ts: float | None = None, end_ts: float | None = None,
                  limit: int = 2000) -> list:
     """The newest ``limit`` current results of a point (typed columns, oldest first) for the window fit."""
-    where = [Result.point_id == point_id, Result.current.is_(True)]
+    where = [Result.point_id == point_id, Result.current]
     if start_ts is not None:
         where.append(Result.measured_ts >= start_ts)
     if end_ts is not None:
@@ -78,8 +85,7 @@ def fitted_window(pts: list[dict]) -> dict:
     try:
         present = [1.0 if p["present"] else 0.0 for p in pts]
         result = fit_operating_window(speeds, [p["one_x_accel_peak"] for p in pts], present,
-                                      growth_rate_per_s=[math.nan if p["growth_per_s"] is None
-                                                         else p["growth_per_s"] for p in pts],
+                                      time_s=[dt.datetime.fromisoformat(p["t"]).timestamp() for p in pts],
                                       today_speed_hz=today["forcing_hz"],
                                       today_amp_1x=today["one_x_accel_peak"])
     except ValueError as exc:
@@ -91,9 +97,13 @@ def fitted_window(pts: list[dict]) -> dict:
     return d
 
 
-def window_answer(rows) -> dict:
+def window_answer(rows, *, units: str = "g", forcing_per_rev: float = 1.0) -> dict:
+    """Readings, today's point, the fit and the plain conclusion at today's 1X amplitude."""
     pts = readings(rows)
     today = pts[-1] if pts else None
     fit = fitted_window(pts) if len(pts) >= 2 else {"status": "not_enough_data",
                                                       "message": "fewer than two readings with 1X"}
-    return {"readings": pts, "today": today, "fit": fit}
+    said = conclusion(fit, today["one_x_accel_peak"] if today else math.nan,
+                      today["forcing_hz"] if today else math.nan, [p["forcing_hz"] for p in pts],
+                      forcing_per_rev=forcing_per_rev or 1.0, units=units)
+    return {"readings": pts, "today": today, "fit": fit, "conclusion": said.to_dict()}
