@@ -123,6 +123,13 @@ def record_bundle(request: Request, record_id: int, principal: Principal = Depen
                                          record_id)
 
 
+@router.get("/records/{record_id}/waterfall",
+            summary="Up to n spectra of the record's point with this record in the middle, oldest first")
+def record_waterfall(request: Request, record_id: int, n: int = Query(21, ge=1, le=200),
+                     principal: Principal = Depends(viewer)):
+    return JSONResponse(dashboard_service.waterfall_view(request.app.state.db, principal, record_id, n))
+
+
 @router.get("/points/{point_id}/window",
             summary="Readings in (forcing frequency, 1X acceleration peak) and the fit",
             response_model=WindowAnswer)

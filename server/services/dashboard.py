@@ -13,7 +13,7 @@ from sqlalchemy import select
 
 from server.alarms.rules import default_rules, rules_in_force, zone_limits
 from server.errors import AppError, Forbidden, NotFound
-from server.services import machine_view, series, window
+from server.services import machine_view, reading_view, series, window
 from server.services.access import check_point, check_record
 from server.storage import queries
 from server.storage import tree as tree_queries
@@ -92,6 +92,7 @@ def asset_view(db, settings, principal, asset_id: int) -> dict:
     alarms = service.list_alarms(db, view="all", asset_id=asset_id)
     return {"ok": True, "asset": asset_dict(asset, area, site, settings), "points": pts,
             "zone_limits_rms_mm_s": list(limits) if limits else None, "alarms": alarms,
+            "limits_source": reading_view.LIMITS_SOURCE,
             "alarm_summary": alarm_summary(alarms),
             "series": {k: {"label": label, "unit": unit} for k, (label, unit) in series.SERIES.items()}}
 
@@ -153,9 +154,23 @@ def record_view(db, settings, principal, record_id: int) -> dict:
         older = s.scalar(select(Record.id).where(Record.point_id == point.id,
                                                  Record.measured_at < rec.measured_at)
                          .order_by(Record.measured_at.desc()).limit(1))
-    return {**detail, "point": {"id": point.id, "name": point.name, "location": point.location,
+        extra: dict = {"limits_source": reading_view.LIMITS_SOURCE}
+        res = queries.current_result(s, record_id)
+        if detail.get("result") and res is not None:
+            cover = reading_view.band_coverage(detail["result"], rec.fs_hz)
+            low = (cover["needed_hz"] or cover["measured_hz"] or [2.0])[0]
+            extra.update(zone_band=cover,
+                         velocity_spectrum=reading_view.velocity_spectrum(res.spectrum, rec.units, low))
+    return {**detail, **extra, "point": {"id": point.id, "name": point.name, "location": point.location,
                                 "direction": point.direction, "units": point.units},
             "asset": asset_dict(asset, area, site, settings), "newer_id": newer, "older_id": older}
+
+
+def waterfall_view(db, principal, record_id: int, n: int) -> dict:
+    with db.read() as s:
+        check_record(s, principal, record_id)
+        rec = s.get(Record, record_id)
+        return reading_view.waterfall_around(s, rec, n)
 
 
 def window_view(db, settings, principal, point_id: int, start, end, max_readings: int) -> dict:

@@ -61,6 +61,7 @@ POLICY = {
     ("GET", "/api/v1/dashboard/points/{point_id}/readings"): "viewer",
     ("GET", "/api/v1/dashboard/points/{point_id}/window"): "viewer",
     ("GET", "/api/v1/dashboard/records/{record_id}"): "viewer",
+    ("GET", "/api/v1/dashboard/records/{record_id}/waterfall"): "viewer",
     ("GET", "/api/v1/alarms"): "viewer",
     ("GET", "/api/v1/alarms/history"): "viewer",
     ("GET", "/api/v1/alarms/incidents"): "viewer",

@@ -260,6 +260,7 @@ SITE_RULES: dict[tuple[str, str], tuple] = {
     ("GET", "/api/v1/dashboard/points/{point_id}/readings"): (REFUSE, None),
     ("GET", "/api/v1/dashboard/points/{point_id}/window"): (REFUSE, None),
     ("GET", "/api/v1/dashboard/records/{record_id}"): (REFUSE, None),
+    ("GET", "/api/v1/dashboard/records/{record_id}/waterfall"): (REFUSE, None),
     ("GET", "/api/v1/alarms/rules"): (REFUSE, q(point_id="@point")),
     ("GET", "/api/v1/records/{record_id}/retention"): (REFUSE, None),
     ("PUT", "/api/v1/records/{record_id}/pin"): (REFUSE, body(lambda w, side: {"note": "evidence"})),

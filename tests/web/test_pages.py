@@ -157,7 +157,7 @@ def test_record_page_marks_half_order_at_half_the_forcing_frequency(login, site,
     rng = page.evaluate("document.getElementById('chart-spectrum').layout.xaxis.range")
     assert rng == pytest.approx([0.28 * 24.75, 0.72 * 24.75])
     wave = page.evaluate("document.getElementById('chart-waveform').data.map(t => [t.name, t.y.length])")
-    assert any(n == "subharmonic envelope" and k > 10 for n, k in wave)
+    assert any(n == "subharmonic envelope (m/s2 peak)" and k > 10 for n, k in wave)
     assert any(n.startswith("fitted growth") for n, _ in wave)
     fall = page.evaluate("document.getElementById('chart-waterfall').data[0].z.length")
     assert fall == len(site.seeded.record_ids["P1-DE-H"])

@@ -50,7 +50,8 @@ def test_a_reading_without_its_raw_waveform_still_opens(login, site):
     _ready(page)
     assert "removed by retention" in page.locator("#retention-note").inner_text()
     names = page.evaluate("document.getElementById('chart-waveform').data.map(t => t.name)")
-    assert "subharmonic envelope" in names and not any(n.startswith("acceleration") for n in names)
+    assert "subharmonic envelope (m/s2 peak)" in names
+    assert not any(n.startswith("acceleration") for n in names)
     assert page.evaluate("document.getElementById('chart-spectrum').data[0].x.length") > 100
     assert "removed by retention" in page.locator("#growth-note").inner_text()
     assert [e for e in page.js_errors if "autocomplete" not in e] == []

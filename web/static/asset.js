@@ -122,7 +122,9 @@
         annotations.push({ xref: "paper", x: 0.995, xanchor: "right", y: (edges[i] + edges[i + 1]) / 2,
           text: `zone ${z}`, showarrow: false, font: { size: 11, color: "#374151" } });
       });
-      $("#zone-note").textContent = `ISO 20816 zone boundaries for group ${asset.asset.machine_group}, ${asset.asset.foundation} support: A/B ${limits[0]}, B/C ${limits[1]}, C/D ${limits[2]} mm/s r.m.s.`;
+      $("#zone-note").textContent = `ISO 20816 zone boundaries for group ${asset.asset.machine_group}, `
+        + `${asset.asset.foundation} support: A/B ${limits[0]}, B/C ${limits[1]}, C/D ${limits[2]} mm/s r.m.s. `
+        + (asset.limits_source || "");
     }
     return HW.plot("chart-overall", traces, withChanges({ xaxis: xaxis(),
       yaxis: { title: { text: "velocity r.m.s. (mm/s r.m.s.)" }, range: [0, top] }, shapes, annotations }));

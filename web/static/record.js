@@ -30,16 +30,12 @@
         `peak ${HW.num(s.velocity_peak_mm_s)} mm/s · acceleration ${HW.num(s.accel_peak)} ${u} peak`),
       number("Signal to noise", HW.num(s.snr_db), "dB",
         `detection threshold ${HW.num(s.threshold_db)} dB (false-alarm rate ${HW.num(s.pfa)})`),
-      number("Growth rate", HW.num(g.rate_per_s), "1/s",
-        g.ci95_per_s && g.ci95_per_s[0] != null ? `95 % interval ${HW.num(g.ci95_per_s[0])} to ${HW.num(g.ci95_per_s[1])} 1/s · ${g.state}` : `${g.state || "not estimated"}${g.note ? ` · ${g.note}` : ""}`),
+      growthNumber(g),
       number("Doubling time", g.rate_per_s > 0 ? HW.num(Math.LN2 / g.rate_per_s) : "—", g.rate_per_s > 0 ? "s" : "",
         g.onset_s != null ? `onset at ${HW.num(g.onset_s)} s into the reading` : null),
       number("Overall velocity r.m.s.", HW.num(o.velocity_rms_mm_s), "mm/s r.m.s.",
-        o.band_hz ? `${HW.num(o.band_hz[0])} – ${HW.num(o.band_hz[1])} Hz · ${o.standard || "ISO 20816"}` : null),
-      el("div", { class: "n" }, el("div", { class: "k" }, "ISO 20816 zone"), el("div", { class: "v" },
-        HW.zoneBadge(o.zone)),
-        el("div", { class: "ci" }, o.zone_limits_rms_mm_s
-          ? `group ${o.machine_group}, ${o.foundation}: ${o.zone_limits_rms_mm_s.join(" / ")} mm/s r.m.s.` : "")),
+        o.band_hz ? `band ${HW.num(o.band_hz[0])} – ${HW.num(o.band_hz[1], 4)} Hz` : null),
+      zoneNumber(o),
       number("1X velocity r.m.s.", HW.num(one.velocity_rms_mm_s), "mm/s r.m.s.",
         `peak ${HW.num(one.velocity_peak_mm_s)} mm/s · acceleration ${HW.num(one.accel_peak)} ${u} peak`),
       number("2X velocity r.m.s.", HW.num(two.velocity_rms_mm_s), "mm/s r.m.s.",
@@ -51,9 +47,37 @@
         `${(r.spectrum_summary || {}).n_segments} averages (Welch)`),
     );
     renderPrecursor(s.precursor, box);
+    const cover = bundle.zone_band || { covered: true };
+    $("#band-note").hidden = cover.covered;
+    $("#band-note").textContent = cover.covered ? "" : cover.text;
+    $("#limits-note").textContent = bundle.limits_source || "";
     const q = r.quality || {};
     $("#quality-note").textContent = q.ok === false ? `Data quality: NOT fit for judging the machine (${(q.flags || []).join(", ")}).`
       : `Data quality: fit${q.flags && q.flags.length ? ` (notes: ${q.flags.join(", ")})` : ""}. Analysis version ${r.analysis_version || r.version}.`;
+  }
+
+  /* The within-record growth rate in plain numbers; a rate whose 95 % interval holds 0 is "no growth". */
+  function growthNumber(g) {
+    const ci = g.ci95_per_s && g.ci95_per_s[0] != null ? g.ci95_per_s : null;
+    if (g.rate_per_s == null) {
+      return number("Growth rate", "not estimated", "", `${g.state || ""}${g.note ? ` · ${g.note}` : ""}`);
+    }
+    const span = ci ? `95 % interval ${HW.num(ci[0], 2)} to ${HW.num(ci[1], 2)} 1/s` : "no interval";
+    if (ci && ci[0] <= 0 && ci[1] >= 0) {
+      return number("Growth rate", "no significant growth", "", `${HW.num(g.rate_per_s, 2)} 1/s; ${span} holds 0`);
+    }
+    return number("Growth rate", HW.num(g.rate_per_s, 2), "1/s", `${span}${g.state ? ` · ${g.state}` : ""}`);
+  }
+
+  /* The ISO 20816 zone, graded only when the reading covers the standard's band (server: zone_band). */
+  function zoneNumber(o) {
+    const cover = bundle.zone_band || { covered: true };
+    const limits = o.zone_limits_rms_mm_s
+      ? `group ${o.machine_group}, ${o.foundation} support: A/B ${o.zone_limits_rms_mm_s[0]}, `
+        + `B/C ${o.zone_limits_rms_mm_s[1]}, C/D ${o.zone_limits_rms_mm_s[2]} mm/s r.m.s.` : "";
+    return el("div", { class: "n", id: "zone-number" }, el("div", { class: "k" }, "ISO 20816 zone"),
+      el("div", { class: "v" }, cover.covered ? HW.zoneBadge(o.zone) : "not graded"),
+      el("div", { class: "ci" }, cover.covered ? limits : "the reading does not cover the standard's band"));
   }
 
   /* The noise-excited bump at 0.5X below threshold (analysis/precursor.py): its own cards and a plain note. */
@@ -128,12 +152,34 @@
         type: $("#log-y").checked ? "log" : "linear" }, shapes, hovermode: "x" });
   }
 
+  /* The same lines as velocity r.m.s. (mm/s), the measure of the ISO zones and the alarm rules. */
+  function drawVelocity() {
+    const v = bundle.velocity_spectrum;
+    if (!v) return null;
+    const F = spec.forcing_hz;
+    const fmax = v.freqs_hz[v.freqs_hz.length - 1];
+    const orders = ORDERS.filter((k) => k * F <= fmax);
+    const shapes = orders.map((k) => ({ type: "line", x0: k * F, x1: k * F, yref: "paper", y0: 0, y1: 0.93,
+      line: { color: k === 0.5 ? HW.palette.half : "#94a3b8", width: k === 0.5 ? 1.6 : 1,
+        dash: k % 1 ? "dot" : "dash" } }));
+    $("#velocity-note").textContent = `Velocity r.m.s. of each line = acceleration peak / (2π f) / √2, `
+      + `from ${HW.num(v.low_hz)} Hz up (below it integration only lifts noise). Dashed: orders of `
+      + `${HW.num(F, 4)} Hz, as on the acceleration spectrum.`;
+    return HW.plot("chart-velocity", [{ x: v.freqs_hz, y: v.velocity_rms_mm_s, type: "scatter", mode: "lines",
+      line: { color: HW.palette.overall, width: 1.2 }, name: "velocity (mm/s r.m.s.)", connectgaps: false,
+      hovertemplate: "%{x:.4g} Hz<br>%{y:.3g} mm/s r.m.s.<extra></extra>" }], {
+      xaxis: { title: { text: "frequency (Hz)" }, range: [0, Math.min(fmax, 5.2 * F)] },
+      yaxis: { title: { text: "velocity amplitude (mm/s r.m.s.)" },
+        type: $("#log-y").checked ? "log" : "linear" }, shapes, hovermode: "x" });
+  }
+
   function bindReadout() {
     const div = $("#chart-spectrum");
     const F = spec.forcing_hz;
     div.on("plotly_hover", (ev) => {
       const p = ev.points.find((q) => q.curveNumber === 0) || ev.points[0];
-      $("#readout").textContent = `${HW.num(p.x, 5)} Hz = ${(p.x / F).toFixed(3)}X · ${HW.num(p.y, 4)} ${bundle.record.units}`;
+      $("#readout").textContent = `${HW.num(p.x, 5)} Hz = ${(p.x / F).toFixed(3)}X · `
+        + `${HW.num(p.y, 4)} ${bundle.record.units} peak`;
     });
   }
 
@@ -153,6 +199,8 @@
     const layout = { "xaxis.range": [lo, hi], "xaxis.autorange": false };
     if (!$("#log-y").checked) Object.assign(layout, { "yaxis.range": [0, top * 1.15], "yaxis.autorange": false });
     Plotly.update(div, { y: [div.data[1].x.map(() => top * 1.05)] }, layout, [1]);
+    const vel = document.getElementById("chart-velocity");
+    if (vel.data) Plotly.relayout(vel, { "xaxis.range": [lo, hi], "xaxis.autorange": false, "yaxis.autorange": true });
   }
 
   /* Retention (server/retention): is the raw waveform still stored, what keeps it, and the pin for engineers. */
@@ -189,11 +237,11 @@
     if (kept) {
       const w = await HW.api(`/api/v1/records/${bundle.record.id}/waveform?max_points=4000`);
       traces.push({ x: w.t_s, y: w.value, type: "scatter", mode: "lines", line: { color: "#94a3b8", width: 0.8 },
-        name: `acceleration (${unit})` });
+        name: `acceleration (${unit}, instantaneous)` });
     }
     if (spec.envelope && spec.envelope.length) {
       traces.push({ x: spec.envelope_t_s, y: spec.envelope, type: "scatter", mode: "lines",
-        line: { color: HW.palette.half, width: 2 }, name: "subharmonic envelope" });
+        line: { color: HW.palette.half, width: 2 }, name: `subharmonic envelope (${unit} peak)` });
     }
     const g = bundle.result.growth || {};
     if (g.rate_per_s != null && g.intercept != null && g.fit_window_s && g.fit_window_s[0] != null) {
@@ -207,11 +255,11 @@
     }
     if (!kept) $("#growth-note").textContent += " The raw waveform was removed by retention: only the stored envelope and fit are drawn.";
     return HW.plot("chart-waveform", traces, { xaxis: { title: { text: "time in the reading (s)" } },
-      yaxis: { title: { text: `acceleration (${unit})` } } });
+      yaxis: { title: { text: `acceleration (${unit}; envelope: ${unit} peak)` } } });
   }
 
   async function drawWaterfall() {
-    const wf = await HW.api(`/api/v1/points/${bundle.record.point_id}/waterfall?n=20`);
+    const wf = await HW.api(`/api/v1/dashboard/records/${bundle.record.id}/waterfall?n=21`);
     if (!wf.spectra.length) return null;
     const F = spec.forcing_hz;
     const fmax = Math.min(5.2 * F, wf.spectra[0].freqs_hz[wf.spectra[0].freqs_hz.length - 1]);
@@ -226,6 +274,15 @@
         hovertemplate: "%{x:.4g} Hz<br>%{y}<br>%{z:.3g} " + unit + "<extra></extra>" }];
     const shapes = [0.5, 1].map((k) => ({ type: "line", x0: k * F, x1: k * F, yref: "paper", y0: 0, y1: 1,
       line: { color: k === 0.5 ? "#f59e0b" : "#0f766e", dash: "dash", width: 1.4 } }));
+    const at = wf.spectra.findIndex((s) => s.opened);
+    if (at >= 0) {  // the opened reading: framed, and named on the axis
+      shapes.push({ type: "rect", xref: "paper", x0: 0, x1: 1, y0: at - 0.5, y1: at + 0.5,
+        line: { color: "#b91c1c", width: 2 }, fillcolor: "rgba(0,0,0,0)" });
+      y[at] = `▶ ${y[at]}`;
+    }
+    $("#waterfall-note").textContent = `${wf.spectra.length} readings of this point around this one `
+      + `(${at} older, ${wf.spectra.length - 1 - at} newer; newest at the top); shading is the acceleration `
+      + "amplitude (peak). The framed row (▶) is this reading; the dashed lines are its 0.5X and 1X.";
     return HW.plot("chart-waterfall", traces, { xaxis: { title: { text: "frequency (Hz)" } },
       yaxis: { title: { text: `reading time (${tz})` }, type: "category" }, shapes, showlegend: false,
       margin: { l: 140 } });
@@ -260,7 +317,7 @@
     $("#record-pending").hidden = true;
     renderNumbers(bundle.result, bundle.record);
     spec = await HW.api(`/api/v1/records/${id}/spectrum`);
-    await drawSpectrum();
+    await Promise.all([drawSpectrum(), drawVelocity()]);
     bindReadout();
     const kept = await renderRetention().then((st) => st.waveform.kept, () => true);
     await Promise.all([drawWaveform(kept), drawWaterfall()]);
@@ -273,8 +330,14 @@
     $("#zoom-orders").addEventListener("click", () => spec && zoom(0, 5.2 * spec.forcing_hz));
     $("#zoom-half").addEventListener("click", () => spec && zoom(0.28 * spec.forcing_hz, 0.72 * spec.forcing_hz));
     $("#zoom-all").addEventListener("click", () => spec && zoom(0, spec.freqs_hz[spec.freqs_hz.length - 1]));
-    $("#log-y").addEventListener("change", () => spec && Plotly.relayout("chart-spectrum",
-      { "yaxis.type": $("#log-y").checked ? "log" : "linear", "yaxis.autorange": true }));
+    $("#log-y").addEventListener("change", () => {
+      if (!spec) return;
+      for (const id of ["chart-spectrum", "chart-velocity"]) {
+        if (document.getElementById(id).data) {
+          Plotly.relayout(id, { "yaxis.type": $("#log-y").checked ? "log" : "linear", "yaxis.autorange": true });
+        }
+      }
+    });
     load();
   });
 })();
