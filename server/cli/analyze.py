@@ -100,8 +100,17 @@ def summary(d: dict) -> str:
         f"{d['units']}",
         f"1X: {f['frequency_hz']:.4g} Hz ({f['frequency_hz'] * 60:.0f} r/min, {src})",
     ]
+    if f.get("tracking", "none") != "none":  # order tracking (analysis/orders.py)
+        how = "tachometer pulses" if f["tracking"] == "tach" else "the record's own 1X phase"
+        lines.append(
+            f"  speed moved {_fmt(f['speed_min_hz'], '.4g')}-{_fmt(f['speed_max_hz'], '.4g')} Hz within the "
+            f"record: order-tracked from {how}; lines are read in orders, 1X above is the mean speed"
+        )
     if s["detected"]:
-        name = "half-order component" if s["class"] == "half-order" else "sub-synchronous component"
+        name = {
+            "half-order": "half-order component",
+            "subharmonic": "subharmonic component (0.5X or whirl: take a longer reading)",
+        }.get(s["class"], "sub-synchronous component")
         fam = [k for k, v in s["family"].items() if v is not None]
         lines.append(
             f"{name} at {s['frequency_hz']:.4g} Hz ({s['order']:.2f}X), "
@@ -139,6 +148,8 @@ def summary(d: dict) -> str:
         )
     if d["quality"]["flags"]:
         lines.append("data quality: " + ", ".join(d["quality"]["flags"]))
+    for note in d["quality"].get("notes") or ():
+        lines.append("  " + note)
     lines.append(
         "Condition monitoring only, not a protection or trip system; site rules, the manufacturer's limits "
         "and local codes come first."
