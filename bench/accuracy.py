@@ -166,7 +166,9 @@ RAMP_FAMILIES = (
     ("0.5X, ramp 8 %", "speed-ramp", {"change_pct": 8.0}),
     ("0.5X, step 5 %", "speed-ramp", {"change_pct": 5.0, "profile": "step"}),
     ("0.5X, swing 5 %", "speed-ramp", {"change_pct": 5.0, "profile": "swing"}),
+    ("0.5X at 20 dB in 1 Hz, ramp 5 %", "speed-ramp", {"change_pct": 5.0, "sub_amp_g": amp_for_snr(20.0)}),
     ("whirl 0.42-0.46X, ramp 5 %", "ramp-whirl", {"change_pct": 5.0}),
+    ("whirl at 20 dB in 1 Hz, ramp 5 %", "ramp-whirl", {"change_pct": 5.0, "sub_amp_g": amp_for_snr(20.0)}),
     (
         "none + fixed tones, ramp 5 %",
         "speed-ramp",
