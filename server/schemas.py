@@ -33,6 +33,16 @@ class RecordJson(Strict):
     speed_hz: float | None = Field(default=None, description="shaft speed during the record, rev/s")
     speed_source: str | None = Field(default=None, max_length=32, description="tachometer, drive, ...")
     client_ref: str | None = Field(default=None, max_length=200, description="your id for safe retries")
+    tach_pulses_s: list[float] | None = Field(
+        default=None, max_length=1_000_000,
+        description="tachometer pulse times, s from the first sample (or give tach_samples)")
+    tach_samples: list[float] | None = Field(
+        default=None, description="a tach pulse channel sampled with the samples, same length (or "
+        "tach_pulses_s); its pulse times are taken at ingest")
+    pulses_per_rev: int | None = Field(default=None, ge=1, le=360,
+                                       description="tach pulses per shaft revolution (default 1)")
+    tach_level: float | None = Field(default=None, description="trigger level of tach_samples (default: "
+                                     "halfway up the pulses)")
 
 
 class LoginBody(Strict):

@@ -28,6 +28,7 @@ from server.storage.packing import pack_chart
 from server.storage.result_columns import result_columns
 from server.storage.tables import Asset, Job, Point, Record, Result, Waveform, utcnow
 from server.storage.waveforms import MissingWaveformFile
+from server.tach.tables import RecordTach
 
 log = logging.getLogger("halfwatch.worker")
 
@@ -129,8 +130,10 @@ def forcing_args(record: Record, asset: Asset) -> dict:
 
 _RT = Record.__table__
 _LOAD = (select(_RT, Waveform.codec.label("wf_codec"), Waveform.data.label("wf_data"),
-                Waveform.store.label("wf_store"), Waveform.digest.label("wf_digest"))
+                Waveform.store.label("wf_store"), Waveform.digest.label("wf_digest"),
+                RecordTach.pulses.label("tach_pulses"), RecordTach.pulses_per_rev.label("tach_per_rev"))
          .join(Waveform, Waveform.record_id == _RT.c.id)
+         .outerjoin(RecordTach, RecordTach.record_id == _RT.c.id)  # tach pulses, if any (server/tach)
          .where(_RT.c.id.in_(bindparam("rids", expanding=True))))
 _ASSETS = (select(Point.id.label("of_point"), Asset.__table__).join(Point, Point.asset_id == Asset.id)
            .where(Point.id.in_(bindparam("pids", expanding=True))))
@@ -186,10 +189,17 @@ def load(db, record_id: int):
 
 
 def analyse(record: Record, asset: Asset, samples):
+    import numpy as np
+
     from analysis import analyze_record
 
+    tach = {}
+    pulses = getattr(record, "tach_pulses", None)  # stored with the record (server/tach): track by tach
+    if pulses is not None:
+        tach = dict(tach_pulses_s=np.frombuffer(pulses, dtype="<f8"),
+                    pulses_per_rev=getattr(record, "tach_per_rev", 1))
     return analyze_record(samples, record.fs_hz, units=record.units, machine_group=asset.machine_group,
-                          foundation=asset.foundation, **forcing_args(record, asset))
+                          foundation=asset.foundation, **forcing_args(record, asset), **tach)
 
 
 def result_values(record, analysis) -> tuple[dict, dict]:

@@ -95,7 +95,9 @@ def _parse_body(ctype: str, body: bytes, **query) -> tuple[np.ndarray, dict]:
                                           for e in exc.errors()]) from None
         return _json_samples(doc), dict(fs_hz=doc.fs_hz, units=doc.units, measured_at=doc.measured_at,
                                         speed_hz=doc.speed_hz, speed_source=doc.speed_source,
-                                        client_ref=doc.client_ref)
+                                        client_ref=doc.client_ref, tach_pulses_s=doc.tach_pulses_s,
+                                        tach_samples=doc.tach_samples, pulses_per_rev=doc.pulses_per_rev,
+                                        tach_level=doc.tach_level)
     if ctype in RAW_TYPES or ctype == "":
         for name, value in (("fs_hz", fs_hz), ("units", units), ("measured_at", measured_at)):
             if value is None:
@@ -142,6 +144,9 @@ async def post_record_file(
     speed_hz: float | None = Form(None),
     speed_source: str | None = Form(None, max_length=32),
     client_ref: str | None = Form(None, max_length=200),
+    tach_channel: int | None = Form(None, ge=1, description="channel of the file with tach pulses, from 1"),
+    pulses_per_rev: int | None = Form(None, ge=1, le=360, description="tach pulses per revolution"),
+    tach_level: float | None = Form(None, description="tach trigger level (default: halfway up)"),
     principal: Principal = Depends(require_role("technician")),
 ):
     data = await file.read()
@@ -149,5 +154,6 @@ async def post_record_file(
         ingest_file, request.app.state.db, point_id=point_id, data=data, filename=file.filename or "upload",
         measured_at=measured_at, units=units, fs_hz=fs_hz, speed_hz=speed_hz, speed_source=speed_source,
         client_ref=client_ref, origin="upload", uploader=principal.label, limits=_limits(request),
-        site_scope=principal.site_id)
+        site_scope=principal.site_id, tach_file_channel=tach_channel, pulses_per_rev=pulses_per_rev,
+        tach_level=tach_level)
     return _answer(request, outcome)

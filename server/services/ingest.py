@@ -21,6 +21,8 @@ from server.errors import AppError, Conflict, Forbidden, NotFound, PayloadTooLar
 from server.storage import blobs
 from server.storage.group_commit import GroupCommit
 from server.storage.tables import ORIGINS, Area, Asset, Job, Point, Record, UTCDateTime, Waveform, utcnow
+from server.tach import check_speed_agrees, tach_from_input
+from server.tach.tables import RecordTach
 from server.times import to_utc
 
 
@@ -132,6 +134,7 @@ def _insert_record_checked(scoped: bool):
 
 _INSERT_CHECKED = {False: _insert_record_checked(False), True: _insert_record_checked(True)}
 _INSERT_WAVEFORM = insert(Waveform.__table__)
+_INSERT_TACH = insert(RecordTach.__table__)
 _INSERT_JOB = insert(Job.__table__).returning(Job.__table__.c.id)
 # group commit: several records per statement (ids come back in the order of the parameter sets)
 _INSERT_RECORDS = insert(Record.__table__).returning(Record.__table__.c.id, sort_by_parameter_order=True)
@@ -155,8 +158,15 @@ def ingest_record(db, *, point_id: int, samples, fs_hz: float, units: str | None
                   speed_hz: float | None = None, speed_source: str | None = None, origin: str = "api",
                   uploader: str = "", client_ref: str | None = None, limits: Limits | None = None,
                   site_scope: int | None = None, source_name: str | None = None,
-                  source_bytes: bytes | None = None, session=None) -> IngestOutcome:
+                  source_bytes: bytes | None = None, session=None, tach_pulses_s=None, tach_samples=None,
+                  pulses_per_rev: int | None = None, tach_level: float | None = None,
+                  tach_field: str = "tach_samples") -> IngestOutcome:
     """Validate and store one record with its analysis job; see the module docstring.
+
+    Tach pulses (``tach_pulses_s``: times in s from the first sample, or ``tach_samples``: a pulse channel
+    sampled with the record; ``tach_field`` names it in refusals) are checked (server/tach) and stored
+    with the record in ``record_tach``; without ``speed_hz`` their mean speed becomes the record's speed
+    (source "tach").
 
     ``site_scope`` limits the call to points of one site (API keys scoped to a site). With ``session``
     the caller owns the transaction (the record is stored in it, uncommitted).
@@ -171,6 +181,12 @@ def ingest_record(db, *, point_id: int, samples, fs_hz: float, units: str | None
     x32, fs, canonical = check_signal(samples, fs_hz, units, limits)
     measured_at = check_time(measured_at, limits)
     speed = check_speed(speed_hz)
+    tach = tach_from_input(n_samples=int(x32.size), fs_hz=fs, pulses_s=tach_pulses_s, channel=tach_samples,
+                           pulses_per_rev=pulses_per_rev, level=tach_level, channel_field=tach_field)
+    check_speed_agrees(speed, tach)
+    if tach is not None and speed is None:
+        speed, speed_source = tach.mean_speed_hz, "tach"
+    tach_row = tach.row() if tach is not None else None
     digest = blobs.checksum(x32)
 
     def _scope(conn) -> None:
@@ -204,6 +220,8 @@ def ingest_record(db, *, point_id: int, samples, fs_hz: float, units: str | None
         else:
             rid = conn.execute(_INSERT_RECORD, _row(now)).scalar_one()
         conn.execute(_INSERT_WAVEFORM, dict(wave, record_id=rid))
+        if tach_row is not None:
+            conn.execute(_INSERT_TACH, dict(tach_row, record_id=rid))
         jid = conn.execute(_INSERT_JOB, dict(record_id=rid, state="queued", reason="ingest", attempts=0,
                                              not_before=now, created_at=now, lease_until=None, worker_id=None,
                                              error=None, finished_at=None)).scalar_one()
@@ -228,7 +246,8 @@ def ingest_record(db, *, point_id: int, samples, fs_hz: float, units: str | None
                 raise
             return first
 
-    return _group(db).submit(_Pending(point_id, site_scope, client_ref, digest, _row(utcnow()), wave, alone))
+    return _group(db).submit(_Pending(point_id, site_scope, client_ref, digest, _row(utcnow()), wave, alone,
+                                      tach_row))
 
 
 @dataclass
@@ -242,6 +261,7 @@ class _Pending:
     row: dict
     wave: dict
     alone: object  # stores it in a transaction of its own (the fallback)
+    tach: dict | None = None  # its record_tach row (without record_id), if it came with tach pulses
 
 
 _GROUPS_LOCK = threading.Lock()
@@ -310,6 +330,10 @@ def _batch_in(conn, items) -> list:
         rids = conn.execute(_INSERT_RECORDS, [items[i].row for i in new]).scalars().all()
         conn.execute(_INSERT_WAVEFORM, [dict(items[i].wave, record_id=rid)
                                         for i, rid in zip(new, rids, strict=True)])
+        tachs = [dict(items[i].tach, record_id=rid)
+                 for i, rid in zip(new, rids, strict=True) if items[i].tach is not None]
+        if tachs:
+            conn.execute(_INSERT_TACH, tachs)
         now = utcnow()
         jids = conn.execute(_INSERT_JOBS, [dict(record_id=rid, state="queued", reason="ingest", attempts=0,
                                                 not_before=now, created_at=now, lease_until=None,

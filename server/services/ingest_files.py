@@ -9,25 +9,32 @@ from server.services.ingest import IngestOutcome, Limits, ingest_record
 from server.storage.tables import Point
 
 
-def read_file(data: bytes, filename: str, *, units: str | None, fs_hz: float | None):
-    """The analysis core's readers (SignalError for a bad file)."""
+def read_file(data: bytes, filename: str, *, units: str | None, fs_hz: float | None,
+              tach_channel: int | None = None):
+    """The analysis core's readers (SignalError for a bad file); ``tach_channel`` (from 1) comes back in
+    ``Recording.tach``."""
     from analysis.io import read_any
 
     if not data:
         raise AppError("the file is empty", field="file")
-    return read_any(data, filename, units=units, sample_rate_hz=fs_hz)
+    return read_any(data, filename, units=units, sample_rate_hz=fs_hz, tach_channel=tach_channel)
 
 
 def ingest_file(db, *, point_id: int, data: bytes, filename: str, measured_at: dt.datetime | None,
                 units: str | None, fs_hz: float | None, origin: str, uploader: str, limits: Limits,
-                site_scope: int | None = None, session=None, **extra) -> IngestOutcome:
+                site_scope: int | None = None, session=None, tach_file_channel: int | None = None,
+                **extra) -> IngestOutcome:
+    """Read a file and ingest its record; ``tach_file_channel`` names the file's channel (from 1) that
+    holds tach pulses (checked and stored with the record, server/tach)."""
     if units is None:  # the file may not say: the point's configured sensor units
         with db.read() as s:
             point = s.get(Point, point_id)
             if point is None:
                 raise NotFound(f"no measurement point {point_id}; see GET /api/v1/tree", field="point_id")
             units = point.units
-    rec = read_file(data, filename, units=units, fs_hz=fs_hz)
+    rec = read_file(data, filename, units=units, fs_hz=fs_hz, tach_channel=tach_file_channel)
+    if rec.tach is not None:
+        extra.update(tach_samples=rec.tach, tach_field="tach_channel")
     meta = getattr(rec, "meta", {}) or {}
     when = measured_at or meta.get("measured_at")
     if when is None:

@@ -2,7 +2,8 @@
 
 Manifest columns (header row required; names are case-insensitive): ``point`` (point name or id),
 ``measured_at`` (ISO 8601 with a zone), ``file`` (path inside the ZIP), and optionally ``units``,
-``speed_hz``, ``speed_source``, ``fs_hz`` (for one-column CSV files), ``client_ref``, ``note``.
+``speed_hz``, ``speed_source``, ``fs_hz`` (for one-column CSV files), ``client_ref``, ``note``, and for a
+file with a tach channel ``tach_channel`` (its channel, from 1), ``pulses_per_rev``, ``tach_level``.
 
 Every row is stored in its own transaction (record, waveform and job together) or rejected with the
 reason; a re-upload of the same ZIP finds the first records again (the default client reference is
@@ -33,7 +34,8 @@ from server.storage.tables import Point
 from server.storage.tree import route_stop_points
 
 REQUIRED = ("point", "measured_at", "file")
-OPTIONAL = ("units", "speed_hz", "speed_source", "fs_hz", "client_ref", "note")
+OPTIONAL = ("units", "speed_hz", "speed_source", "fs_hz", "client_ref", "note", "tach_channel",
+            "pulses_per_rev", "tach_level")
 MANIFEST_NAMES = ("manifest.csv",)
 MAX_MANIFEST_BYTES = 4 * 1024 * 1024
 RATIO_MIN_BYTES = 64 * 1024  # small members may compress very well without being bombs
@@ -210,6 +212,15 @@ def _float(value: str, field: str) -> float | None:
         raise AppError(f"{field} {value!r} is not a number", field=field) from None
 
 
+def _int(value: str, field: str) -> int | None:
+    number = _float(value, field)
+    if number is None:
+        return None
+    if number != int(number) or number < 1:
+        raise AppError(f"{field} {value!r} is not a whole number from 1", field=field)
+    return int(number)
+
+
 def _row(db, route, archive: Archive, row: dict, points: dict[str, int], *, uploader: str,
          limits: Limits, site_scope) -> dict:
     name = safe_name(row["file"])
@@ -242,7 +253,10 @@ def _row(db, route, archive: Archive, row: dict, points: dict[str, int], *, uplo
                           fs_hz=_float(row.get("fs_hz", ""), "fs_hz"),
                           speed_hz=_float(row.get("speed_hz", ""), "speed_hz"),
                           speed_source=row.get("speed_source") or None, client_ref=ref, origin="route",
-                          uploader=uploader, limits=limits, site_scope=site_scope)
+                          uploader=uploader, limits=limits, site_scope=site_scope,
+                          tach_file_channel=_int(row.get("tach_channel", ""), "tach_channel"),
+                          pulses_per_rev=_int(row.get("pulses_per_rev", ""), "pulses_per_rev"),
+                          tach_level=_float(row.get("tach_level", ""), "tach_level"))
     return {"status": "accepted" if outcome.created else "duplicate", "point_id": point_id,
             "record_id": outcome.record_id, "job_id": outcome.job_id, "off_route": off_route}
 
