@@ -77,7 +77,10 @@ def record_detail(s, record_id: int) -> dict:
     rec = get_record(s, record_id)
     job = s.scalar(select(Job).where(Job.record_id == record_id).order_by(Job.id.desc()).limit(1))
     res = current_result(s, record_id)
-    return {"ok": True, "record": record_dict(rec), "job": job_dict(job) if job else None,
+    from server.tach import tach_summary
+
+    return {"ok": True, "record": record_dict(rec), "tach": tach_summary(s, record_id),
+            "job": job_dict(job) if job else None,
             "result": None if res is None else {"id": res.id, "analysis_version": res.analysis_version,
                                                 "created_at": iso(res.created_at),
                                                 **upgrade_result_dict(json.loads(res.data))}}

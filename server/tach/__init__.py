@@ -44,9 +44,10 @@ class Tach:
 
 
 def tach_from_input(*, n_samples: int, fs_hz: float, pulses_s=None, channel=None, pulses_per_rev=None,
-                    level=None, field_prefix: str = "") -> Tach | None:
+                    level=None, field_prefix: str = "", channel_field: str = "tach_samples") -> Tach | None:
     """The checked Tach of a record from pulse times or a pulse channel (``SignalError`` naming the field),
-    or None when neither is given. ``field_prefix`` goes before field names in messages (e.g. a ZIP row)."""
+    or None when neither is given. ``field_prefix`` goes before messages (e.g. a ZIP row);
+    ``channel_field`` names the pulse channel in refusals."""
     from analysis.errors import SignalError
     from analysis.tach import check_pulses, pulses_from_channel
 
@@ -65,15 +66,15 @@ def tach_from_input(*, n_samples: int, fs_hz: float, pulses_s=None, channel=None
         ch = np.asarray(channel, dtype=np.float64).ravel()
         if ch.size != n_samples:
             raise SignalError(f"{field_prefix}the tach channel has {ch.size} samples but the record has "
-                              f"{n_samples}; sample both together", field="tach_channel")
-        pulses_s = pulses_from_channel(ch, fs_hz, level=level)
-        field, source = "tach_channel", "channel"
+                              f"{n_samples}; sample both together", field=channel_field)
+        field, source = channel_field, "channel"
     try:
+        if channel is not None:
+            pulses_s = pulses_from_channel(ch, fs_hz, level=level)
         times = check_pulses(pulses_s, ppr, n_samples / float(fs_hz), field=field)
     except SignalError as exc:
-        if not field_prefix:
-            raise
-        raise SignalError(f"{field_prefix}{exc}", field=exc.field) from None
+        name = channel_field if exc.field == "tach_channel" else exc.field
+        raise SignalError(f"{field_prefix}{exc}", field=name) from None
     return Tach(times, int(ppr), source)
 
 
@@ -88,3 +89,18 @@ def check_speed_agrees(speed_hz: float | None, tach: Tach | None) -> None:
         raise AppError(f"speed_hz {speed_hz:g} disagrees with the tach pulses' mean speed {mean:.4g} Hz "
                        f"(more than {100 * SPEED_AGREEMENT:g} %); check pulses_per_rev, or leave speed_hz "
                        "out (the tach gives it)", field="speed_hz")
+
+
+def tach_summary(s, record_id: int) -> dict | None:
+    """What a record's tach says (for the record answer): pulses, their source, the speed range in Hz."""
+    from analysis.tach import speed_from_pulses
+    from server.tach.tables import RecordTach
+
+    row = s.get(RecordTach, record_id)
+    if row is None:
+        return None
+    tach = Tach.from_row(row)
+    _, speed = speed_from_pulses(tach.times_s, tach.pulses_per_rev)
+    return {"pulses_per_rev": tach.pulses_per_rev, "n_pulses": int(tach.times_s.size), "source": tach.source,
+            "speed_mean_hz": tach.mean_speed_hz, "speed_min_hz": float(speed.min()),
+            "speed_max_hz": float(speed.max())}

@@ -75,6 +75,12 @@ def test_json_pulse_times_are_stored_and_drive_the_order_tracking(live_server, p
     # without speed_hz the record's speed is the pulses' mean speed: revolutions / time
     assert rec.speed_source == "tach"
     assert rec.speed_hz == pytest.approx((pulses.size - 1) / (pulses[-1] - pulses[0]), rel=1e-12)
+    # the record answer says what the tach gave: per-revolution speeds span the ramp (1 / revolution time
+    # = the ramp's speed at mid-revolution, exact for a linear ramp)
+    got = httpx.get(f"{live_server}/api/v1/records/{rid}", headers=plant_key_headers).json()["tach"]
+    assert got["n_pulses"] == pulses.size and got["source"] == "times" and got["pulses_per_rev"] == 1
+    assert got["speed_min_hz"] == pytest.approx(F0, rel=5e-3)
+    assert got["speed_max_hz"] == pytest.approx(F1, rel=5e-3)
     assert worker.run_once(migrated_db, hw_settings, "w1") is True
     with migrated_db.read() as s:
         data = json.loads(s.scalar(select(Result.data).where(Result.record_id == rid)))
