@@ -196,9 +196,13 @@ def conclusion(fit: WindowFit | Mapping[str, Any], amplitude_1x: float, speed_hz
         return WindowConclusion("stable", usable, text, inside=False, band_probability=prob,
                                 band_low_ci95_hz=a_ci, band_high_ci95_hz=b_ci, **skip, **common)
     a, b = est
-    if a_ci is None or b_ci is None:  # no covariance: the estimate is all we have
-        a_ci, b_ci = (a, a), (b, b)
-    below, above = min(a_ci[0], a), max(b_ci[1], b)
+    known = a_ci is not None and b_ci is not None
+    below = min(a_ci[0], a) if a_ci is not None else a
+    above = max(b_ci[1], b) if b_ci is not None else b
+    edges = "the fit states no interval for the edges"
+    if a_ci is not None and b_ci is not None:
+        edges = (f"95 % intervals of the edges {_hz(a_ci[0])}–{_hz(a_ci[1])} Hz and "
+                 f"{_hz(b_ci[0])}–{_hz(b_ci[1])} Hz")
     inside = speed is not None and a <= speed <= b
     ext_lo = not _supported(a, speeds)
     ext_hi = not _supported(b, speeds)
@@ -206,8 +210,7 @@ def conclusion(fit: WindowFit | Mapping[str, Any], amplitude_1x: float, speed_hz
     shaft = "" if forcing_per_rev == 1 else f" shaft, {forcing_per_rev:g} forcing cycles per revolution"
     text = (f"{lead}{at}, {what} from {_hz(a)} to {_hz(b)} Hz ({_rpm(a * rpm)} to {_rpm(b * rpm)} "
             f"r/min{shaft})"
-            f" are unstable (95 % intervals of the edges {_hz(a_ci[0])}–{_hz(a_ci[1])} Hz and "
-            f"{_hz(b_ci[0])}–{_hz(b_ci[1])} Hz). The nearest stable speeds are below {_hz(below)} Hz "
+            f" are unstable ({edges}). The nearest stable speeds are below {_hz(below)} Hz "
             f"({_rpm(below * rpm)} r/min) or above {_hz(above)} Hz ({_rpm(above * rpm)} r/min).")
     if speed is not None:
         where = "inside the band" if inside else (f"{_hz(a - speed)} Hz below the band" if speed < a
@@ -225,7 +228,12 @@ def conclusion(fit: WindowFit | Mapping[str, Any], amplitude_1x: float, speed_hz
                             band_low_ci95_hz=a_ci, band_high_ci95_hz=b_ci, band_probability=prob,
                             stable_below_hz=below, stable_above_hz=above, stable_below_rpm=below * rpm,
                             stable_above_rpm=above * rpm, extrapolated_low=ext_lo, extrapolated_high=ext_hi,
-                            **_skip(a_ci, b_ci, margin, forcing_per_rev), **common)
+                            **(_skip(a_ci, b_ci, margin, forcing_per_rev) if known else _NO_SKIP),
+                            **common)
+
+
+_NO_SKIP = {"skip_text": "No skipped-speed range is proposed: the fit gives no interval for the band's "
+                         "edges."}
 
 
 def _skip(a_ci, b_ci, margin: float, forcing_per_rev: float) -> dict:

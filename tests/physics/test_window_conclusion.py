@@ -134,3 +134,14 @@ def test_without_a_usable_fit_it_says_so():
     assert weak.status == "unstable" and not weak.usable and weak.text.startswith("Indicative only")
     with pytest.raises(ValueError, match="margin"):
         conclusion(_fit(), AMP, 25.0, [25.0], margin=0.7)
+
+
+def test_without_a_covariance_no_interval_and_no_skip_range_are_claimed():
+    # a fit that could not estimate its covariance (status weakly_constrained): the band is the estimate
+    # alone, said so, and no skipped-speed range is proposed from it
+    fit = {**_fit(status="weakly_constrained"), "param_cov": None}
+    c = conclusion(fit, AMP, 25.0, np.linspace(23, 27, 81))
+    assert c.band_hz == pytest.approx((A_HAND, B_HAND), abs=1e-5)
+    assert c.band_low_ci95_hz is None and c.band_high_ci95_hz is None and c.skip_hz is None
+    assert "the fit states no interval for the edges" in c.text
+    assert c.skip_text.startswith("No skipped-speed range is proposed")
