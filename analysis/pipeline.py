@@ -53,20 +53,23 @@ def _check_speed(value, name: str, fs: float) -> float:
 #: largest relative gap between a forcing_hz given with tach pulses and the nearest whole or half multiple
 #: of the pulses' mean speed (2 %: the half-order window; beyond it the two speeds disagree)
 TACH_FORCING_TOL = 0.02
+#: the same for a nominal_hz given with tach pulses: the ±5 % a nominal speed is refined within
+TACH_NOMINAL_TOL = 0.05
 
 
-def _forcing_per_rev(forcing_hz, shaft_hz: float) -> float:
-    """Forcing cycles per shaft revolution (a multiple of 0.5) from forcing_hz and the tach speed."""
+def _forcing_per_rev(forcing_hz, shaft_hz: float, *, name: str = "forcing_hz",
+                     tol: float = TACH_FORCING_TOL) -> float:
+    """Forcing cycles per shaft revolution (a multiple of 0.5) from a speed and the tach speed."""
     try:
         ratio = float(forcing_hz) / shaft_hz
     except (TypeError, ValueError):
         ratio = float("nan")
     k = round(2.0 * ratio) / 2.0 if np.isfinite(ratio) else 0.0
-    if k < 0.5 or abs(ratio / k - 1.0) > TACH_FORCING_TOL:
+    if k < 0.5 or abs(ratio / k - 1.0) > tol:
         raise SignalError(
-            f"forcing_hz {forcing_hz!r} disagrees with the tach pulses' mean speed {shaft_hz:.4g} Hz (not a "
-            f"whole or half multiple within {100 * TACH_FORCING_TOL:g} %); check pulses_per_rev or leave "
-            "forcing_hz out", field="forcing_hz")
+            f"{name} {forcing_hz!r} disagrees with the tach pulses' mean speed {shaft_hz:.4g} Hz (not a "
+            f"whole or half multiple within {100 * tol:g} %); check pulses_per_rev or leave {name} out",
+            field=name)
     return k
 
 
@@ -105,7 +108,8 @@ def analyze_record(
         ``analysis.tach.check_pulses`` (a bad tach raises, never a silent fallback). The shaft phase from
         them drives the order tracking (``forcing.tracking == "tach"``). Without forcing_hz / nominal_hz
         the mean speed of the pulses is the 1X; a forcing_hz given with them must be a whole or half
-        multiple of that speed (within ``TACH_FORCING_TOL``): the forcing per revolution.
+        multiple of that speed (within ``TACH_FORCING_TOL``; a nominal_hz within ``TACH_NOMINAL_TOL``):
+        the forcing per revolution.
 
     Returns
     -------
@@ -131,7 +135,10 @@ def analyze_record(
         per_rev = 1.0
         if forcing_hz is not None:
             per_rev = _forcing_per_rev(forcing_hz, shaft_hz)
-        elif nominal_hz is None:
+        elif nominal_hz is not None:  # the tach measures the speed: the nominal only says the multiple
+            per_rev = _forcing_per_rev(nominal_hz, shaft_hz, name="nominal_hz", tol=TACH_NOMINAL_TOL)
+            forcing_hz, nominal_hz = per_rev * shaft_hz, None
+        else:
             forcing_hz = shaft_hz
         tach_phase_rad = per_rev * phase_from_pulses(pulses, pulses_per_rev, np.arange(len(x_raw)) / fs)
     if (forcing_hz is None) == (nominal_hz is None):

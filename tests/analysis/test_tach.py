@@ -304,3 +304,9 @@ def test_analyze_record_refuses_a_bad_tach_rather_than_falling_back():
     d = analyze_record(x, FS, units="g", tach_pulses_s=pulses, forcing_hz=60.0).to_dict()
     assert d["forcing"]["tracking"] == "tach"
     assert d["forcing"]["frequency_hz"] == pytest.approx(60.0, rel=1e-3)
+    # a nominal speed only says the multiple: the tach measures the speed (mean of the ramp: 30 Hz)
+    d = analyze_record(x, FS, units="g", tach_pulses_s=pulses, nominal_hz=29.0).to_dict()
+    assert d["forcing"]["frequency_hz"] == pytest.approx(30.0, rel=1e-3) and d["forcing"]["source"] == "given"
+    with pytest.raises(SignalError) as e:
+        analyze_record(x, FS, units="g", tach_pulses_s=pulses, nominal_hz=40.0)
+    assert e.value.field == "nominal_hz"
