@@ -135,6 +135,49 @@ def demo_points(path: str) -> dict[str, tuple[list[tuple[float, float]], float]]
     return out
 
 
+def demo_incident_emails(path: str) -> dict[str, tuple[int, int, int]]:
+    """Per machine of a demo database (opened read-only): (incidents, alarm emails, addresses).
+
+    Incidents are rebuilt from the audit trail the same way for any version of the code: a machine is in
+    an incident from the first rule of any of its points leaving normal until all are back to normal.
+    Emails are the outbox rows about the machine's transitions (one per address)."""
+    conn = sqlite3.connect(f"file:{path}?mode=ro", uri=True)
+    try:
+        names = dict(conn.execute("SELECT id, name FROM assets"))
+        events = conn.execute("SELECT id, asset_id, point_id, metric, to_level FROM alarm_events "
+                              "WHERE kind = 'transition' ORDER BY id").fetchall()
+        mails = conn.execute("SELECT o.event_id, e.asset_id, o.recipient FROM alarm_outbox o "
+                             "JOIN alarm_events e ON e.id = o.event_id "
+                             "WHERE o.kind IN ('alarm', 'incident') AND e.kind = 'transition'").fetchall()
+    finally:
+        conn.close()
+    levels: dict[int, dict] = {}
+    incidents: dict[int, int] = {}
+    for _id, asset, point, metric, to in events:
+        states = levels.setdefault(asset, {})
+        was_open = any(v != "normal" for v in states.values())
+        states[(point, metric)] = to
+        if not was_open and to != "normal":
+            incidents[asset] = incidents.get(asset, 0) + 1
+    out: dict[str, tuple[int, int, int]] = {}
+    for asset, n in incidents.items():
+        rows = [m for m in mails if m[1] == asset]
+        out[names.get(asset, str(asset))] = (n, len(rows), len({m[2] for m in rows}))
+    return out
+
+
+def print_demo_incidents(label: str, path: str) -> None:
+    per = demo_incident_emails(path)
+    print(f"\n{label}: emails per incident on the demo ({path})")
+    print(f"{'machine':<36} {'incidents':>9} {'emails':>7} {'addresses':>9} {'per incident and address':>25}")
+    tot_i = tot_e = 0
+    for name, (n, emails, addresses) in sorted(per.items()):
+        tot_i, tot_e = tot_i + n, tot_e + emails
+        rate = emails / n / addresses if addresses else 0.0
+        print(f"{name[:36]:<36} {n:>9} {emails:>7} {addresses:>9} {rate:>25.2f}")
+    print(f"{'all machines':<36} {tot_i:>9} {tot_e:>7}")
+
+
 def _row(name, before, after, worker="") -> str:
     cells = []
     for m in SLOW:
@@ -147,7 +190,14 @@ def _row(name, before, after, worker="") -> str:
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--demo-db", help="a demo halfwatch.db to replay (opened read-only)")
+    ap.add_argument("--incidents", nargs="+", metavar="LABEL=DB",
+                    help="count emails per incident in demo databases, e.g. before=old.db after=new.db")
     args = ap.parse_args(argv)
+    if args.incidents:
+        for item in args.incidents:
+            label, _, path = item.partition("=")
+            print_demo_incidents(label, path)
+        return 0
     head = ("sequence".ljust(44) + " | trend dB/day: before chg mail | after chg mail 1st-day"
             " || forecast: same columns | worker path (trend, forecast)")
     print(head)

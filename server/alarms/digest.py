@@ -11,7 +11,7 @@ from sqlalchemy.exc import IntegrityError
 from server.storage.tables import Area, Asset, Point, Site, utcnow
 
 from .notify import message_id
-from .rules import LEVEL_RANK, METRICS
+from .rules import LEVEL_RANK, rule_label, value_text
 from .tables import AlarmEvent, AlarmPointStatus, AlarmState, AlarmSubscription, OutboxMessage
 
 
@@ -49,14 +49,27 @@ def open_alarm_rows(session, scope: str, scope_id: int, *, min_level: str = "ale
             status = f"acknowledged by {state.acked_by}"
         else:
             status = "open"
-        info = METRICS[state.metric]
+        latest = latest or {}
         rows.append({
-            "level": state.level, "asset": asset_name, "point": point_name, "rule": info.label,
-            "value": f"{value:.3g} {info.unit}".strip() if value is not None else "n/a",
+            "level": state.level, "asset": asset_name, "asset_id": state.asset_id, "point": point_name,
+            "metric": state.metric,
+            "rule": rule_label(state.metric, latest.get("line_class"), latest.get("line_order")),
+            "value": value_text(state.metric, value),
             "since": f"{state.since:%Y-%m-%d %H:%M} UTC", "status": status,
         })
-    rows.sort(key=lambda r: (-LEVEL_RANK[r["level"]], r["asset"], r["point"], r["rule"]))
-    return rows
+    return by_machine(rows)
+
+
+def by_machine(rows: list[dict]) -> list[dict]:
+    """Rows grouped by machine, the worst machine first (its highest level, then how many rules are at
+    it), each machine's rules worst first."""
+    worst: dict[str, tuple[int, int]] = {}
+    for r in rows:
+        rank = LEVEL_RANK[r["level"]]
+        top, n = worst.get(r["asset"], (-1, 0))
+        worst[r["asset"]] = (rank, 1) if rank > top else (top, n + (rank == top))
+    return sorted(rows, key=lambda r: (-worst[r["asset"]][0], -worst[r["asset"]][1], r["asset"],
+                                       -LEVEL_RANK[r["level"]], r["point"], r["rule"]))
 
 
 def _changes_24h(session, scope: str, scope_id: int, now: dt.datetime) -> int:

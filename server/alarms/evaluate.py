@@ -27,6 +27,8 @@ from server.storage.tables import Asset, Point, utcnow
 
 from . import checks, margin
 from .engine import Reading, step
+from .evidence import evidence_for
+from .incidents import after_transitions
 from .notify import queue_for_events
 from .pointstate import PointData, StateRow, effective, read_point, write_states, write_status
 from .rules import (
@@ -181,10 +183,15 @@ def _evaluate(session: Session, record, result, settings, now: dt.datetime) -> l
     status.history = history
     status.speeds_hz = checks.remember_speed(list(status.speeds_hz), typed.forcing.frequency_hz)
     status.last_metrics = {k: v for k, v in metrics.items() if v is None or math.isfinite(v)}
+    # the class of the line names the line-rules in the table, the digest and the subject (rules.rule_label)
+    sub = typed.subharmonic
+    status.last_metrics["line_class"] = sub.klass if sub.detected else None
+    status.last_metrics["line_order"] = _finite_or_none(sub.order) if sub.detected else None
     status.last_record_id, status.data_quality_open = record.id, False
 
     events, touched = [], []
     forecast: dict | None = None  # the detailed forecast, computed once if anything changes
+    evidence: dict | None = None  # speed, window conclusion, last speed change: once if anything changes
     for row in rules:
         spec = rule_spec(row)
         state = point.states.get(row.metric)
@@ -214,6 +221,7 @@ def _evaluate(session: Session, record, result, settings, now: dt.datetime) -> l
         if forecast is None:
             full = checks.detailed_forecast(trend_points, limit=danger_of.get("half_order_velocity"))
             forecast = {k: full.get(k) for k in checks.EMAIL_FORECAST_KEYS if k in full}
+            evidence = evidence_for(session, point.point_id, typed, status.window_fit, now)
         for name, v in (("window", windows[row.metric]), ("last_value", value), ("last_record_id", record.id),
                         ("updated_at", now)):
             state.set(name, v)
@@ -225,7 +233,8 @@ def _evaluate(session: Session, record, result, settings, now: dt.datetime) -> l
             details={"where": where, "metrics": status.last_metrics, "previous": previous,
                      "window": _window_summary(status.window_fit), "forecast": forecast,
                      "levels": list(levels), "finding": _finding(data), "direction": spec.direction,
-                     "half_order_danger": danger_of.get("half_order_velocity")},
+                     "half_order_danger": danger_of.get("half_order_velocity"), "evidence": evidence,
+                     "measured_at": dt.datetime.fromtimestamp(ts, dt.UTC).isoformat()},
             **common,
         )
         _apply_transition(state, new_level, now)
@@ -240,19 +249,19 @@ def _evaluate(session: Session, record, result, settings, now: dt.datetime) -> l
             state.set("last_event_id", event.id)
     write_states(conn, point, touched)
     write_status(conn, point.point_id, status, now)
-    queue_for_events(session, [e for e, s in events if not _shelved(s, now) and _announced(e)], now=now)
+    if events:  # one email per incident escalation, one when the incident clears (incidents.py)
+        after_transitions(session, where, [e for e, _ in events], record_id=record.id, now=now)
     return [e for e, _ in events]
+
+
+def _finite_or_none(value) -> float | None:
+    return float(value) if isinstance(value, (int, float)) and math.isfinite(value) else None
 
 
 def _dwelling(metric: str, tr, since: dict, ts: float) -> bool:
     """True while a slow rule's drop comes sooner than its dwell time after the level was reached."""
     dwell = SLOW_RULES_DWELL_S.get(metric)
     return bool(dwell) and not tr.escalation and ts - float(since.get(metric, -math.inf)) < dwell
-
-
-def _announced(event: AlarmEvent) -> bool:
-    """Planners get escalations and clears; a drop to a lower level of an open alarm stays in the trail."""
-    return event.to_level == "normal" or LEVEL_RANK[event.to_level] > LEVEL_RANK[event.from_level]
 
 
 def merge_history(history: list[list[float]], ts: float, value: float) -> list[list[float]]:
@@ -274,10 +283,6 @@ def _apply_transition(state: StateRow, new_level: str, now: dt.datetime) -> None
     ):
         for name in ("shelved_until", "shelve_reason", "shelved_by", "shelved_level"):
             state.set(name, None)
-
-
-def _shelved(state: StateRow, now: dt.datetime) -> bool:
-    return state.shelved_until is not None and state.shelved_until > now
 
 
 def _window_summary(fit: dict | None) -> dict | None:

@@ -75,14 +75,18 @@ def _event_snapshot(e: AlarmEvent) -> dict:
 
 def compose(session, row: OutboxMessage, settings) -> tuple[str, str, str]:
     base = settings.public_base_url
-    if row.kind == "alarm":
+    simulated = bool(getattr(settings, "simulated_data", False))
+    if row.kind in ("alarm", "incident"):
         ids = row.payload.get("event_ids") or [row.event_id]
         events = {e.id: e for e in session.scalars(select(AlarmEvent).where(AlarmEvent.id.in_(ids)))}
-        return render.alarm_email([_event_snapshot(events[i]) for i in ids if i in events], base_url=base)
+        snapshots = [_event_snapshot(events[i]) for i in ids if i in events]
+        if row.kind == "incident":
+            return render.incident_email(row.payload, snapshots, base_url=base, simulated=simulated)
+        return render.alarm_email(snapshots, base_url=base)
     if row.kind == "digest":
         p = row.payload
         return render.digest_email(p["rows"], scope_name=p["scope_name"], local_date=p["local_date"],
-                                   base_url=base, changes_24h=p.get("changes_24h", 0))
+                                   base_url=base, changes_24h=p.get("changes_24h", 0), simulated=simulated)
     return render.smtp_test_email(base_url=base)
 
 

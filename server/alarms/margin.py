@@ -74,8 +74,11 @@ def refresh_window_fits(db, *, now: dt.datetime | None = None) -> int:
             log.warning("window fit for point %s failed: %s", point_id, exc)
             fit = {"status": "failed", "message": str(exc)}
         keep = {k: fit.get(k) for k in ("status", "message", "f0_hz", "zeta", "k_per_unit", "margin_pct",
-                                        "unstable_band_hz")}
-        keep.update(n_results=counts[point_id], fitted_at=now.isoformat())
+                                        "unstable_band_hz", "param_cov")}
+        speeds = [p["forcing_hz"] for p in pts]
+        # the speeds the fit saw: the window conclusion says where the tongue is extrapolated beyond them
+        keep.update(n_results=counts[point_id], fitted_at=now.isoformat(),
+                    observed_hz=[min(speeds), max(speeds)] if speeds else None)
         with db.unit_of_work() as s:
             status = s.get(AlarmPointStatus, point_id)
             if status is not None:

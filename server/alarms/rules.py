@@ -49,7 +49,7 @@ METRICS: dict[str, MetricInfo] = {
     "trend_db_per_day": MetricInfo("half-order trend (at least, 95 % one-sided)", "dB/day"),
     "time_to_limit_days": MetricInfo("forecast time to the danger level (at most)", "days", "below"),
     "overall_velocity": MetricInfo("overall velocity r.m.s. (ISO 20816 zone)", "mm/s r.m.s."),
-    "threshold_margin": MetricInfo("margin to the instability threshold", "", "below"),
+    "threshold_margin": MetricInfo("margin to the instability threshold", "", "below"),  # value_text: %
     "order_1x_velocity": MetricInfo("1X velocity r.m.s.", "mm/s r.m.s."),
     "order_2x_velocity": MetricInfo("2X velocity r.m.s.", "mm/s r.m.s."),
     "crest_factor": MetricInfo("crest factor", ""),
@@ -60,7 +60,51 @@ METRICS: dict[str, MetricInfo] = {
 # so consecutive values are not independent: k of n alone cannot stop them flapping. A level they
 # reached is held for at least this long (measurement time) before it may drop (house choice: two days,
 # several times the 6-hour bucket of the trend fit).
-SLOW_RULES_DWELL_S = {"trend_db_per_day": 2 * 86400.0, "time_to_limit_days": 2 * 86400.0}
+# The threshold margin reads the operating-window fit, refitted every few records, and today's 1X
+# amplitude, which scatters from reading to reading: it flapped between alert and danger like the trend
+# rules did, so it gets their dwell, 3 of 4 and the 50 % band too (house choice).
+SLOW_RULES_DWELL_S = {"trend_db_per_day": 2 * 86400.0, "time_to_limit_days": 2 * 86400.0,
+                      "threshold_margin": 2 * 86400.0}
+
+# Rules about the subharmonic line itself: their label names the line by its class (a whirl line at
+# 0.43X is not called half-order). "{line}" is filled by :func:`line_name`.
+LINE_LABELS = {
+    "half_order_velocity": "{line} velocity r.m.s.",
+    "half_order_amplitude": "{line} acceleration peak (record units)",
+    "half_order_ratio": "{line} / 1X ratio",
+    "trend_db_per_day": "{line} trend (at least, 95 % one-sided)",
+}
+
+
+def value_text(metric: str, value) -> str:
+    """A rule's value as a planner reads it, with its measure: the margin as a percentage everywhere
+    ("-6 % (beyond the threshold)"), the others to 3 significant digits with their unit."""
+    if not _finite(value):
+        return "n/a"
+    if metric == "threshold_margin":
+        text = f"{100.0 * value:.0f} %"
+        return text + " (beyond the threshold)" if value < 0 else text
+    unit = METRICS[metric].unit if metric in METRICS else ""
+    return f"{value:.3g} {unit}".strip()
+
+
+def line_name(line_class: str | None, order: float | None = None) -> str:
+    """The line in the trade's words by its class: "half-order" (exactly 0.5X), "sub-synchronous whirl
+    line (0.43X)"; another class "subharmonic line"."""
+    if line_class == "half-order":
+        return "half-order"
+    if line_class == "sub-synchronous":
+        at = f" ({order:.2f}X)" if _finite(order) else ""
+        return f"sub-synchronous whirl line{at}"
+    return "subharmonic line"
+
+
+def rule_label(metric: str, line_class: str | None = None, order: float | None = None) -> str:
+    """The rule's label for a planner, naming the line by its class when the rule is about the line."""
+    template = LINE_LABELS.get(metric)
+    if template is None or line_class is None:
+        return METRICS[metric].label if metric in METRICS else metric
+    return template.format(line=line_name(line_class, order))
 
 
 @dataclass(frozen=True, slots=True)
@@ -149,7 +193,9 @@ def default_rules(*, group: int = 2, support: str = "rigid") -> list[RuleSpec]:
         # Overall level against the ISO 20816 zones: C alerts, D is danger.
         RuleSpec("overall_velocity", None, None, zone_based=True),
         # Margin 1 - h/h_c from the operating-window fit: 20 % alerts, 5 % is danger (house choice).
-        RuleSpec("threshold_margin", 0.20, 0.05, direction="below"),
+        # Like the slow rules: 3 of 4, cleared only well back (alert at 30 %, danger at 7.5 %), and a
+        # level held for SLOW_RULES_DWELL_S before it may drop.
+        RuleSpec("threshold_margin", 0.20, 0.05, k=3, n=4, hysteresis=0.5, direction="below"),
     ]
 
 

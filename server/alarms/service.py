@@ -17,8 +17,16 @@ from server.names import EMAIL_RE  # the one address rule (users and subscriptio
 from server.storage.tables import Area, Asset, Point, Site, utcnow
 
 from .digest import scope_filter
-from .rules import LEVEL_RANK, METRICS, RuleSpec
-from .tables import MODES, SCOPES, AlarmEvent, AlarmPointStatus, AlarmRule, AlarmState, AlarmSubscription
+from .rules import LEVEL_RANK, METRICS, RuleSpec, rule_label, value_text
+from .tables import (
+    MODES,
+    SCOPES,
+    AlarmEvent,
+    AlarmPointStatus,
+    AlarmRule,
+    AlarmState,
+    AlarmSubscription,
+)
 
 VIEWS = ("active", "acknowledged", "shelved", "all")
 
@@ -46,12 +54,15 @@ def _level(value: str | None, field: str = "level") -> str | None:
 def state_dict(state: AlarmState, point: Point, asset: Asset, area: Area, now: dt.datetime,
                status: AlarmPointStatus | None = None) -> dict:
     shelved = state.shelved_until is not None and state.shelved_until > now
-    latest = (status.last_metrics or {}).get(state.metric) if status is not None else None
+    metrics = (status.last_metrics or {}) if status is not None else {}
+    latest = metrics.get(state.metric)
+    value = latest if latest is not None else state.last_value
     return {
         "id": state.id, "point_id": point.id, "point": point.name, "asset_id": asset.id, "asset": asset.name,
         "area_id": area.id, "area": area.name, "site_id": area.site_id, "metric": state.metric,
-        "rule": METRICS[state.metric].label, "unit": METRICS[state.metric].unit, "rule_id": state.rule_id,
-        "level": state.level, "value": latest if latest is not None else state.last_value,
+        "rule": rule_label(state.metric, metrics.get("line_class"), metrics.get("line_order")),
+        "unit": METRICS[state.metric].unit, "rule_id": state.rule_id,
+        "level": state.level, "value": value, "value_text": value_text(state.metric, value),
         "value_at_change": state.last_value, "since": state.since.isoformat(),
         "record_id": status.last_record_id if status is not None else state.last_record_id,
         "acknowledged": bool(state.acked_level),
@@ -189,17 +200,21 @@ def shelve(db, state_id: int, *, actor: str, until: dt.datetime, reason: str,
            now: dt.datetime | None = None) -> dict:
     reason = _text(reason, "reason", "a reason")
     now = now or utcnow()
+    _check_until(until, now)
+    with db.unit_of_work() as s:
+        state = _open_state(s, state_id)
+        state.shelved_until, state.shelve_reason, state.shelved_by = until, reason, actor
+        state.shelved_level = state.level
+        return _audit(s, state, "shelved", actor, reason, now, until=until.isoformat())
+
+
+def _check_until(until: dt.datetime, now: dt.datetime) -> None:
     if until.tzinfo is None:
         raise AlarmInputError("until", "until: give a time zone, e.g. 2026-12-24T08:00:00Z")
     if until <= now:
         raise AlarmInputError("until", "until: must be in the future")
     if until > now + dt.timedelta(days=366):
         raise AlarmInputError("until", "until: shelve for at most a year")
-    with db.unit_of_work() as s:
-        state = _open_state(s, state_id)
-        state.shelved_until, state.shelve_reason, state.shelved_by = until, reason, actor
-        state.shelved_level = state.level
-        return _audit(s, state, "shelved", actor, reason, now, until=until.isoformat())
 
 
 def unshelve(db, state_id: int, *, actor: str, now: dt.datetime | None = None) -> dict:
@@ -282,7 +297,9 @@ def rule_dict(r: AlarmRule) -> dict:
     return {"id": r.id, "asset_id": r.asset_id, "point_id": r.point_id, "metric": r.metric,
             "label": METRICS[r.metric].label, "unit": METRICS[r.metric].unit, "alert": r.alert_level,
             "danger": r.danger_level, "direction": r.direction, "zone_based": r.zone_based, "k": r.persist_k,
-            "n": r.persist_n, "hysteresis": r.hysteresis, "enabled": r.enabled, "is_default": r.is_default}
+            "n": r.persist_n, "hysteresis": r.hysteresis, "enabled": r.enabled, "is_default": r.is_default,
+            "alert_text": value_text(r.metric, r.alert_level),
+            "danger_text": value_text(r.metric, r.danger_level)}
 
 
 def list_rules(db, *, point_id: int) -> list[dict]:

@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import datetime as dt
 
-from sqlalchemy import JSON, Boolean, Float, ForeignKey, Index, Integer, String, Text, UniqueConstraint
+from sqlalchemy import JSON, Boolean, Float, ForeignKey, Index, Integer, String, Text, UniqueConstraint, text
 from sqlalchemy.orm import Mapped, mapped_column
 
 from server.storage.tables import Base, UTCDateTime, utcnow
@@ -117,6 +117,37 @@ class AlarmEvent(Base):
     summary: Mapped[str] = mapped_column(Text, default="")
     details: Mapped[dict] = mapped_column(JSON, default=dict)
     created_at: Mapped[dt.datetime] = mapped_column(UTCDateTime, default=utcnow)
+
+
+class AlarmIncident(Base):
+    """One incident per machine: from the first rule of any of its points leaving normal until every rule
+    of the machine is back to normal (migration 0009).
+
+    ``level`` is the highest level of the machine's rules now; ``announced_level`` the highest level an
+    email went out for (escalation emails go out only above it: one email per escalation). At most one
+    open incident per machine (a partial unique index on ``asset_id`` where ``cleared_at`` is null).
+    Like the audit trail, the ids of asset, area and site are plain integers.
+    """
+
+    __tablename__ = "alarm_incidents"
+    __table_args__ = (
+        Index("ux_alarm_incidents_open", "asset_id", unique=True, sqlite_where=text("cleared_at IS NULL"),
+              postgresql_where=text("cleared_at IS NULL")),
+        Index("ix_alarm_incidents_asset_opened", "asset_id", "opened_at"),
+    )
+    id: Mapped[int] = mapped_column(primary_key=True)
+    asset_id: Mapped[int] = mapped_column(Integer)
+    area_id: Mapped[int | None] = mapped_column(Integer)
+    site_id: Mapped[int | None] = mapped_column(Integer)
+    level: Mapped[str] = mapped_column(String(8), default="alert")
+    peak_level: Mapped[str] = mapped_column(String(8), default="alert")
+    announced_level: Mapped[str] = mapped_column(String(8), default="normal")
+    opened_at: Mapped[dt.datetime] = mapped_column(UTCDateTime, default=utcnow)
+    cleared_at: Mapped[dt.datetime | None] = mapped_column(UTCDateTime)
+    opened_record_id: Mapped[int | None] = mapped_column(Integer)
+    last_record_id: Mapped[int | None] = mapped_column(Integer)
+    emails: Mapped[int] = mapped_column(Integer, default=0)  # outbox rows queued for it (all addresses)
+    updated_at: Mapped[dt.datetime] = mapped_column(UTCDateTime, default=utcnow)
 
 
 class AlarmSubscription(Base):

@@ -8,7 +8,7 @@ from typing import Annotated, Literal
 from fastapi import APIRouter, Depends, Path, Query, Request
 from pydantic import BaseModel, Field
 
-from server.alarms import service
+from server.alarms import incident_actions, service
 from server.errors import AppError, Forbidden, NotFound
 from server.security import Principal, require_role
 from server.services import access
@@ -20,6 +20,8 @@ MAX_ID = 2**63 - 1
 Id = Annotated[int, Field(ge=1, le=MAX_ID)]
 IdQ = Annotated[int | None, Query(ge=1, le=MAX_ID)]
 AlarmId = Annotated[int, Path(ge=1, le=MAX_ID, description="id of the alarm (its state row)")]
+MachineId = Annotated[int, Path(ge=1, le=MAX_ID,
+                                description="id of the machine (asset): a machine has one open incident")]
 
 
 def call(fn, *args, **kwargs):
@@ -73,6 +75,15 @@ def list_alarms(request: Request, view: Literal["active", "acknowledged", "shelv
     return {"ok": True, "view": view, "alarms": alarms}
 
 
+@router.get("/incidents", summary="Open alarms grouped per machine into incidents, worst machine first")
+def list_incidents(request: Request, view: Literal["active", "acknowledged", "shelved", "all"] = "active",
+                   site_id: IdQ = None, area_id: IdQ = None, asset_id: IdQ = None,
+                   level: Level | None = None, principal: Principal = Depends(require_role("viewer"))):
+    incidents = call(incident_actions.list_incidents, request.app.state.db, view=view,
+                     site_id=_site_scope(principal, site_id), area_id=area_id, asset_id=asset_id, level=level)
+    return {"ok": True, "view": view, "incidents": incidents}
+
+
 @router.get("/history", summary="The audit trail of transitions, acknowledgements and shelving")
 def history(request: Request, site_id: IdQ = None, area_id: IdQ = None,
             asset_id: IdQ = None, point_id: IdQ = None, level: Level | None = None,
@@ -118,6 +129,33 @@ def outbox(request: Request, status: Literal["pending", "sending", "sent", "fail
         raise Forbidden("the outbox lists the emails of every site; a key limited to one site cannot read "
                         "it (use an admin login or an unlimited admin key)", field="site_id")
     return {"ok": True, "emails": call(service.outbox_list, request.app.state.db, status=status, limit=limit)}
+
+
+@router.post("/incidents/{asset_id}/acknowledge",
+             summary="Acknowledge every open alarm of a machine with one comment (engineer)")
+def acknowledge_incident(request: Request, asset_id: MachineId, body: AckIn,
+                         principal: Principal = Depends(require_role("engineer"))):
+    _check_site(request, principal, "asset", asset_id, "asset_id")
+    return {"ok": True, **call(incident_actions.acknowledge_incident, request.app.state.db, asset_id,
+                               actor=principal.name, comment=body.comment)}
+
+
+@router.post("/incidents/{asset_id}/shelve",
+             summary="Shelve every open alarm of a machine until a time, with a reason (engineer)")
+def shelve_incident(request: Request, asset_id: MachineId, body: ShelveIn,
+                    principal: Principal = Depends(require_role("engineer"))):
+    _check_site(request, principal, "asset", asset_id, "asset_id")
+    return {"ok": True, **call(incident_actions.shelve_incident, request.app.state.db, asset_id,
+                               actor=principal.name, until=body.until, reason=body.reason)}
+
+
+@router.post("/incidents/{asset_id}/unshelve",
+             summary="End the shelving of a machine's alarms now (engineer)")
+def unshelve_incident(request: Request, asset_id: MachineId,
+                      principal: Principal = Depends(require_role("engineer"))):
+    _check_site(request, principal, "asset", asset_id, "asset_id")
+    return {"ok": True, **call(incident_actions.unshelve_incident, request.app.state.db, asset_id,
+                               actor=principal.name)}
 
 
 @router.post("/{alarm_id}/acknowledge", summary="Acknowledge an open alarm with a comment (engineer)")

@@ -11,7 +11,7 @@ from support.signals import tone_record
 from server import worker
 from server.alarms import service
 from server.alarms.mailer import run_mailer_once
-from server.alarms.tables import AlarmEvent, OutboxMessage
+from server.alarms.tables import AlarmEvent, AlarmIncident, OutboxMessage
 from server.services.ingest import ingest_record
 
 T0 = dt.datetime(2026, 11, 2, 6, 0, tzinfo=dt.UTC)
@@ -32,36 +32,45 @@ def test_simulated_onset_alerts_emails_survives_outage_and_is_acknowledged(
     db = migrated_db
     service.create_subscription(db, {"email": "planner@example.test", "scope": "asset",
                                      "scope_id": plant.asset_ids["pump"]}, actor="admin1")
-    sent_per_record = {}
+    sent_per_record, stopped_at = {}, None
     for i, v in enumerate(ONSET_MM_S, start=1):
         x = tone_record(rng, amp_1x=0.4, amp_half=accel_peak_for(v), n=16384)
         ingest_record(db, point_id=plant.point_id, samples=x, fs_hz=2560.0, units="m/s2",
                       measured_at=T0 + dt.timedelta(hours=6 * i), origin="api", uploader="test")
-        if i == 7:
-            smtp.stop()  # the SMTP server is down when danger is raised
         assert worker.run_once(db, hw_settings, "w1")
+        with db.read() as s:
+            first_danger = stopped_at is None and s.scalar(select(AlarmEvent.id).where(
+                AlarmEvent.to_level == "danger").limit(1)) is not None
+        if first_danger:
+            smtp.stop()  # the SMTP server is down when the machine's incident reaches danger
+            stopped_at = i
         sent_per_record[i] = run_mailer_once(db, mail_settings)
     with db.read() as s:
         half = [(e.record_id, e.from_level, e.to_level) for e in s.scalars(
             select(AlarmEvent).where(AlarmEvent.metric == "half_order_velocity").order_by(AlarmEvent.id))]
-        records_with_changes = sorted({e.record_id for e in s.scalars(
-            select(AlarmEvent).where(AlarmEvent.kind == "transition"))})
         pending = s.scalars(select(OutboxMessage).where(OutboxMessage.status == "pending")).all()
     assert [(lv_from, lv_to) for _r, lv_from, lv_to in half] == [("normal", "alert"), ("alert", "danger")]
     alert_record, danger_record = half[0][0], half[1][0]
     assert (alert_record, danger_record) == (4, 7)  # the 4th and the 7th record (ids follow the order)
-    assert sent_per_record[7] == 0 and len(pending) >= 1  # waiting in the outbox
+    assert stopped_at is not None and sent_per_record[stopped_at] == 0 and len(pending) == 1  # waiting
     smtp.start()
     later = dt.datetime.now(dt.UTC) + dt.timedelta(seconds=5)  # past the backoff
     run_mailer_once(db, mail_settings, now=later)
-    # One email per record that changed a level, none twice.
-    subjects = [m["msg"]["Subject"] for m in smtp.messages]
+    # One email per escalation of the machine's incident (alert, then danger), none twice, none for the
+    # rules that joined it at a level already announced.
+    subjects = [str(m["msg"]["Subject"]).strip() for m in smtp.messages]
     ids = {m["msg"]["Message-ID"] for m in smtp.messages}
-    assert len(subjects) == len(records_with_changes) == len(ids)
+    words = [s.split(":")[0].removeprefix("[halfwatch] ") for s in subjects]
+    assert words in (["ALERT", "DANGER"], ["DANGER"]) and len(ids) == len(subjects)  # each level once
+    with db.read() as s:
+        [incident] = s.scalars(select(AlarmIncident)).all()
+    assert incident.emails == len(subjects) and incident.announced_level == "danger"
+    assert incident.cleared_at is None
     bodies = [m["msg"].get_body(preferencelist=("plain",)).get_content() for m in smtp.messages]
-    assert any("half-order velocity r.m.s.: normal -> ALERT" in b for b in bodies)
-    danger_mail = [b for b in bodies if "half-order velocity r.m.s.: ALERT -> DANGER" in b]
-    assert len(danger_mail) == 1 and "half-order component at 12.4 Hz (0.50X)" in danger_mail[0]
+    danger_mail = bodies[-1]
+    assert "half-order component at 12.4 Hz (0.50X)" in danger_mail  # 24.75 Hz / 2
+    assert "Rules of this machine now:" in danger_mail and "DANGER " in danger_mail
+    assert "lockout/tagout" in danger_mail  # the cautions stay on every email
     # The engineer acknowledges the danger alarm through the API.
     engineer = users.login("engineer")
     open_ = engineer.get("/api/v1/alarms", params={"asset_id": plant.asset_ids["pump"], "level": "danger"})

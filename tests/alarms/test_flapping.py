@@ -14,7 +14,7 @@ from sqlalchemy import select, text
 
 from server.alarms import checks, service
 from server.alarms.engine import Transition
-from server.alarms.evaluate import _announced, _dwelling
+from server.alarms.evaluate import _dwelling
 from server.alarms.tables import AlarmEvent, OutboxMessage
 
 SLOW = ("trend_db_per_day", "time_to_limit_days")
@@ -112,6 +112,5 @@ def test_slow_rules_dwell_and_drops_that_do_not_clear_are_not_mailed():
     assert not _dwelling("time_to_limit_days", up, since, 1000.0 + 60.0)  # escalations never wait
     assert not _dwelling("half_order_velocity", drop, since, 1000.0)  # fast rules do not dwell
     assert not _dwelling("trend_db_per_day", drop, since, 1000.0)  # no record of when: no hold
-    events = [AlarmEvent(kind="transition", from_level=t.from_level, to_level=t.to_level) for t in
-              (drop, clear, up)]
-    assert [_announced(e) for e in events] == [False, True, True]
+    assert _dwelling("threshold_margin", drop, {"threshold_margin": 1000.0}, 1000.0 + 1.9 * day)  # margin too
+    assert not _dwelling("threshold_margin", clear, {"threshold_margin": 1000.0}, 1000.0 + 2.1 * day)

@@ -34,11 +34,18 @@ def test_margin_rule_follows_a_stored_fit(feeder, plant, migrated_db):
             "status": "fit", "f0_hz": 12.375, "zeta": 0.01, "k_per_unit": 0.1,
             "unstable_band_hz": [24.6, 24.9]}
     # a_c at exact tuning = 0.4; the helper's 1X amplitude is one_x_v x 0.1 -> margins 0.5, 0.15, 0.025.
+    # The margin rule needs 3 of 4 (like the slow trend rules): alert at the 4th, danger at the 7th.
     got = []
-    for one_x in (2.0, 3.4, 3.4, 3.9, 3.9):
+    for i, one_x in enumerate((2.0, 3.4, 3.4, 3.4, 3.9, 3.9, 3.9), start=1):
         events = feeder.feed(plant.point_id, make_result(half_v=0.2, f1x=24.75, one_x_v=one_x))
-        got += [(e[3], e[4]) for e in events if e[2] == "threshold_margin"]
-    assert got == [("normal", "alert"), ("alert", "danger")]
+        got += [(i, e[3], e[4]) for e in events if e[2] == "threshold_margin"]
+    assert got == [(4, "normal", "alert"), (7, "alert", "danger")]
+    # Scatter back across the danger level (0.15, 0.025, ...) does not drop it: 3 of 4 beyond 7.5 % are
+    # needed, and the level is held for two days (readings every 6 h here).
+    for one_x in (3.4, 3.9, 3.4, 3.4, 3.4, 3.4):
+        events = feeder.feed(plant.point_id, make_result(half_v=0.2, f1x=24.75, one_x_v=one_x))
+        assert [e for e in events if e[2] == "threshold_margin"] == []
+    assert _margin_state(migrated_db, plant.point_id).level == "danger"
     assert _margin_state(migrated_db, plant.point_id).inactive_reason is None
 
 

@@ -79,7 +79,7 @@ def test_detailed_forecast_and_unstable_band_in_the_email():
     event["details"]["window"] = {"unstable_band_hz": [48.91, 51.07]}
     _s, text, _h = alarm_email([event], base_url="https://cm.example.test")
     assert "about 9 days to the danger level (2.8 mm/s r.m.s.) (90 % interval 6 to 16 days)" in text
-    assert "18% below the instability threshold; unstable forcing band 48.91 to 51.07 Hz" in text
+    assert "18 % below the instability threshold; unstable forcing band 48.91 to 51.07 Hz" in text
 
 
 def test_digest_table_orders_danger_first():
@@ -89,10 +89,11 @@ def test_digest_table_orders_danger_first():
              "since": "2026-11-02 13:00 UTC", "status": "acknowledged by engineer1"}]
     subject, text, html = digest_email(rows, scope_name="site Works", local_date="2026-11-03",
                                        base_url="https://cm.example.test", changes_24h=3)
-    assert subject.endswith("2 open alarm(s), 1 danger")
-    table = [ln for ln in text.splitlines() if ln.startswith(("DANGER", "ALERT"))]
-    assert table[0].startswith("DANGER") and table[1].startswith("ALERT") and "acknowledged" in table[1]
-    assert "transitions in the last 24 h: 3" in text and html.count("<tr>") == 3
+    assert subject.endswith("2 machine(s) in alarm, 1 in danger (2 rule(s))")
+    table = [ln.strip() for ln in text.splitlines() if ln.strip().startswith(("DANGER", "ALERT"))]
+    assert table == [table[0], table[1], table[2], table[3]] and table[0] == "DANGER: P1 (1 rule(s))"
+    assert table[2] == "ALERT: P2 (1 rule(s))" and "acknowledged" in table[3]
+    assert "transitions in the last 24 h: 3" in text and html.count("<tr>") == 4  # a header and a row each
 
 
 values = st.lists(st.floats(min_value=0.0, max_value=6.0, allow_nan=False), min_size=1, max_size=60)

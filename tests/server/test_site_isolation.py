@@ -241,6 +241,7 @@ SITE_RULES: dict[tuple[str, str], tuple] = {
     ("GET", "/api/v1/dashboard/sites"): (ROWS, "Riverside works", None),
     ("GET", "/api/v1/alarms"): (ROWS, ("point_id", "point"), q(view="all")),
     ("GET", "/api/v1/alarms/history"): (ROWS, ("point_id", "point"), None),
+    ("GET", "/api/v1/alarms/incidents"): (ROWS, ("point_id", "point"), q(view="all")),
     ("GET", "/api/v1/alarms/history.csv"): (ROWS, ("point_id", "point"), None),
     ("GET", "/api/v1/alarms/data-quality"): (ROWS, ("point_id", "point"), None),
     ("GET", "/api/v1/alarms/subscriptions"): (ROWS, "s1planner@example.test", None),
@@ -286,6 +287,11 @@ SITE_RULES: dict[tuple[str, str], tuple] = {
     ("POST", "/api/v1/alarms/{alarm_id}/shelve"): (REFUSE, body(lambda w, side: {
         "until": (dt.datetime.now(dt.UTC) + dt.timedelta(days=1)).isoformat(), "reason": "overhaul"})),
     ("POST", "/api/v1/alarms/{alarm_id}/unshelve"): (REFUSE, None),
+    ("POST", "/api/v1/alarms/incidents/{asset_id}/acknowledge"): (REFUSE, body(lambda w, side: {
+        "comment": "on it"})),
+    ("POST", "/api/v1/alarms/incidents/{asset_id}/shelve"): (REFUSE, body(lambda w, side: {
+        "until": (dt.datetime.now(dt.UTC) + dt.timedelta(days=1)).isoformat(), "reason": "overhaul"})),
+    ("POST", "/api/v1/alarms/incidents/{asset_id}/unshelve"): (REFUSE, None),
     ("POST", "/api/v1/alarms/subscriptions"): (
         REFUSE, body(lambda w, side: {"email": "ops@example.test", "scope": "site", "scope_id": side.site}),
         body(lambda w, side: {"email": "ops@example.test", "scope": "asset", "scope_id": side.asset}),

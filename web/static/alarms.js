@@ -1,5 +1,6 @@
-/* Alarms: active / acknowledged / shelved / all open / history, filtered by site, machine and level.
-   Engineers acknowledge (with a comment) or shelve (until a time, with a reason); others only read. */
+/* Alarms: one incident per machine (worst first) with its rules beneath; active / acknowledged / shelved /
+   all open / history, filtered by site, machine and level. Engineers acknowledge (with a comment) or shelve
+   (until a time, with a reason) a whole incident or one rule, in one compact dialog; others only read. */
 "use strict";
 (function () {
   const { el, $ } = HW;
@@ -15,47 +16,70 @@
     return q;
   }
 
-  function ackForm(a) {
-    const id = `ack-${a.id}`;
-    return el("form", { class: "inline-form ack-form", "data-alarm-id": a.id, onsubmit: async (ev) => {
-      ev.preventDefault();
-      try {
-        await HW.api(`/api/v1/alarms/${a.id}/acknowledge`, { method: "POST",
-          json: { comment: ev.target.comment.value } });
-        done(`Alarm ${a.id} acknowledged.`);
-      } catch (e) { HW.showError("#alarms-error", e); }
-    } }, el("div", {}, el("label", { for: id }, "Comment"), el("input", { id, name: "comment", required: true,
-      placeholder: "what is being done" })),
-    el("button", { type: "submit", class: "primary" }, "Acknowledge"));
+  /* ---- the compact dialog: one for every action, on an incident (a machine) or on one rule ---- */
+  let pending = null;
+  const WORD = { acknowledge: "Acknowledge", shelve: "Shelve", unshelve: "Unshelve" };
+  const LEVEL = { alert: "ALERT", danger: "DANGER" };
+  function ruleName(r) { return `${r.asset} / ${r.point} — ${r.rule} (${LEVEL[r.level] || r.level})`; }
+  function machineName(inc) {
+    const n = inc.rules.length;
+    return `${inc.asset} (${LEVEL[inc.level] || inc.level}, ${n} rule${n === 1 ? "" : "s"})`;
   }
 
-  function shelveForm(a) {
-    const id = `shelve-${a.id}`;
-    const tz = zoneOf(a.site_id);
-    const later = HW.wall(new Date(Date.now() + 7 * 86400e3).toISOString(), tz).slice(0, 16).replace(" ", "T");
-    return el("form", { class: "inline-form shelve-form", onsubmit: async (ev) => {
-      ev.preventDefault();
-      try {
-        await HW.api(`/api/v1/alarms/${a.id}/shelve`, { method: "POST",
-          json: { until: HW.fromWall(ev.target.until.value, tz), reason: ev.target.reason.value } });
-        done(`Alarm ${a.id} shelved.`);
-      } catch (e) { HW.showError("#alarms-error", e); }
-    } }, el("div", {}, el("label", { for: id + "-until" }, `Until (${tz})`), el("input", { id: id + "-until",
-      name: "until", type: "datetime-local", value: later, required: true })),
-    el("div", {}, el("label", { for: id }, "Reason"), el("input", { id, name: "reason", required: true,
-      placeholder: "why it may wait" })),
-    el("button", { type: "submit", class: "warn" }, "Shelve"));
+  function openDialog(action, target) {
+    const tz = zoneOf(target.site_id);
+    pending = { action, target, tz };
+    $("#dlg-title").textContent = `${WORD[action]} ${target.rules ? "every open alarm of a machine" : "one alarm"}`;
+    $("#dlg-what").textContent = target.rules ? machineName(target) : ruleName(target);
+    $("#dlg-comment-row").hidden = action !== "acknowledge";
+    $("#dlg-until-row").hidden = $("#dlg-reason-row").hidden = action !== "shelve";
+    $("#dlg-tz").textContent = tz;
+    $("#dlg-comment").value = $("#dlg-reason").value = "";
+    $("#dlg-until").value = HW.wall(new Date(Date.now() + 7 * 86400e3).toISOString(), tz).slice(0, 16);
+    $("#dlg-error").hidden = true;
+    $("#dlg-ok").textContent = WORD[action];
+    $("#alarm-dialog").showModal();
+    (action === "acknowledge" ? $("#dlg-comment") : action === "shelve" ? $("#dlg-until") : $("#dlg-ok")).focus();
   }
 
-  function unshelveButton(a) {
-    return el("button", { type: "button", onclick: async () => {
-      try { await HW.api(`/api/v1/alarms/${a.id}/unshelve`,
-        { method: "POST" }); done(`Alarm ${a.id} back from the shelf.`); }
-      catch (e) { HW.showError("#alarms-error", e); }
-    } }, "Unshelve");
+  async function confirmDialog(ev) {
+    ev.preventDefault();
+    const { action, target, tz } = pending;
+    const path = target.rules ? `/api/v1/alarms/incidents/${target.asset_id}/${action}`
+      : `/api/v1/alarms/${target.id}/${action}`;
+    let json;
+    if (action === "acknowledge") json = { comment: $("#dlg-comment").value };
+    if (action === "shelve") {
+      const until = $("#dlg-until").value.trim();
+      if (!/^\d{4}-\d{2}-\d{2} \d{2}:\d{2}$/.test(until)) {
+        HW.showError("#dlg-error", new HW.ApiError(0, "invalid", "until: give the end as YYYY-MM-DD HH:MM (24-hour)",
+          "until"));
+        return;
+      }
+      json = { until: HW.fromWall(until.replace(" ", "T"), tz), reason: $("#dlg-reason").value };
+    }
+    try {
+      await HW.api(path, { method: "POST", json });
+    } catch (e) { HW.showError("#dlg-error", e); return; }
+    $("#alarm-dialog").close();
+    const what = target.rules ? machineName(target) : ruleName(target);
+    const done_ = { acknowledge: "Acknowledged", shelve: "Shelved", unshelve: "Back from the shelf" }[action];
+    const until = action === "shelve" ? ` until ${$("#dlg-until").value} (${tz})` : "";
+    done(`${done_}: ${what}${until}.`);
   }
 
-  function done(msg) { const b = $("#alarms-done"); b.hidden = false; b.textContent = msg; $("#alarms-error").hidden = true; load(); }
+  function actionButtons(target, shelved, acknowledged) {
+    if (!HW.may("engineer")) return null;
+    const label = target.rules ? target.asset : ruleName(target);
+    const b = (action, cls) => el("button", { type: "button", class: `small ${cls || ""}`, "data-action": action,
+      "aria-label": `${WORD[action]}: ${label}`, onclick: () => openDialog(action, target) }, `${WORD[action]}…`);
+    return el("span", { class: "actions" }, !acknowledged && !shelved ? b("acknowledge", "primary") : null,
+      shelved ? b("unshelve") : b("shelve", "warn"));
+  }
+
+  function done(msg) {
+    const b = $("#alarms-done"); b.hidden = false; b.textContent = msg; $("#alarms-error").hidden = true; load();
+  }
 
   function state(a) {
     const tz = zoneOf(a.site_id);
@@ -64,21 +88,43 @@
     return "active";
   }
 
+  function ruleRow(r) {
+    return el("tr", { "data-alarm-id": r.id, class: `alarm-row lvl-${r.level}` },
+      el("td", {}, HW.levelBadge(r.level)), el("td", {}, r.point), el("td", { class: "rule" }, r.rule),
+      el("td", { class: "value" }, r.value_text || `${HW.num(r.value)} ${r.unit}`),
+      el("td", {}, HW.when(r.since, zoneOf(r.site_id))), el("td", { class: "alarm-state" }, state(r)),
+      el("td", {}, actionButtons(r, r.shelved, r.acknowledged),
+        r.record_id ? el("a", { href: `/records/${r.record_id}`, class: "small-link" }, "reading") : null));
+  }
+
+  function incidentCard(inc) {
+    const tz = zoneOf(inc.site_id);
+    const n = inc.rules.length;
+    const id = `incident-${inc.asset_id}`;
+    return el("article", { class: `card incident lvl-${inc.level}`, "data-asset-id": inc.asset_id,
+      "aria-labelledby": id },
+    el("header", { class: "incident-head" },
+      HW.levelBadge(inc.level),
+      el("h2", { id }, el("a", { href: `/assets/${inc.asset_id}` }, inc.asset)),
+      el("span", { class: "muted" }, `${inc.area} · ${n} rule${n === 1 ? "" : "s"} · opened ${HW.when(inc.opened_at, tz)}`
+        + ` · ${inc.state}`),
+      actionButtons(inc, inc.state === "shelved", inc.state !== "active")),
+    el("table", { class: "grid rules" },
+      el("thead", {}, el("tr", {}, ...["Level", "Point", "Rule", "Value", "Since", "State", "Actions"]
+        .map((h) => el("th", { scope: "col" }, h)))),
+      el("tbody", {}, ...inc.rules.map(ruleRow))));
+  }
+
   async function loadOpen() {
     const q = filters(); q.set("view", view);
-    const d = await HW.api(`/api/v1/alarms?${q}`);
-    const body = $("#alarm-table tbody");
-    body.replaceChildren(...d.alarms.map((a) => el("tr", { "data-alarm-id": a.id, class: `alarm-row lvl-${a.level}` },
-      el("td", {}, HW.levelBadge(a.level)), el("td", {}, el("a", { href: `/assets/${a.asset_id}?point=${a.point_id}` },
-        a.asset)),
-      el("td", {}, a.point), el("td", {}, a.rule), el("td", {}, `${HW.num(a.value)} ${a.unit}`),
-      el("td", {}, HW.when(a.since, zoneOf(a.site_id))), el("td", { class: "alarm-state" }, state(a)),
-      el("td", {}, HW.may("engineer") ? [a.shelved ? unshelveButton(a) : null,
-        !a.acknowledged && !a.shelved ? ackForm(a) : null, !a.shelved ? shelveForm(a) : null]
-        : el("span", { class: "muted" }, "engineers acknowledge"), a.record_id ? el("a",
-          { href: `/records/${a.record_id}` }, "reading") : null))));
-    if (!d.alarms.length) body.append(el("tr", {}, el("td", { colspan: 8 },
-      `No ${view === "all" ? "open" : view} alarm.`)));
+    const d = await HW.api(`/api/v1/alarms/incidents?${q}`);
+    const list = $("#incident-list");
+    list.replaceChildren(...d.incidents.map(incidentCard));
+    const danger = d.incidents.filter((i) => i.level === "danger").length;
+    $("#incident-summary").textContent = d.incidents.length
+      ? `${d.incidents.length} machine${d.incidents.length === 1 ? "" : "s"} with ${view === "all" ? "open" : view}`
+        + ` alarms, ${danger} in danger; worst first.`
+      : `No ${view === "all" ? "open" : view} alarm.`;
   }
 
   async function loadHistory() {
@@ -120,6 +166,10 @@
       load();
     });
     for (const id of ["#af-site", "#af-asset", "#af-level"]) $(id).addEventListener("change", load);
+    $("#dlg-form").addEventListener("submit", confirmDialog);
+    $("#dlg-cancel").addEventListener("click", () => $("#alarm-dialog").close());
+    const asked = new URLSearchParams(location.search).get("asset_id");  // the email's "alarms of this machine"
+    if (asked && [...$("#af-asset").options].some((o) => o.value === asked)) $("#af-asset").value = asked;
     load();
   }
   document.addEventListener("DOMContentLoaded", init);
