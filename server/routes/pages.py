@@ -30,7 +30,7 @@ CAUTION = ("Condition monitoring only, not a machine protection or trip system. 
 
 #: the menu: (path, label, lowest role that sees it)
 MENU = (("/", "Plant", "viewer"), ("/alarms", "Alarms", "viewer"), ("/routes", "Routes", "viewer"),
-        ("/settings", "Settings", "engineer"))
+        ("/settings", "Settings", "viewer"))
 
 
 def plotly_js_path() -> Path:
@@ -161,7 +161,7 @@ async def routes_page(request: Request, principal: Principal | None = Depends(pa
 
 @router.get("/settings", response_class=HTMLResponse)
 async def settings_page(request: Request, principal: Principal | None = Depends(page_principal)):
-    return _page(request, principal, "settings", need="engineer")
+    return _page(request, principal, "settings", need="viewer")  # viewers: their own email alerts
 
 
 @router.get("/static/plotly.min.js")

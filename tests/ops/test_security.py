@@ -40,7 +40,7 @@ POLICY = {
     ("GET", "/records/{record_id}"): "viewer",
     ("GET", "/points/{point_id}/window"): "viewer",
     ("GET", "/routes"): "viewer",
-    ("GET", "/settings"): "engineer",  # the configuration page
+    ("GET", "/settings"): "viewer",  # configuration for engineers; a viewer's own email alerts
     # reading
     ("GET", "/api/v1/me"): "viewer",
     ("GET", "/api/v1/tree"): "viewer",

@@ -5,8 +5,32 @@
 (function () {
   const { el, $ } = HW;
   let tz = HW.defaultTz();
-  const STATUS = { ok: "✓ up to date", due: "◷ due", overdue: "⏰ overdue" };
-  let pointInfo = {};
+  let pointInfo = {}, assetInfo = {}, now = null;
+
+  /* The reading schedule of a stop in words, with how long it is overdue or how long until it is due. */
+  function schedule(st) {
+    const span = (ms) => {
+      const h = Math.abs(ms) / 3600e3;
+      return h < 48 ? `${Math.round(h)} h` : `${Math.floor(h / 24)} days`;
+    };
+    if (!st.due_at) return { text: "no reading yet: due now", cls: "due" };
+    const late = now - new Date(st.due_at);
+    if (st.status === "overdue") {
+      return { text: `overdue by ${span(late)} (was due ${HW.when(st.due_at, tz)})`, cls: "overdue" };
+    }
+    if (st.status === "due") return { text: `due now (since ${span(late)})`, cls: "due" };
+    return { text: `on schedule: next reading due in ${span(late)}`, cls: "ok" };
+  }
+
+  /* The condition of the stop's machine (worst alarm level) and of the point's latest reading (ISO zone). */
+  function condition(st) {
+    const p = pointInfo[st.point_id] || {}, a = assetInfo[p.asset_id] || {};
+    const level = (a.alarms || {}).level || "normal";
+    const zone = p.latest ? p.latest.zone : null;
+    return el("span", { class: "condition", "data-level": level, "data-zone": zone || "" },
+      "machine ", HW.levelBadge(level), " · last reading ", zone ? HW.zoneBadge(zone) : "no zone");
+  }
+  const LEVEL_OF_ZONE = { A: "normal", B: "normal", C: "alert", D: "danger" };
 
   function resultBox(box, detail) {
     const r = detail.result;
@@ -19,7 +43,11 @@
       return j.state !== "failed";
     }
     const s = r.subharmonic || {}, o = r.overall || {};
-    box.append(el("div", { class: "notice result-ready", "data-record-id": rec.id },
+    // the box takes the colour of what the reading says, never a green box around zone D
+    const worst = [LEVEL_OF_ZONE[o.zone] || "normal", s.detected ? "alert" : "normal"]
+      .sort((x, y) => ["normal", "alert", "danger"].indexOf(y) - ["normal", "alert", "danger"].indexOf(x))[0];
+    box.append(el("div", { class: `result-ready cond cond-${worst}`, "data-record-id": rec.id,
+      "data-condition": worst },
       el("strong", {},
         s.detected ? `${s.class} line at ${HW.num(s.frequency_hz, 4)} Hz (${HW.num(s.order, 3)}X), ${HW.num(s.velocity_rms_mm_s)} mm/s r.m.s.`
         : "No subharmonic line found"),
@@ -67,12 +95,19 @@
       type: "file", accept: ".wav,.csv,.uff,.unv" })),
     el("div", {}, el("label", { for: `${base}-units` }, "Units"), el("select", { id: `${base}-units`, name: "units" },
       ["m/s2", "g", "mm/s2"].map((u) => el("option", { value: u, selected: u === (p.units || "m/s2") }, u)))),
-    el("div", {}, el("label", { for: `${base}-speed` }, "Speed (Hz)"), el("input", { id: `${base}-speed`,
-      name: "speed", type: "number", step: "0.01", min: "0", inputmode: "decimal", placeholder: "rev/s" })),
+    el("div", {}, el("label", { for: `${base}-speed` }, "Shaft speed (Hz)"), el("input", { id: `${base}-speed`,
+      name: "speed", type: "number", step: "0.01", min: "0", inputmode: "decimal", placeholder: "rev/s",
+      "aria-describedby": `${base}-speed-help` }),
+    el("p", { class: "help", id: `${base}-speed-help` }, speedHelp(p))),
     el("div", {}, el("label", { for: `${base}-when` }, `Measured (${zone})`), el("input", { id: `${base}-when`,
       name: "measured", type: "datetime-local", value: now })),
     el("button", { type: "submit", class: "primary" }, "Upload reading"));
     return [form, box];
+  }
+
+  function speedHelp(p) {
+    const a = assetInfo[p.asset_id];
+    return a ? `${HW.speedMeaning(a)}. Enter the shaft speed in rev/s (r/min ÷ 60).` : "shaft speed in rev/s";
   }
 
   function zipForm(route) {
@@ -105,25 +140,31 @@
 
   async function load() {
     let d, tree, sites;
-    try { [d, tree, sites] = await Promise.all([HW.api("/api/v1/routes"), HW.api("/api/v1/tree"),
+    try { [d, tree, sites] = await Promise.all([HW.api("/api/v1/routes"), HW.api("/api/v1/dashboard/overview"),
       HW.api("/api/v1/dashboard/sites")]); }
     catch (e) { HW.showError("#routes-error", e); return; }
+    now = new Date(d.now || tree.now || Date.now());
     const zones = Object.fromEntries(sites.sites.map((s) => [s.id, s.timezone]));
-    for (const s of tree.sites) for (const ar of s.areas) for (const a of ar.assets) for (const p of a.points) pointInfo[p.id] = Object.assign({ asset_id: a.id }, p);
+    for (const s of tree.sites) for (const ar of s.areas) for (const a of ar.assets) {
+      assetInfo[a.id] = a;
+      for (const p of a.points) pointInfo[p.id] = Object.assign({ asset_id: a.id }, p);
+    }
     $("#routes-tz").textContent = "times in each route's site zone";
     const root = $("#routes");
     root.replaceChildren(...d.routes.map((r) => (tz = zones[r.site_id] || HW.defaultTz()) && el("section",
       { class: "card route", id: `route-${r.id}`, "data-timezone": tz },
       el("h2", {}, r.name, el("span", { class: "muted" },
-        ` · ${r.counts.overdue} overdue, ${r.counts.due} due, ${r.counts.ok} up to date · times in ${tz}`)),
+        ` · ${r.counts.overdue} overdue, ${r.counts.due} due, ${r.counts.ok} on schedule · times in ${tz}`)),
       HW.may("technician") ? zipForm(r) : null,
       r.stops.map((st) => el("div", { class: `stop due-${st.status}`, "data-point-id": st.point_id },
         el("div", { class: "pos", "aria-label": `stop ${st.position + 1}` }, st.position + 1),
-        el("div", {}, el("h3", {}, el("span", { class: `due due-${st.status}` }, STATUS[st.status] || st.status), " · ",
-          el("a", { href: `/assets/${(pointInfo[st.point_id] || {}).asset_id}?point=${st.point_id}` },
-            `${st.asset} · ${st.point}`)),
-          el("p", { class: "muted" },
-            `every ${HW.num(st.due_interval_h / 24, 3)} days · last reading ${HW.when(st.last_measured_at, tz)} · due ${HW.when(st.due_at, tz)}`),
+        el("div", {}, el("h3", {}, el("a", { href: `/assets/${(pointInfo[st.point_id] || {}).asset_id}`
+            + `?point=${st.point_id}` }, `${st.asset} · ${st.point}`)),
+          el("p", { class: "stop-state" }, condition(st), " · ",
+            el("span", { class: `due due-${schedule(st).cls}`, "data-status": st.status }, HW.icon(st.status ===
+              "ok" ? "normal" : "clock"), " ", schedule(st).text)),
+          el("p", { class: "muted" }, `every ${HW.num(st.due_interval_h / 24, 3)} days · last reading `
+            + `${HW.when(st.last_measured_at, tz)} · due ${HW.when(st.due_at, tz)}`),
           HW.may("technician") ? stopForm(st) : null))))));
     if (!d.routes.length) root.append(el("p", { class: "muted" }, "No route is defined yet."));
     document.body.dataset.ready = "1";
