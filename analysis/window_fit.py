@@ -35,9 +35,10 @@ Z95 = 1.959963984540054  # scipy.stats.norm.ppf(0.975)
 GROWTH_FLOOR_PER_S = 0.01
 CLUSTER_S = 86400.0  # readings of one day share a cluster in the robust covariance
 SPEED_GAP = 0.01  # speeds further apart than 1 % of the median count as separate speeds
-#: fewer readings than this with the line present (or absent) and the 95 % intervals under-cover: about 0.8
-#: at 25 present of 300 on simulated histories, 0.95-1.0 from 50 of 600 up (bench/window_coverage.py)
-MIN_EACH_LABEL = 40
+#: fewer readings than this with the line present (or absent) and the 95 % intervals under-cover on
+#: simulated histories (bench/window_coverage.py): about 0.8 at 25 present of 300 (labels and growth), 0.89
+#: at 50 of 600 from labels alone; 0.93-0.95 from about 85 of 1000 up
+MIN_EACH_LABEL = 80
 
 
 @dataclass(frozen=True)

@@ -92,9 +92,9 @@ def test_says_when_the_data_do_not_constrain_the_fit():
 
 
 def test_cli_window(tmp_path, capsys):
-    h = simulate_history(600, seed=8, **TRUTH)
+    h = simulate_history(1000, seed=8, **TRUTH)
     rows = ["time,speed_hz,amp_1x,amp_sub,present,growth_rate_per_s"]
-    for i in range(600):
+    for i in range(1000):
         g = "" if np.isnan(h["growth_rate_per_s"][i]) else f"{h['growth_rate_per_s'][i]:.5g}"
         rows.append(
             f"{h['time_days'][i] * 86400:.0f},{h['speed_hz'][i]:.5f},{h['amp_1x'][i]:.6g},"

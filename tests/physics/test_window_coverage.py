@@ -52,10 +52,11 @@ def test_labels_alone_cover_at_the_nominal_rate():
 
 
 def test_few_present_readings_make_the_fit_indicative():
-    # 300 readings hold about 25 with the line present; there the intervals covered about 0.8 of the time
-    # (bench/window_coverage.py), so the fit must not call itself constrained
-    h = simulate_history(300, seed=44_000, **TRUTH)
-    fit = fit_operating_window(h["speed_hz"], h["amp_1x"], h["present"],
-                               growth_rate_per_s=h["growth_rate_per_s"], today_speed_hz=25.0,
-                               today_amp_1x=0.25)
-    assert fit.n_present < 40 and fit.status == "weakly_constrained" and "indicative" in fit.message
+    # 300 readings hold about 25 with the line present, 600 about 50; there the intervals covered about 0.8
+    # and 0.89 of the time (bench/window_coverage.py), so the fit must not call itself constrained
+    for n in (300, 600):
+        h = simulate_history(n, seed=44_000, **TRUTH)
+        fit = fit_operating_window(h["speed_hz"], h["amp_1x"], h["present"], today_speed_hz=25.0,
+                                   today_amp_1x=0.25)
+        assert fit.n_present < 80 and fit.status == "weakly_constrained"
+        assert "indicative" in fit.message or "flat" in fit.message
