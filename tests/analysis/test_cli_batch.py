@@ -156,14 +156,16 @@ def _tach_wav(path, drop_pulse=False):
     return path
 
 
-def test_tach_channel_tracks_orders(tmp_path):
-    out = _run(_tach_wav(tmp_path / "runup.wav"), "--tach-channel", 2, "--json")
+def test_tach_channel_tracks_orders(tmp_path, inproc):
+    out = inproc(_tach_wav(tmp_path / "runup.wav"), "--tach-channel", 2, "--json")
     assert out.returncode == 0, out.stderr
     d = json.loads(out.stdout)
     assert d["forcing"]["tracking"] == "tach"
     assert d["forcing"]["frequency_hz"] == pytest.approx(30.0, rel=2e-3)  # mean speed of the linear ramp
     # computed order tracking (Fyfe & Munck 1997, MSSP 11(2)): the locked line is a sharp 0.5-order line
     assert d["subharmonic"]["detected"] and d["subharmonic"]["order"] == pytest.approx(0.5, abs=2e-3)
+    text = inproc(tmp_path / "runup.wav", "--tach-channel", 2).stdout
+    assert "order-tracked from tachometer pulses" in text and "speed moved 28." in text
 
 
 def test_bad_tach_exits_2_with_the_reason(tmp_path, inproc):
