@@ -29,6 +29,8 @@ _threshold_amp = threshold_amplitude  # the name the simulator imports
 
 #: an edge of the band counts as seen when readings lie within this share of its speed on both sides
 SUPPORT_FRAC = 0.02
+#: a skipped-speed range wider than this share of its middle speed is not proposed (house choice)
+MAX_SKIP_SHARE = 0.3
 CAUTION = ("Speed changes follow the machine manufacturer's limits and the site's rules and permits. "
            "This is condition monitoring, not a protection or trip system.")
 _DRAWS = 4000
@@ -241,6 +243,10 @@ def _skip(a_ci, b_ci, margin: float, forcing_per_rev: float) -> dict:
     if a_ci is None or b_ci is None:
         return {}
     lo, hi = a_ci[0] * (1.0 - margin), b_ci[1] * (1.0 + margin)
+    if lo <= 0 or hi - lo > MAX_SKIP_SHARE * 0.5 * (lo + hi):
+        why = (f"No skipped-speed range is proposed: the 95 % interval of the band ({_hz(lo)} to {_hz(hi)} Hz) "
+               "is too wide to program; readings at more speeds would narrow it.")
+        return {"skip_text": why}
     rpm = 60.0 / forcing_per_rev
     one_x = "" if forcing_per_rev == 1 else f"; 1X {_hz(lo)} to {_hz(hi)} Hz"
     text = (f"On a variable-speed drive, program a skipped (avoided) speed range from "

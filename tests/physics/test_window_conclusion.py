@@ -145,3 +145,9 @@ def test_without_a_covariance_no_interval_and_no_skip_range_are_claimed():
     assert c.band_low_ci95_hz is None and c.band_high_ci95_hz is None and c.skip_hz is None
     assert "the fit states no interval for the edges" in c.text
     assert c.skip_text.startswith("No skipped-speed range is proposed")
+
+
+def test_no_skip_range_from_an_interval_too_wide_to_program():
+    # f0 uncertain by 3 Hz (sd): the band's 95 % interval spans far more than 30 % of speed
+    c = conclusion(_fit([[9.0, 0, 0], [0, 0, 0], [0, 0, 0]]), AMP, 25.0, np.linspace(23, 27, 81))
+    assert c.skip_hz is None and "too wide to program" in c.skip_text
