@@ -244,8 +244,8 @@ def _skip(a_ci, b_ci, margin: float, forcing_per_rev: float) -> dict:
         return {}
     lo, hi = a_ci[0] * (1.0 - margin), b_ci[1] * (1.0 + margin)
     if lo <= 0 or hi - lo > MAX_SKIP_SHARE * 0.5 * (lo + hi):
-        why = (f"No skipped-speed range is proposed: the 95 % interval of the band ({_hz(lo)} to {_hz(hi)} Hz) "
-               "is too wide to program; readings at more speeds would narrow it.")
+        why = (f"No skipped-speed range is proposed: the 95 % interval of the band ({_hz(lo)} to "
+               f"{_hz(hi)} Hz) is too wide to program; readings at more speeds would narrow it.")
         return {"skip_text": why}
     rpm = 60.0 / forcing_per_rev
     one_x = "" if forcing_per_rev == 1 else f"; 1X {_hz(lo)} to {_hz(hi)} Hz"
