@@ -22,6 +22,7 @@ from scipy import signal
 from analysis import analyze_record
 from analysis.orders import TRACK_BINS, resample_to_angle, shaft_phase_from_signal
 from analysis.result_compat import record_analysis_from_dict
+from analysis.simulate import simulate
 from analysis.spectrum import calibrated_spectrum, grandke, power
 
 FS, T = 5120.0, 12.8
@@ -178,3 +179,30 @@ def test_results_made_before_tracking_read_back_as_untracked():
         del d["forcing"][key]
     back = record_analysis_from_dict(d)
     assert back.forcing.tracking == "none" and back.forcing.speed_max_hz is None
+
+
+@pytest.mark.parametrize(
+    ("kind", "params", "klass"),
+    [
+        ("speed-ramp", {"change_pct": 3.0}, "half-order"),
+        ("speed-ramp", {"change_pct": 8.0}, "half-order"),
+        ("speed-ramp", {"change_pct": 5.0, "profile": "step"}, "half-order"),
+        ("speed-ramp", {"change_pct": 5.0, "profile": "swing"}, "half-order"),
+        ("ramp-whirl", {"change_pct": 5.0}, "sub-synchronous"),
+        ("speed-ramp", {"change_pct": 5.0, "sub_amp_g": 0.0, "fixed_tone_hz": (13.1, 15.3)}, "none"),
+    ],
+)
+def test_simulated_ramp_families_are_found_and_classed(kind, params, klass):
+    # the simulator's truth (analysis.simulate speed-ramp / ramp-whirl, invented records): every present
+    # line found in its class at its order, no half-order call on the negatives with fixed tones
+    for seed in range(3):
+        rec = simulate(kind, seed=seed, fs_hz=4096.0, duration_s=8.0, forcing_hz=24.75, **params)
+        r = analyze_record(rec.samples, rec.fs_hz, units="g", nominal_hz=24.75)
+        assert r.forcing.tracking == "phase"
+        s, truth = r.subharmonic, rec.truth["subharmonic"]
+        if klass == "none":
+            assert not (s.detected and s.klass == "half-order")
+            continue
+        assert s.detected and s.klass == klass, (seed, s.klass)
+        assert s.order == pytest.approx(truth["order"], abs=0.003)
+        assert s.amplitude == pytest.approx(truth["amplitude"], rel=0.05)
