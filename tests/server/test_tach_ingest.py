@@ -22,7 +22,7 @@ from scipy.io import wavfile
 from sqlalchemy import func, select
 
 from server import worker
-from server.storage.tables import Record, Result
+from server.storage.tables import Record, Result, utcnow
 from server.tach.tables import RecordTach
 
 FS, T, F0, F1 = 2560.0, 8.0, 23.5, 26.0
@@ -180,3 +180,39 @@ def test_route_zip_rows_with_a_tach_channel(live_server, plant, plant_key_header
     with migrated_db.read() as s:
         assert s.get(RecordTach, rows[0]["record_id"]).n_pulses > 150
     assert _count(migrated_db, RecordTach) == 1
+
+
+def test_concurrent_ingests_store_each_tach_with_its_record(migrated_db, plant):
+    # concurrent sends share a transaction (group commit, server/services/ingest.py): each record keeps its
+    # own pulses; the different lengths tell them apart
+    import threading
+
+    from server.services.ingest import _group, ingest_record
+
+    db = migrated_db
+    db.group_commit_max = 8
+    accel, pulses, _ = _record()
+    start = threading.Barrier(12)
+    out: dict[int, object] = {}
+
+    def send(i: int):
+        start.wait(30)
+        out[i] = ingest_record(db, point_id=plant.point_id, samples=accel[: int(FS * (4 + 0.25 * i))],
+                               fs_hz=FS, units="m/s2", measured_at=utcnow(), client_ref=f"t{i}",
+                               tach_pulses_s=pulses[pulses < 4 + 0.25 * i - 1 / FS] if i % 2 else None)
+
+    threads = [threading.Thread(target=send, args=(i,)) for i in range(12)]
+    for t in threads:
+        t.start()
+    for t in threads:
+        t.join(60)
+    with db.read() as s:
+        for i, o in out.items():
+            row = s.get(RecordTach, o.record_id)
+            if i % 2:
+                want = pulses[pulses < 4 + 0.25 * i - 1 / FS]
+                assert np.array_equal(np.frombuffer(row.pulses, "<f8"), want)
+            else:
+                assert row is None
+    assert len(out) == 12 and _count(db, RecordTach) == 6
+    assert _group(db).batches < _group(db).items  # several records per transaction
