@@ -7,7 +7,13 @@ buckets, the conservative end of the 90 % interval, 3 of 4, 50 % hysteresis, 2-d
 escalations and clears). The "after (worker path)" column runs the real ``evaluate_result`` on a
 SQLite file, to show the replay is faithful.
 
+The margin rule alone: level changes and emails before (2 of 3, 10 %, no dwell, an email per rule
+escalation or clear) and after (3 of 4, 50 %, two-day dwell, the incident's emails: one per level not yet
+announced, one clear). ``--incidents before=A.db after=B.db`` counts, per machine of demo databases, the
+incidents (rebuilt from the audit trail the same way for both) and the alert emails about them.
+
     .venv/bin/python bench/alarm_flapping.py [--demo-db PATH_TO_halfwatch.db]
+    .venv/bin/python bench/alarm_flapping.py --incidents before=OLD/halfwatch.db after=NEW/halfwatch.db
 """
 
 from __future__ import annotations
@@ -135,6 +141,48 @@ def demo_points(path: str) -> dict[str, tuple[list[tuple[float, float]], float]]
     return out
 
 
+MARGIN_BEFORE = RuleSpec("threshold_margin", 0.20, 0.05, direction="below")  # 2 of 3, 10 %, no dwell
+
+
+def margin_sequences() -> dict[str, list[tuple[float, float]]]:
+    """Invented threshold margins, hourly: 3 days scattering around a level, then 4 days well clear."""
+    out = {}
+    hours = np.arange(7 * 24)
+    for name, centre, seed in (("margin near danger (5 %), +-3 % scatter", 0.06, 11),
+                               ("margin near alert (20 %), +-3 % scatter", 0.20, 12),
+                               ("margin beyond threshold (-4 %), +-3 % scatter", -0.04, 13)):
+        rng = np.random.default_rng(seed)
+        m = np.where(hours < 72, centre + 0.03 * rng.standard_normal(hours.size), 0.5)
+        out[name] = list(zip(T0 + hours * 3600.0, m, strict=True))
+    return out
+
+
+def replay_margin(readings, *, after: bool) -> tuple[int, int]:
+    """(level changes, emails per address) of the margin rule alone on one machine.
+
+    before: 2 of 3, 10 % band, no dwell, an email for each escalation and each clear of the rule;
+    after: the default rule (3 of 4, 50 %, two-day dwell) and the incident's emails (one per level not yet
+    announced, one when it clears)."""
+    spec = next(r for r in default_rules() if r.metric == "threshold_margin") if after else MARGIN_BEFORE
+    level, window, since, announced = "normal", [], {}, 0
+    changes = emails = 0
+    rank = {"normal": 0, "alert": 1, "danger": 2}
+    for ts, v in readings:
+        new, window, tr = step(spec, level, window, Reading(float(v), spec.alert, spec.danger))
+        if tr is None or (after and _dwelling("threshold_margin", tr, since, ts)):
+            continue
+        since["threshold_margin"], level = ts, new
+        changes += 1
+        if not after:
+            emails += int(tr.escalation or new == "normal")
+        elif new == "normal":
+            emails += int(announced > 0)
+            announced = 0
+        elif rank[new] > announced:
+            emails, announced = emails + 1, rank[new]
+    return changes, emails
+
+
 def demo_incident_emails(path: str) -> dict[str, tuple[int, int, int]]:
     """Per machine of a demo database (opened read-only): (incidents, alarm emails, addresses).
 
@@ -193,6 +241,11 @@ def main(argv=None) -> int:
     ap.add_argument("--incidents", nargs="+", metavar="LABEL=DB",
                     help="count emails per incident in demo databases, e.g. before=old.db after=new.db")
     args = ap.parse_args(argv)
+    print("margin rule (one machine)".ljust(48) + " | before: changes emails | after: changes emails")
+    for name, readings in margin_sequences().items():
+        (bc, be), (ac, ae) = replay_margin(readings, after=False), replay_margin(readings, after=True)
+        print(f"{name:<48} | {bc:>15} {be:>6} | {ac:>14} {ae:>6}")
+    print()
     if args.incidents:
         for item in args.incidents:
             label, _, path = item.partition("=")
