@@ -169,7 +169,9 @@ class Bridge:
                                 units=meta.units, measured_at=meta.measured_at, speed_hz=meta.speed_hz,
                                 speed_source=meta.speed_source, origin="mqtt",
                                 uploader=f"mqtt:{item.topic}"[:120], client_ref=ref, limits=self.limits,
-                                site_scope=site_id)
+                                site_scope=site_id, tach_pulses_s=meta.tach_pulses_s,
+                                tach_samples=meta.tach_samples, pulses_per_rev=meta.pulses_per_rev,
+                                tach_level=meta.tach_level)
         except AppError as exc:
             return self._reject(base, exc.status, exc.code, exc.message, exc.field)
         except SignalError as exc:

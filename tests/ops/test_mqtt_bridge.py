@@ -418,3 +418,34 @@ def test_gateway_script_runs_standalone_in_demo_mode_and_reports_rejects(
     assert ok.stdout.count("stored as record") == 2
     assert bad.returncode == 1 and "rejected (fs_hz)" in bad.stderr
     assert count(migrated_db, Record) == 2
+
+
+def test_tach_pulses_in_a_gateway_message_are_stored_or_refused(migrated_db, plant, hw_settings, broker):  # noqa: F811
+    # the same RecordJson fields as over HTTP (docs/tach.md): pulses stored with the record; a missed pulse
+    # (an interval +100 % against the revolution before) refused on the reply topic, nothing stored
+    from server.tach.tables import RecordTach
+
+    x = tone_record(np.random.default_rng(3), n=8192)  # 3.2 s at 2560 Hz
+    pulses = np.arange(1, 79) / 24.75  # 24.75 rev/s, one pulse per revolution (invented)
+    listen = Listener(broker.port)
+    run = Running(migrated_db, mqtt_settings(hw_settings, broker))
+    try:
+        topic = f"halfwatch/{plant.site_id}/{plant.point_id}/records"
+        for ref, times in (("t1", pulses), ("t2", np.delete(pulses, 30))):
+            listen.publish(topic, gateway.payload(x, {"fs_hz": 2560, "units": "m/s2", "measured_at":
+                                                      T0.isoformat(), "client_ref": ref,
+                                                      "tach_pulses_s": times.tolist()}, binary=False))
+        assert wait_until(lambda: len(listen.replies) == 2)
+    finally:
+        run.stop()
+        listen.close()
+    good, bad = listen.replies
+    assert good["ok"] and good["created"], good
+    assert bad["ok"] is False and bad["error"]["field"] == "tach_pulses_s"
+    assert "irregular" in bad["error"]["message"]
+    with migrated_db.read() as s:
+        row = s.get(RecordTach, good["record_id"])
+        rec = s.get(Record, good["record_id"])
+    assert np.array_equal(np.frombuffer(row.pulses, "<f8"), pulses)
+    assert rec.speed_source == "tach" and rec.speed_hz == pytest.approx(24.75, rel=1e-9)
+    assert count(migrated_db, Record) == 1
