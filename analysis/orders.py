@@ -45,6 +45,7 @@ MAX_RESIDUAL_RAD = 0.2
 TRACK_BINS = 1.0
 #: anti-alias cut-off as a fraction of the new Nyquist order (spr / 2), applied at the lowest speed
 ANTI_ALIAS_FRACTION = 0.9
+_CHUNK = 16384  # angle samples interpolated at a time
 
 
 @dataclass(frozen=True)
@@ -245,11 +246,12 @@ def _lowpass(x: np.ndarray, fs: float, cutoff_hz: float) -> np.ndarray:
     """Zero-phase low-pass by the FFT (cosine roll-off over the last 10 % below the cut-off)."""
     n = len(x)
     spec = sfft.rfft(x)
-    f = sfft.rfftfreq(n, 1.0 / fs)
-    edge = 0.9 * cutoff_hz
-    roll = 0.5 + 0.5 * np.cos(np.pi * np.clip((f - edge) / (cutoff_hz - edge), 0.0, 1.0))
-    g = np.where(f <= edge, 1.0, roll)
-    return sfft.irfft(spec * g, n)
+    df = fs / n
+    k_edge, k_cut = int(np.ceil(0.9 * cutoff_hz / df)), int(np.floor(cutoff_hz / df)) + 1
+    f = np.arange(k_edge, min(k_cut, len(spec))) * df
+    spec[k_edge : k_edge + len(f)] *= 0.5 + 0.5 * np.cos(np.pi * (f - 0.9 * cutoff_hz) / (0.1 * cutoff_hz))
+    spec[k_cut:] = 0.0
+    return sfft.irfft(spec, n)
 
 
 def cubic_at(y: np.ndarray, u: np.ndarray) -> np.ndarray:
@@ -306,9 +308,10 @@ def resample_to_angle(
         raise SignalError("the shaft phase needs one value per sample", field="phase_rad")
     if n < 8 or np.any(np.diff(phase) <= 0):
         raise SignalError("the shaft phase must increase from sample to sample", field="phase_rad")
-    t = np.arange(n) / fs
-    speed = np.gradient(phase, t) / (2 * np.pi)
-    duration = t[-1] - t[0]
+    dphase = np.diff(phase)  # rad per sample
+    speed_min = float(np.min(dphase)) * fs / (2 * np.pi)
+    speed_max = float(np.max(dphase)) * fs / (2 * np.pi)
+    duration = (n - 1) / fs
     revs = (phase[-1] - phase[0]) / (2 * np.pi)
     mean_speed = revs / duration
     if samples_per_rev is None:
@@ -316,24 +319,27 @@ def resample_to_angle(
     spr = int(samples_per_rev)
     if spr < 4:
         raise SignalError("samples_per_rev must be at least 4", field="samples_per_rev")
-    cutoff = min(ANTI_ALIAS_FRACTION * 0.5 * spr * float(np.min(speed)), 0.5 * fs)
+    cutoff = min(ANTI_ALIAS_FRACTION * 0.5 * spr * speed_min, 0.5 * fs)
     y = _lowpass(x, fs, cutoff) if cutoff < 0.5 * fs else x
-    m = int(np.floor(revs * spr)) + 1
-    theta_j = phase[0] + 2 * np.pi * np.arange(m) / spr
-    theta_j = theta_j[theta_j <= phase[-1]]
-    t_j = np.interp(theta_j, phase, t)
-    # one Newton step on the cubic through the phase (linear interpolation of t(θ) is off by O(dt² θ''))
-    err = cubic_at(phase, t_j * fs) - theta_j
-    rate = 2 * np.pi * np.interp(t_j, t, speed)
-    t_j = np.clip(t_j - err / rate, t[0], t[-1])
-    samples = cubic_at(y, t_j * fs)
+    m = int(np.floor((phase[-1] - phase[0]) / (2 * np.pi / spr) + 1e-9)) + 1
+    idx = np.arange(n, dtype=float)
+    samples, u_all = np.empty(m), np.empty(m)
+    for j0 in range(0, m, _CHUNK):  # a block of angle samples at a time: bounded working memory
+        theta_j = phase[0] + (2 * np.pi / spr) * np.arange(j0, min(j0 + _CHUNK, m))
+        u = np.interp(theta_j, phase, idx)  # fractional sample position of each angle step
+        # one Newton step on the cubic through the phase (linear interpolation of the position is off by
+        # O(θ'') between samples)
+        u -= (cubic_at(phase, u) - theta_j) / dphase[np.minimum(u.astype(np.intp), n - 2)]
+        np.clip(u, 0.0, n - 1.0, out=u)
+        samples[j0 : j0 + len(u)] = cubic_at(y, u)
+        u_all[j0 : j0 + len(u)] = u
     return AngleRecord(
         samples=samples,
         samples_per_rev=spr,
-        t_s=t_j,
+        t_s=u_all / fs,
         mean_speed_hz=float(mean_speed),
-        speed_min_hz=float(np.min(speed)),
-        speed_max_hz=float(np.max(speed)),
+        speed_min_hz=speed_min,
+        speed_max_hz=speed_max,
         source=source,
     )
 
