@@ -32,7 +32,10 @@ MIN_REVOLUTIONS = 4
 #: Largest gap, in revolutions at the local speed, between the record's start (end) and the first
 #: (last) pulse: a longer gap means pulses are missing there and the phase would be extrapolated.
 END_GAP_REVOLUTIONS = 1.5
-#: Hysteresis half-width as a share of the channel's span (1st to 99th percentile): noise smaller than
+#: The channel's span: from its 0.1th to its 99.9th percentile, so a narrow pulse (a reflective tape, a
+#: key notch: down to 0.1 % of the revolution) still sets the top, while a rare spike does not
+SPAN_PERCENTILES = (0.1, 99.9)
+#: Hysteresis half-width as a share of the channel's span (``SPAN_PERCENTILES``): noise smaller than
 #: this never makes a second edge (common practice for Schmitt triggers on pulse inputs; value ours).
 HYSTERESIS_SHARE = 0.1
 #: Most pulses per revolution accepted (a 360-tooth wheel gives one pulse per degree).
@@ -49,7 +52,7 @@ def pulses_from_channel(ch, fs: float, *, level: float | None = None) -> np.ndar
     fs : float
         Sample rate in Hz.
     level : float, optional
-        Trigger level in the channel's unit; default: halfway between its 1st and 99th percentiles. The
+        Trigger level in the channel's unit; default: halfway across its span (``SPAN_PERCENTILES``). The
         hysteresis band is ± ``HYSTERESIS_SHARE`` of that span around the level.
 
     Returns
@@ -73,7 +76,7 @@ def pulses_from_channel(ch, fs: float, *, level: float | None = None) -> np.ndar
         raise SignalError(
             f"the tach channel has {int(np.sum(~np.isfinite(x)))} non-finite samples (NaN or inf); check "
             "the channel number and the recorder", field="tach_channel")
-    lo_p, hi_p = np.percentile(x, [1.0, 99.0])
+    lo_p, hi_p = np.percentile(x, SPAN_PERCENTILES)
     span = float(hi_p - lo_p)
     if not span > 1e-12 * max(1.0, float(np.max(np.abs(x)))):
         raise SignalError(

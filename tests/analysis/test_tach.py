@@ -80,13 +80,24 @@ def test_hysteresis_ignores_noise_that_a_bare_threshold_counts():
     rng = np.random.default_rng(4)
     t = record_time()
     ch = np.tanh(1.5 * np.sin(ramp_phase(t))) + 0.03 * rng.standard_normal(t.size)
-    level = 0.5 * float(np.sum(np.percentile(ch, [1, 99])))
+    level = 0.5 * float(np.sum(np.percentile(ch, [0.1, 99.9])))
     bare = int(np.sum((ch[:-1] < level) & (ch[1:] >= level)))
     got = pulses_from_channel(ch, FS)
     want = true_pulse_times()[1:]
     assert bare > want.size  # the noise does make extra crossings
     assert got.size == want.size
     assert np.max(np.abs(got - want)) < 2.0 / FS
+
+
+def test_narrow_pulses_set_the_span():
+    # a reflective tape: the pulse lasts 0.5 % of a revolution (scipy.signal.square, duty 0.005), sampled at
+    # 51.2 kHz (about 8 samples a pulse); the span must reach the top of so narrow a pulse
+    fs = 51200.0
+    t = np.arange(int(fs * 2.0)) / fs
+    ch = signal.square(2 * np.pi * 30.0 * t, duty=0.005)
+    got = pulses_from_channel(ch, fs)
+    assert got.size == 59  # 60 revolutions in 2 s, the edge at t = 0 unseen
+    assert np.max(np.abs(got - np.arange(1, 60) / 30.0)) <= 1.0 / fs
 
 
 def test_given_level_and_inverted_levels():
