@@ -3,8 +3,8 @@
     python -m server.demo.screenshots http://127.0.0.1:8000 erin PASSWORD docs/screenshots
 
 Logs in as the given user, opens the main pages of the demo plant (overview, the onset asset VP-102,
-its latest record, alarms, routes, outgoing mail) and writes one PNG per page. Needs Playwright and a
-Chromium on the PATH (the Debian package ``chromium``).
+its latest record, its operating window, alarms, routes, outgoing mail) and writes one PNG per page.
+Needs Playwright and a Chromium on the PATH (the Debian package ``chromium``).
 """
 
 from __future__ import annotations
@@ -17,7 +17,7 @@ ARGS = ["--no-sandbox", "--disable-gpu", "--disable-dev-shm-usage",
         "--host-resolver-rules=MAP * ~NOTFOUND, EXCLUDE 127.0.0.1, EXCLUDE localhost"]
 
 
-def _ids(base: str, cookies: dict) -> tuple[int, int]:
+def _ids(base: str, cookies: dict) -> tuple[int, int, int]:
     import httpx
 
     with httpx.Client(base_url=base, cookies=cookies, timeout=20) as c:
@@ -29,7 +29,7 @@ def _ids(base: str, cookies: dict) -> tuple[int, int]:
                         point = next(p for p in asset["points"] if p["name"].endswith(" H"))
                         rec = c.get(f"/api/v1/points/{point['id']}/records", params={"limit": 1}).json()
                         rows = rec.get("records") or rec.get("items") or []
-                        return asset["id"], rows[0]["id"]
+                        return asset["id"], point["id"], rows[0]["id"]
     raise SystemExit("no asset VP-102 in this plant: is this the demo?")
 
 
@@ -48,9 +48,10 @@ def take(base: str, user: str, password: str, out: Path) -> list[Path]:
         page.press("input[name=password]", "Enter")
         page.wait_for_url(lambda url: "/login" not in url, timeout=30_000)
         cookies = {c["name"]: c["value"] for c in page.context.cookies()}
-        asset_id, record_id = _ids(base, cookies)
+        asset_id, point_id, record_id = _ids(base, cookies)
         pages = [("overview", "/"), ("asset", f"/assets/{asset_id}"), ("record", f"/records/{record_id}"),
-                 ("alarms", "/alarms"), ("routes", "/routes"), ("mail", "/demo/mail")]
+                 ("window", f"/points/{point_id}/window"), ("alarms", "/alarms"), ("routes", "/routes"),
+                 ("mail", "/demo/mail")]
         for name, path in pages:
             page.goto(base + path)
             page.wait_for_load_state("networkidle")
