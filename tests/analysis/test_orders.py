@@ -20,7 +20,7 @@ import pytest
 from scipy import signal
 
 from analysis import analyze_record
-from analysis.orders import TRACK_BINS, resample_to_angle, shaft_phase_from_signal
+from analysis.orders import MAX_RESIDUAL_RAD, TRACK_BINS, resample_to_angle, shaft_phase_from_signal
 from analysis.result_compat import record_analysis_from_dict
 from analysis.simulate import simulate
 from analysis.spectrum import calibrated_spectrum, grandke, power
@@ -206,3 +206,23 @@ def test_simulated_ramp_families_are_found_and_classed(kind, params, klass):
         assert s.detected and s.klass == klass, (seed, s.klass)
         assert s.order == pytest.approx(truth["order"], abs=0.003)
         assert s.amplitude == pytest.approx(truth["amplitude"], rel=0.05)
+
+
+def test_a_1x_too_weak_to_follow_is_not_tracked_and_the_drift_is_flagged():
+    # 1X at 0.02 g in 0.1 g r.m.s. noise on a 5 % ramp: the record's own phase strays (residual above
+    # MAX_RESIDUAL_RAD), so the record is analysed untracked and flagged speed-drift, never resampled on a
+    # wrong angle; with a 0.05 g 1X in the same noise the angle is trusted and within 0.1 rad r.m.s. of the
+    # analytic ramp phase
+    fs, dur = 4096.0, 8.0
+    t, theta = _ramp(24.0, 25.2, dur, fs)
+    rng = np.random.default_rng(0)
+    noise = 0.1 * rng.standard_normal(len(t))
+    weak = 0.02 * np.cos(theta) + 0.03 * np.cos(theta / 2) + noise
+    track = shaft_phase_from_signal(weak, fs, 24.6)
+    assert track.residual_rad > MAX_RESIDUAL_RAD and not track.trusted
+    r = analyze_record(weak, fs, units="g", nominal_hz=24.6)
+    assert r.forcing.tracking == "none" and "speed-drift" in r.quality.flags
+    fair = 0.05 * np.cos(theta) + 0.03 * np.cos(theta / 2) + noise
+    track = shaft_phase_from_signal(fair, fs, 24.6)
+    err = track.phase_rad - theta
+    assert track.trusted and np.sqrt(np.mean((err - err.mean()) ** 2)) < 0.1
