@@ -238,6 +238,8 @@ class Progress:
 def run(args: argparse.Namespace) -> int:
     from analysis import SignalError
 
+    if args.tach_channel is None and (args.tach_level is not None or args.pulses_per_rev != 1):
+        raise UsageError("--pulses-per-rev and --tach-level need --tach-channel N (the file's tach channel)")
     files = record_files(args.files)
     if not files:
         raise UsageError(f"no record files ({', '.join(RECORD_EXTENSIONS)}) in {', '.join(args.files)}")

@@ -176,3 +176,5 @@ def test_bad_tach_exits_2_with_the_reason(tmp_path, inproc):
     assert out.returncode == 2 and "tach channel 3 is not in this file" in out.stderr
     out = inproc(_tach_wav(tmp_path / "runup.wav"))
     assert out.returncode == 2 and "--tach-channel" in out.stderr
+    out = inproc(_tach_wav(tmp_path / "runup.wav"), "--forcing-hz", 30, "--pulses-per-rev", 2)
+    assert out.returncode == 2 and "need --tach-channel" in out.stderr
