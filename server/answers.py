@@ -96,3 +96,6 @@ class WindowAnswer(BaseModel):
     readings: list[WindowReading]
     today: WindowReading | None
     fit: dict
+    conclusion: dict | None = Field(None, description="the plain conclusion at today's 1X acceleration peak "
+                                    "(analysis.window.WindowConclusion: text, unstable band and its 95 % "
+                                    "intervals in Hz and r/min, nearest stable speeds, skipped-speed range)")
