@@ -24,6 +24,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 from analysis import stability as st  # noqa: E402
 from analysis import window as win  # noqa: E402
+from analysis import window_fit as wf  # noqa: E402
 from analysis.sim_history import simulate_history  # noqa: E402
 
 
@@ -87,18 +88,19 @@ def main() -> int:
     for n in (1000, 10000):
         h = simulate_history(n, seed=7)
         y = 2.0 * h["present"] - 1.0
-        grow = np.isfinite(h["growth_rate_per_s"])
-        args = (h["speed_hz"], np.log(h["amp_1x"]), y, h["speed_hz"][grow], h["amp_1x"][grow],
-                h["growth_rate_per_s"][grow])
+        g = h["growth_rate_per_s"]
+        grow = np.isfinite(g) & (g >= wf.GROWTH_FLOOR_PER_S) & (h["present"] > 0.5)
+        args = (h["speed_hz"], np.log(h["amp_1x"]), y, grow, np.where(grow, g, 0.0))
         theta = np.array([12.4, np.log(0.012), np.log(0.25), np.log(0.1), np.log(0.05)])
 
         def fit(h=h):
             return win.fit_operating_window(h["speed_hz"], h["amp_1x"], h["present"],
-                                            growth_rate_per_s=h["growth_rate_per_s"], today_speed_hz=25.0,
+                                            growth_rate_per_s=h["growth_rate_per_s"],
+                                            time_s=h["time_days"] * 86400.0, today_speed_hz=25.0,
                                             today_amp_1x=0.25)
 
         t_fit = timed(fit, 3)
-        t_eval = timed(lambda args=args, theta=theta: win._negloglik(theta, *args), 50)
+        t_eval = timed(lambda args=args, theta=theta: wf._negloglik(theta, *args), 50)
         r = fit()
         print(f"{n:>8}{t_fit:>10.3f}{t_eval:>22.6f}{t_fit / t_eval:>12.0f}{r.status:>10}{r.f0_hz:>10.4f}"
               f"{r.zeta:>9.5f}{r.k_per_unit:>8.4f}")
