@@ -17,6 +17,8 @@ WHIRL_BAND = (0.38, 0.48)  # fluid-film whirl, orders (common practice)
 MIN_VELOCITY_MM_S = 0.02  # absolute floor (peak): below this a line is sensor noise (common practice)
 MAX_TONES = 12
 AMBIGUOUS_NOTE = "0.5X or whirl: take a longer reading"
+#: spread of the Grandke-interpolated Hann peak frequency over the Cramér-Rao bound (measured: 1.7)
+ESTIMATOR_SPREAD = 2.0
 #: Scatter of the floor estimate as degrees of freedom per test-bin d.o.f.: medians of 32-bin blocks
 #: (median efficiency 2/π for Gaussian-like data) of Hann bins that are correlated over ~ENBW = 1.5 bins.
 FLOOR_DOF_FACTOR = 32 * (2.0 / np.pi) / 1.5
@@ -38,11 +40,15 @@ def order_interval(spec: Spectrum, f_hz: float, f1x: float, power_ratio: float) 
     The resolution bandwidth of a segment of T s is B_e = 1/T (Bendat & Piersol, *Random Data*, 4th ed.,
     §11.5, resolution of spectral estimates; from memory): a second line within about half of it is not
     separated from the first, so the measured order stands for anything in ±B_e/2. σ is the Cramér-Rao
-    bound of a single tone's frequency (Rife & Boorstyn 1974, IEEE Trans. IT-20(5)), written with the
-    per-bin SNR ρ of a Hann bin (ENBW 1.5 bins): σ = Δf/(2π)·√(12 / (1.5 ρ)).
+    bound of a single tone's frequency (Rife & Boorstyn 1974, IEEE Trans. IT-20(5)): var ω ≥ 12/(η N³)
+    rad²/sample² with η = A²/(2σ²) per sample; the per-bin SNR ρ of a bin of ENBW B bins is ρ = η N/(2B)
+    (a sine reads A²/2, white noise 2σ²B/N), so σ_f = Δf/(2π)·√(12 / (2 B ρ)). The interpolated Hann peak
+    spreads more than the bound (measured 1.7x in tests/analysis/test_short_readings.py): σ is taken as
+    ``ESTIMATOR_SPREAD`` times it.
     """
     res = spec.df_hz  # fs / nperseg: one bin of an unpadded segment = its resolution bandwidth 1/T
-    sigma = res / (2 * np.pi) * np.sqrt(12.0 / (spec.enbw_bins * max(power_ratio, 1e-12)))
+    crlb = res / (2 * np.pi) * np.sqrt(12.0 / (2.0 * spec.enbw_bins * max(power_ratio, 1e-12)))
+    sigma = ESTIMATOR_SPREAD * crlb
     half = 0.5 * res + 1.96 * sigma
     return (f_hz - half) / f1x, (f_hz + half) / f1x
 
