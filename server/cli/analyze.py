@@ -204,7 +204,8 @@ def _get(d: dict, dotted: str):
 def line(name: str, d: dict) -> str:
     """One summary line of a batch."""
     f, s, g, o = d["forcing"], d["subharmonic"], d["growth"], d["overall"]
-    parts = [f"1X {f['frequency_hz']:.4g} Hz"]
+    parts = [f"1X {f['frequency_hz']:.4g} Hz"
+             + (f" (order-tracked, {f['tracking']})" if f.get("tracking", "none") != "none" else "")]
     if s["detected"]:
         parts.append(f"{s['class']} {s['order']:.2f}X {_fmt(s['velocity_rms_mm_s'], '.2g')} mm/s r.m.s."
                      + (f" ({g['state']} {g['rate_per_s']:.2g} /s)" if g["state"] != "not-estimated" else ""))

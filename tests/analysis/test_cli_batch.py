@@ -168,6 +168,16 @@ def test_tach_channel_tracks_orders(tmp_path, inproc):
     assert "order-tracked from tachometer pulses" in text and "speed moved 28." in text
 
 
+def test_batch_with_a_tach_channel_says_order_tracked(tmp_path, inproc):
+    _tach_wav(tmp_path / "runup.wav")
+    _tach_wav(tmp_path / "runup_bad.wav", drop_pulse=True)
+    out = inproc(tmp_path, "--tach-channel", 2)
+    assert out.returncode == 2
+    good, bad = out.stdout.strip().splitlines()
+    assert "runup.wav: 1X 30 Hz (order-tracked, tach); half-order 0.50X" in good
+    assert "runup_bad.wav: FAILED: the tach is irregular" in bad
+
+
 def test_bad_tach_exits_2_with_the_reason(tmp_path, inproc):
     out = inproc(_tach_wav(tmp_path / "runup.wav", drop_pulse=True), "--tach-channel", 2)
     assert out.returncode == 2 and out.stdout == ""
