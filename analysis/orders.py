@@ -192,7 +192,7 @@ def shaft_phase_from_signal(
     assert spline is not None
     resid = raw[inner] - guide[inner]
     phase = spline(t)
-    speed = spline.derivative()(t) / (2 * np.pi)
+    speed = np.interp(t, td, spline.derivative()(td)) / (2 * np.pi)  # smooth: the decimated grid will do
     if np.any(speed <= 0) or not np.all(np.isfinite(phase)):
         raise SignalError(
             "the shaft phase from the record is not increasing; give a tachometer channel", field="samples"
@@ -224,8 +224,8 @@ def _smooth_phase(t: np.ndarray, raw: np.ndarray, ring: int) -> BSpline:
     kdeg = 3
     inner = np.linspace(t_a, t_b, n_knots + 2)[1:-1] if n_knots > 0 else np.empty(0)
     knots = np.concatenate(([t[0]] * (kdeg + 1), inner, [t[-1]] * (kdeg + 1)))
-    # the angle is smooth on the scale of a revolution: about 8 points a revolution are plenty for the fit
-    step = max(1, int(n / max(8.0 * revs, 1.0)))
+    # the angle is smooth on the scale of a revolution: 4 points a revolution (48 a knot) are plenty
+    step = max(1, int(n / max(4.0 * revs, 1.0)))
     sel = np.arange(0, n, step)
     if sel[-1] != n - 1:
         sel = np.append(sel, n - 1)
