@@ -85,17 +85,30 @@ def test_numbers_are_plain_and_every_amplitude_names_its_measure(login, site):
 
 
 def test_waterfall_is_centred_on_the_opened_reading(login, site):
+    from server.storage.tables import Result
+
     ids = site.seeded.record_ids["P1-DE-H"]
-    rid = ids[4]  # an older reading: 4 older and 7 newer ones exist
+    rid = ids[4]  # an older reading of the seeded twelve (other tests may add newer ones)
     page = open_reading(login, site, rid)
+    with site.db.read() as s:  # the point's readings with a result, oldest first, from the table
+        rows_db = s.execute(select(Result.record_id).where(Result.point_id == site.seeded.growing_point,
+                                                           Result.current)
+                            .order_by(Result.measured_ts)).scalars().all()
+    at = rows_db.index(rid)
+    older, newer = at, len(rows_db) - 1 - at
+    assert older == 4 and newer >= 7 and len(rows_db) <= 21  # all of them fit in the 21 rows
     rows = page.evaluate("() => document.getElementById('chart-waterfall').data[0].y")
-    assert len(rows) == len(ids)  # all 12 fit in the 21 rows
+    assert len(rows) == len(rows_db)
     marked = [i for i, y in enumerate(rows) if y.startswith("▶")]
-    assert marked == [4]
+    assert marked == [older]
     frame = page.evaluate("""() => document.getElementById('chart-waterfall').layout.shapes
         .filter((s) => s.type === 'rect').map((s) => [s.y0, s.y1])""")
-    assert frame == [[3.5, 4.5]]
-    assert "4 older, 7 newer" in page.locator("#waterfall-note").inner_text()
+    assert frame == [[older - 0.5, older + 0.5]]
+    assert f"{older} older, {newer} newer" in page.locator("#waterfall-note").inner_text()
+    # fewer rows than readings: two on each side of the opened one; at the oldest, the rest come after it
+    for opened, want in ((rid, rows_db[at - 2:at + 3]), (rows_db[0], rows_db[:5])):
+        got = page.evaluate(f"fetch('/api/v1/dashboard/records/{opened}/waterfall?n=5').then(r => r.json())")
+        assert [x["record_id"] for x in got["spectra"]] == want
 
 
 def test_a_low_sample_rate_reading_says_so_and_grades_no_zone(login, site):

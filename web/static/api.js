@@ -22,7 +22,9 @@ window.HW = window.HW || {};
     const method = (opts.method || "GET").toUpperCase();
     const headers = { Accept: "application/json" };
     let body;
-    if (opts.json !== undefined) { headers["Content-Type"] = "application/json"; body = JSON.stringify(opts.json); }
+    if (opts.json !== undefined) {
+      headers["Content-Type"] = "application/json"; body = JSON.stringify(opts.json);
+    }
     else if (opts.form !== undefined) { body = opts.form; }
     if (method !== "GET" && method !== "HEAD") {
       const token = HW.csrfToken();
@@ -104,16 +106,20 @@ window.HW = window.HW || {};
     alert: [["path", { d: "M8 1.8 L14.6 14 H1.4 Z", fill: "currentColor" }]],
     danger: [["path", { d: "M8 1 L15 8 L8 15 L1 8 Z", fill: "currentColor" }]],
     clock: [["circle", { cx: 8, cy: 8, r: 6.2, fill: "none", stroke: "currentColor", "stroke-width": 1.8 }],
-      ["path", { d: "M8 4.2 V8.3 L10.8 10", fill: "none", stroke: "currentColor", "stroke-width": 1.8, "stroke-linecap": "round" }]],
-    check: [["path", { d: "M2.5 8.5 L6.5 12.5 L13.5 4", fill: "none", stroke: "currentColor", "stroke-width": 2.2, "stroke-linecap": "round" }]],
-    caution: [["path", { d: "M8 1.2 L15.2 14.4 H0.8 Z", fill: "none", stroke: "currentColor", "stroke-width": 1.6, "stroke-linejoin": "round" }],
+      ["path", { d: "M8 4.2 V8.3 L10.8 10", fill: "none", stroke: "currentColor", "stroke-width": 1.8,
+        "stroke-linecap": "round" }]],
+    check: [["path", { d: "M2.5 8.5 L6.5 12.5 L13.5 4", fill: "none", stroke: "currentColor",
+      "stroke-width": 2.2, "stroke-linecap": "round" }]],
+    caution: [["path", { d: "M8 1.2 L15.2 14.4 H0.8 Z", fill: "none", stroke: "currentColor",
+      "stroke-width": 1.6, "stroke-linejoin": "round" }],
       ["path", { d: "M8 5.6 V9.8", stroke: "currentColor", "stroke-width": 1.8, "stroke-linecap": "round" }],
       ["circle", { cx: 8, cy: 12.2, r: 1.05, fill: "currentColor" }]],
   };
   /* An inline SVG icon (aria-hidden: the word beside it carries the meaning). */
   HW.icon = function (name, cls) {
     const svg = document.createElementNS(SVGNS, "svg");
-    for (const [k, v] of Object.entries({ viewBox: "0 0 16 16", width: "1em", height: "1em", "aria-hidden": "true", focusable: "false",
+    for (const [k, v] of Object.entries({ viewBox: "0 0 16 16", width: "1em", height: "1em",
+      "aria-hidden": "true", focusable: "false",
       class: `icon icon-${name}${cls ? " " + cls : ""}`, "data-icon": name })) svg.setAttribute(k, v);
     for (const [tag, attrs] of ICONS[name] || ICONS.normal) {
       const e = document.createElementNS(SVGNS, tag);
@@ -128,14 +134,16 @@ window.HW = window.HW || {};
     span.append(HW.icon(ICONS[level] ? level : "normal", "level-icon"), " ", word);
     return span;
   };
-  const ZONE_WORDS = { A: "A · newly commissioned", B: "B · unrestricted", C: "C · restricted", D: "D · damage risk" };
+  const ZONE_WORDS = { A: "A · newly commissioned", B: "B · unrestricted", C: "C · restricted",
+    D: "D · damage risk" };
   HW.zoneBadge = function (zone) {
     if (!zone) return HW.el("span", { class: "muted" }, "—");
     return HW.el("span", { class: `zone zone-${zone}`, title: ZONE_WORDS[zone] || zone }, `zone ${zone}`);
   };
 
   /* ---- words for stored codes ---- */
-  const KIND_WORDS = { reciprocating_compressor: "reciprocating compressor", screw_compressor: "screw compressor",
+  const KIND_WORDS = { reciprocating_compressor: "reciprocating compressor",
+    screw_compressor: "screw compressor",
     centrifugal_compressor: "centrifugal compressor", gearbox: "gearbox", pump: "pump", fan: "fan",
     motor: "motor", blower: "blower", cooling_tower: "cooling-tower fan", turbine: "turbine" };
   HW.kindWords = (kind) => KIND_WORDS[kind] || String(kind || "machine").replace(/_/g, " ");
@@ -159,7 +167,9 @@ window.HW = window.HW || {};
       if (v === null || v === undefined || v === false) continue;
       if (k.startsWith("on")) e.addEventListener(k.slice(2), v); else e.setAttribute(k, v === true ? "" : v);
     }
-    for (const c of children.flat()) if (c !== null && c !== undefined) e.append(c instanceof Node ? c : String(c));
+    for (const c of children.flat()) {
+      if (c !== null && c !== undefined) e.append(c instanceof Node ? c : String(c));
+    }
     return e;
   };
   HW.$ = (sel, root) => (root || document).querySelector(sel);
@@ -167,7 +177,8 @@ window.HW = window.HW || {};
     const box = typeof where === "string" ? HW.$(where) : where;
     if (!box) return;
     box.hidden = false;
-    box.textContent = err instanceof HW.ApiError ? `${err.message}${err.field ? ` (field: ${err.field})` : ""}` : String(err);
+    box.textContent = err instanceof HW.ApiError
+      ? `${err.message}${err.field ? ` (field: ${err.field})` : ""}` : String(err);
   };
   HW.role = () => document.body.dataset.role || "";
   const RANK = { viewer: 0, technician: 1, engineer: 2, admin: 3 };

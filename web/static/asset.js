@@ -38,7 +38,8 @@
 
   /* Detected / not detected per reading, or per bucket (◆ when any reading of the bucket had the line). */
   function pointMarkers(d) {
-    const marker = { size: d.bucketed ? 6 : 7, symbol: d.detected.map((x) => (x ? "diamond" : "circle-open")) };
+    const marker = { size: d.bucketed ? 6 : 7,
+      symbol: d.detected.map((x) => (x ? "diamond" : "circle-open")) };
     if (d.bucketed) {
       return { mode: "lines+markers", marker, customdata: d.count,
         hovertemplate: "%{y:.3g} (bucket mean)<br>%{x}<br>%{customdata} readings<extra></extra>" };
@@ -64,11 +65,13 @@
     const t = d.trend || {};
     if (t.band) {
       const bx = t.band.t.map((v) => HW.wall(v, tz));
-      traces.push({ x: bx, y: t.band.hi, type: "scatter", mode: "lines", line: { width: 0 }, showlegend: false,
+      traces.push({ x: bx, y: t.band.hi, type: "scatter", mode: "lines", line: { width: 0 },
+        showlegend: false,
         hoverinfo: "skip" });
       traces.push({ x: bx, y: t.band.lo, type: "scatter", mode: "lines", line: { width: 0 }, fill: "tonexty",
         fillcolor: HW.palette.band, name: "95 % band of the fit", hoverinfo: "skip" });
-      traces.push({ x: bx, y: t.band.fit, type: "scatter", mode: "lines", line: { color: HW.palette.fit, width: 2 },
+      traces.push({ x: bx, y: t.band.fit, type: "scatter", mode: "lines", line: { color: HW.palette.fit,
+        width: 2 },
         name: `trend fit (${t.model})` });
     }
     const f = t.forecast;
@@ -79,14 +82,17 @@
         traces.push({ x: [HW.wall(f.cross_lo, tz), HW.wall(f.cross_hi, tz)],
           y: [t.limit_rms_mm_s, t.limit_rms_mm_s], type: "scatter",
           mode: "lines+markers", marker: { symbol: "line-ns-open", size: 14, color: HW.palette.limit },
-          line: { color: HW.palette.limit, width: 6 }, opacity: 0.55, name: "90 % interval of the crossing" });
+          line: { color: HW.palette.limit, width: 6 }, opacity: 0.55,
+            name: "90 % interval of the crossing" });
       }
     }
     if (levels && levels.danger) {
-      shapes.push(HW.hline(levels.danger, HW.palette.limit, "dash", `danger ${HW.num(levels.danger)} mm/s r.m.s.`));
+      shapes.push(HW.hline(levels.danger, HW.palette.limit, "dash",
+        `danger ${HW.num(levels.danger)} mm/s r.m.s.`));
     }
     if (levels && levels.alert) {
-      shapes.push(HW.hline(levels.alert, HW.palette.alert, "dot", `alert ${HW.num(levels.alert)} mm/s r.m.s.`));
+      shapes.push(HW.hline(levels.alert, HW.palette.alert, "dot",
+        `alert ${HW.num(levels.alert)} mm/s r.m.s.`));
     }
     const note = [];
     if (t.status === "forecast") {
@@ -99,7 +105,8 @@
     }
     else if (t.message) note.push(`Trend: ${t.message}.`);
     if (t.onset_iso) note.push(`Onset about ${HW.when(t.onset_iso, tz)}.`);
-    note.push(d.bucketed ? "Markers: ◆ a half-order line detected in the bucket, ○ in none of its readings."
+    note.push(d.bucketed ? "Markers: ◆ a half-order line detected in the bucket, ○ in none of its "
+      + "readings."
       : "Markers: ◆ half-order detected, ○ not detected.");
     if (changes.length) note.push(`Dash-dot lines: speed changes (${changes.length} in this period).`);
     $("#trend-note").textContent = note.join(" ");
@@ -109,7 +116,8 @@
 
   function drawOverall(d, x, limits) {
     const o = d.overall_velocity_rms_mm_s;
-    const traces = seriesTraces(d, x, "overall_velocity_rms_mm_s", "overall velocity r.m.s.", HW.palette.overall,
+    const traces = seriesTraces(d, x, "overall_velocity_rms_mm_s", "overall velocity r.m.s.",
+      HW.palette.overall,
       "mm/s r.m.s.");
     const vals = (o.max || o.mean).filter((v) => v != null);
     const top = Math.max(...vals, limits ? limits[2] * 1.25 : 1) * 1.08;
@@ -123,7 +131,8 @@
           text: `zone ${z}`, showarrow: false, font: { size: 11, color: "#374151" } });
       });
       $("#zone-note").textContent = `ISO 20816 zone boundaries for group ${asset.asset.machine_group}, `
-        + `${asset.asset.foundation} support: A/B ${limits[0]}, B/C ${limits[1]}, C/D ${limits[2]} mm/s r.m.s. `
+        + `${asset.asset.foundation} support: A/B ${limits[0]}, B/C ${limits[1]}, C/D ${limits[2]} mm/s `
+            + `r.m.s. `
         + (asset.limits_source || "");
     }
     return HW.plot("chart-overall", traces, withChanges({ xaxis: xaxis(),
@@ -146,18 +155,23 @@
     if (n) why = `${n} ${unit} with a 0.5X precursor in this period; gaps are ${unit} without one. `;
     else if (lines) {
       why = `No 0.5X precursor in this period: a half-order line is detected in ${lines} ${unit}. Above the `
-        + "parametric threshold the noise-excited bump turns into that line, so there is no bump left to measure; "
+        + "parametric threshold the noise-excited bump turns into that line, so there is no bump left to "
+            + "measure; "
         + "follow the half-order chart instead. ";
     } else {
       why = "No 0.5X precursor in this period: no noise-excited bump stood out at 0.5X in these readings "
         + "(the machine is far from the threshold, or the bump is below the noise floor). ";
     }
     $("#precursor-note").textContent = why
-      + "γ− = π × half-power width of the noise-excited bump at 0.5X. A falling γ− means the machine is approaching "
-      + "the parametric threshold (γ− reaches 0 at onset); it is an early warning, not a detected half-order line.";
+      + "γ− = π × half-power width of the noise-excited bump at 0.5X. "
+      + "A falling γ− means the machine is "
+          + "approaching "
+      + "the parametric threshold (γ− reaches 0 at onset); it is an early warning, not a detected "
+          + "half-order line.";
     return HW.plot("chart-precursor",
       seriesTraces(d, x, "precursor_rate_per_s", "precursor γ−", HW.palette.precursor, "1/s"),
-      withChanges({ xaxis: xaxis(), yaxis: { title: { text: "narrow decay rate γ− (1/s)" }, rangemode: "tozero" },
+      withChanges({ xaxis: xaxis(), yaxis: { title: { text: "narrow decay rate γ− (1/s)" },
+        rangemode: "tozero" },
         annotations: n ? [] : [{ xref: "paper", yref: "paper", x: 0.5, y: 0.5, showarrow: false,
           text: lines ? "no precursor: a half-order line is detected (see the note)"
             : "no 0.5X precursor in this period", font: { size: 13, color: "#5b6670" } }] }));
@@ -179,14 +193,17 @@
   }
 
   function bindClicks() {
-    for (const id of ["chart-half", "chart-overall", "chart-onex", "chart-ratio", "chart-growth", "chart-precursor",
+    for (const id of ["chart-half", "chart-overall", "chart-onex", "chart-ratio", "chart-growth",
+      "chart-precursor",
       "chart-speed"]) {
       const div = document.getElementById(id);
       if (div.dataset.bound) continue;
       div.dataset.bound = "1";
       div.on("plotly_click", (ev) => {
         const p = ev.points && ev.points[0];
-        if (p && typeof p.customdata === "number" && id !== "chart-speed") location.assign(`/records/${p.customdata}`);
+        if (p && typeof p.customdata === "number" && id !== "chart-speed") {
+          location.assign(`/records/${p.customdata}`);
+        }
       });
     }
   }
@@ -200,7 +217,8 @@
     if (levels && levels.danger) params.set("limit", levels.danger);
     let d;
     try {
-      const head = early && early.pid === point.id && early.days === $("#period").value ? early.promise : null;
+      const head = early && early.pid === point.id && early.days === $("#period").value
+        ? early.promise : null;
       early = null;
       d = await (head || HW.api(`/api/v1/dashboard/points/${point.id}/series?${params}`));
     } catch (e) { HW.showError("#asset-error", e); return; }
@@ -210,16 +228,21 @@
     await Promise.all([
       drawHalf(d, x, levels),
       drawOverall(d, x, asset.zone_limits_rms_mm_s),
-      simple("chart-onex", d, x, "one_x_velocity_rms_mm_s", "1X velocity r.m.s.", HW.palette.onex, "mm/s r.m.s.",
+      simple("chart-onex", d, x, "one_x_velocity_rms_mm_s", "1X velocity r.m.s.", HW.palette.onex,
+        "mm/s r.m.s.",
         "1X velocity r.m.s. (mm/s r.m.s.)"),
       simple("chart-ratio", d, x, "half_order_to_1x_ratio", "half-order / 1X", HW.palette.ratio, "ratio",
         "amplitude ratio, peak / peak (1 = equal)",
-        { shapes: point.levels.half_order_ratio ? [HW.hline(point.levels.half_order_ratio.danger, HW.palette.limit,
-          "dash", "danger"), HW.hline(point.levels.half_order_ratio.alert, HW.palette.alert, "dot", "alert")] : [] }),
+        { shapes: point.levels.half_order_ratio ? [HW.hline(point.levels.half_order_ratio.danger,
+          HW.palette.limit,
+          "dash", "danger"), HW.hline(point.levels.half_order_ratio.alert, HW.palette.alert, "dot",
+            "alert")] : [] }),
       simple("chart-growth", d, x, "growth_rate_per_s", "growth rate", HW.palette.growth, "1/s",
         "growth rate of the envelope (1/s)", { shapes: growthLevels ? [
-          HW.hline(growthLevels.danger, HW.palette.limit, "dash", `danger ${HW.num(growthLevels.danger)} 1/s`),
-          HW.hline(growthLevels.alert, HW.palette.alert, "dot", `alert ${HW.num(growthLevels.alert)} 1/s`)] : [] }),
+          HW.hline(growthLevels.danger, HW.palette.limit, "dash",
+            `danger ${HW.num(growthLevels.danger)} 1/s`),
+          HW.hline(growthLevels.alert, HW.palette.alert, "dot",
+            `alert ${HW.num(growthLevels.alert)} 1/s`)] : [] }),
       drawPrecursor(d, x),
       drawSpeed(d, x),
     ]);
@@ -256,7 +279,8 @@
       el("td", {}, HW.levelBadge(a.level)), el("td", {}, a.point), el("td", {}, a.rule),
       el("td", {}, `${HW.num(a.value)} ${a.unit}`), el("td", {}, HW.when(a.since, tz)),
       el("td", {},
-        a.shelved ? `shelved until ${HW.when(a.shelved_until, tz)}` : a.acknowledged ? `acknowledged by ${a.acked_by}` : "active"))));
+        a.shelved ? `shelved until ${HW.when(a.shelved_until, tz)}` : a.acknowledged ? `acknowledged by `
+            + `${a.acked_by}` : "active"))));
     if (!asset.alarms.length) body.append(el("tr", {}, el("td", { colspan: 6 }, "No open alarm.")));
   }
 
@@ -274,7 +298,9 @@
     point = asset.points.find((p) => p.id === id) || asset.points[0];
     usePointPeriod();
     const l = point.latest;
-    $("#point-facts").textContent = `${point.location || "location not given"} · ${point.direction} · records in ${point.units} · ${point.records} readings · state: ${point.state.replace(/-/g, " ")}`;
+    $("#point-facts").textContent = `${point.location || "location not given"} · ${point.direction} · `
+        + `records in ${point.units} · ${point.records} readings · `
+        + `state: ${point.state.replace(/-/g, " ")}`;
     const links = $("#point-links");
     links.replaceChildren();
     if (l) links.append(el("a", { href: `/records/${l.record_id}` }, "latest reading"), " · ");
@@ -290,7 +316,8 @@
   /* The default period shows the last change of alarm level or speed (server: services.machine_view). */
   function usePointPeriod() {
     const dp = point.default_period;
-    if (!HW.param("days") && dp && $("#period").value !== "custom" && [...$("#period").options].some((o) => o.value === String(dp.days))) {
+    const offered = dp && [...$("#period").options].some((o) => o.value === String(dp.days));
+    if (!HW.param("days") && offered && $("#period").value !== "custom") {
       $("#period").value = String(dp.days);
     }
   }
@@ -304,7 +331,8 @@
   async function load() {
     const id = root().dataset.assetId;
     const p0 = Number(HW.param("point")), days0 = HW.param("days");
-    if (p0 && days0 && /^\d+$/.test(days0)) {  // the point is known: ask for its series while the machine loads
+    // the point is known: ask for its series while the machine loads
+    if (p0 && days0 && /^\d+$/.test(days0)) {
       const end = new Date();
       const q = new URLSearchParams({ start: new Date(end - Number(days0) * 86400e3).toISOString(),
         end: end.toISOString(), max_points: maxPoints() });
@@ -318,7 +346,8 @@
     document.title = `${a.name} · halfwatch`;
     $("#asset-name").textContent = a.name;
     $("#asset-level").replaceChildren(HW.levelBadge(asset.alarm_summary.level));
-    $("#asset-where").textContent = `${a.site} › ${a.area} · ${HW.kindWords(a.kind)} · nominal shaft speed `
+    $("#asset-where").textContent = `${a.site} › ${a.area} · ${HW.kindWords(a.kind)} · `
+      + "nominal shaft speed "
       + `${a.nominal_speed_hz} Hz (${Math.round(a.nominal_speed_hz * 60)} r/min) · ${HW.speedMeaning(a)} · `
       + `ISO 20816 group ${a.machine_group}, ${a.foundation} support · times in ${tz}`;
     const days = HW.param("days");
@@ -326,7 +355,8 @@
     const sel = $("#point-select");
     sel.replaceChildren(...asset.points.map((p) => el("option", { value: p.id },
       `${p.name} (${p.state.replace(/-/g, " ")})`)));
-    const wanted = Number(HW.param("point")) || (asset.points.find((p) => p.records > 0) || asset.points[0] || {}).id;
+    const wanted = Number(HW.param("point"))
+      || (asset.points.find((p) => p.records > 0) || asset.points[0] || {}).id;
     sel.value = wanted;
     renderAlarms();
     loadHistory();

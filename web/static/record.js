@@ -25,13 +25,15 @@
       number("Forcing frequency (1X)", HW.num(f.frequency_hz, 5), "Hz", `${f.source}${f.nominal_hz ? `,
         nominal ${HW.num(f.nominal_hz, 5)} Hz` : ""}`),
       number("Subharmonic", s.detected ? `${s.class} found` : "none found", "",
-        s.detected ? `at ${HW.num(s.frequency_hz, 5)} Hz = ${HW.num(s.order, 4)}X` : `false-alarm rate ${HW.num(s.pfa)} per search`),
+        s.detected ? `at ${HW.num(s.frequency_hz, 5)} Hz = ${HW.num(s.order, 4)}X` : `false-alarm rate `
+            + `${HW.num(s.pfa)} per search`),
       number("Subharmonic velocity r.m.s.", HW.num(s.velocity_rms_mm_s), "mm/s r.m.s.",
         `peak ${HW.num(s.velocity_peak_mm_s)} mm/s · acceleration ${HW.num(s.accel_peak)} ${u} peak`),
       number("Signal to noise", HW.num(s.snr_db), "dB",
         `detection threshold ${HW.num(s.threshold_db)} dB (false-alarm rate ${HW.num(s.pfa)})`),
       growthNumber(g),
-      number("Doubling time", g.rate_per_s > 0 ? HW.num(Math.LN2 / g.rate_per_s) : "—", g.rate_per_s > 0 ? "s" : "",
+      number("Doubling time", g.rate_per_s > 0 ? HW.num(Math.LN2 / g.rate_per_s) : "—",
+        g.rate_per_s > 0 ? "s" : "",
         g.onset_s != null ? `onset at ${HW.num(g.onset_s)} s into the reading` : null),
       number("Overall velocity r.m.s.", HW.num(o.velocity_rms_mm_s), "mm/s r.m.s.",
         o.band_hz ? `band ${HW.num(o.band_hz[0])} – ${HW.num(o.band_hz[1], 4)} Hz` : null),
@@ -52,8 +54,10 @@
     $("#band-note").textContent = cover.covered ? "" : cover.text;
     $("#limits-note").textContent = bundle.limits_source || "";
     const q = r.quality || {};
-    $("#quality-note").textContent = q.ok === false ? `Data quality: NOT fit for judging the machine (${(q.flags || []).join(", ")}).`
-      : `Data quality: fit${q.flags && q.flags.length ? ` (notes: ${q.flags.join(", ")})` : ""}. Analysis version ${r.analysis_version || r.version}.`;
+    $("#quality-note").textContent = q.ok === false ? `Data quality: NOT fit for judging the machine `
+        + `(${(q.flags || []).join(", ")}).`
+      : `Data quality: fit${q.flags && q.flags.length ? ` (notes: ${q.flags.join(", ")})` : ""}. Analysis `
+          + `version ${r.analysis_version || r.version}.`;
   }
 
   /* The within-record growth rate in plain numbers; a rate whose 95 % interval holds 0 is "no growth". */
@@ -64,7 +68,8 @@
     }
     const span = ci ? `95 % interval ${HW.num(ci[0], 2)} to ${HW.num(ci[1], 2)} 1/s` : "no interval";
     if (ci && ci[0] <= 0 && ci[1] >= 0) {
-      return number("Growth rate", "no significant growth", "", `${HW.num(g.rate_per_s, 2)} 1/s; ${span} holds 0`);
+      return number("Growth rate", "no significant growth", "",
+        `${HW.num(g.rate_per_s, 2)} 1/s; ${span} holds 0`);
     }
     return number("Growth rate", HW.num(g.rate_per_s, 2), "1/s", `${span}${g.state ? ` · ${g.state}` : ""}`);
   }
@@ -80,13 +85,14 @@
       el("div", { class: "ci" }, cover.covered ? limits : "the reading does not cover the standard's band"));
   }
 
-  /* The noise-excited bump at 0.5X below threshold (analysis/precursor.py): its own cards and a plain note. */
+  /* The noise-excited bump at 0.5X below threshold (analysis/precursor.py): its own cards and a plain
+     note. */
   function renderPrecursor(p, box) {
     const note = $("#precursor-note");
     if (!p) { note.hidden = true; return; }
     const ratio = p.ratio_to_threshold != null
-      ? `${HW.num(p.ratio_to_threshold, 3)}${p.ratio_to_threshold_se != null ? ` ± ${HW.num(p.ratio_to_threshold_se,
-        2)}` : ""}` : "—";
+      ? HW.num(p.ratio_to_threshold, 3)
+        + (p.ratio_to_threshold_se != null ? ` ± ${HW.num(p.ratio_to_threshold_se, 2)}` : "") : "—";
     box.append(
       number("0.5X precursor centre", HW.num(p.frequency_hz, 5), "Hz",
         `= ${HW.num(p.order, 4)}X · a resonance bump, not a line`),
@@ -100,9 +106,12 @@
         p.ratio_to_threshold != null ? "two-Lorentzian fit (1 = onset)" : (p.note || "not estimated")),
     );
     note.hidden = false;
-    note.textContent = `0.5X precursor: a noise-excited resonance bump centred at ${HW.num(p.frequency_hz, 5)} Hz (${HW.num(p.order, 4)}X), `
-      + `${HW.num(p.width_hz, 3)} Hz wide at half power. It is not a detected half-order line: the machine is still below its `
-      + "parametric threshold, and the mode near 0.5X is only being shaken by noise. As the machine approaches the threshold "
+    note.textContent = `0.5X precursor: a noise-excited resonance bump centred at `
+        + `${HW.num(p.frequency_hz, 5)} Hz (${HW.num(p.order, 4)}X), `
+      + `${HW.num(p.width_hz, 3)} Hz wide at half power. It is not a detected half-order line: the machine `
+          + `is still below its `
+      + "parametric threshold, and the mode near 0.5X is only being shaken by noise. As the machine "
+          + "approaches the threshold "
       + "the bump narrows and its decay rate γ− falls towards 0; watch its trend on the machine page."
       + (p.note ? ` Note: ${p.note}.` : "");
   }
@@ -115,7 +124,8 @@
       fillcolor: "rgba(14,116,144,0.22)", line: { color: HW.palette.precursor, width: 1 },
       name: `0.5X precursor bump (half-power width ${HW.num(p.width_hz, 3)} Hz), not a line`,
       customdata: [p.frequency_hz],
-        hovertemplate: `precursor centre ${HW.num(p.frequency_hz, 5)} Hz, width ${HW.num(p.width_hz, 3)} Hz<extra></extra>` };
+        hovertemplate: `precursor centre ${HW.num(p.frequency_hz, 5)} Hz, width ${HW.num(p.width_hz, 3)} `
+            + `Hz<extra></extra>` };
   }
 
   function drawSpectrum() {
@@ -125,10 +135,12 @@
     const ymax = Math.max(...spec.amplitude);
     const orders = ORDERS.filter((k) => k * F <= fmax);
     const traces = [
-      { x: spec.freqs_hz, y: spec.amplitude, type: "scatter", mode: "lines", line: { color: "#1f3b4d", width: 1.2 },
+      { x: spec.freqs_hz, y: spec.amplitude, type: "scatter", mode: "lines", line: { color: "#1f3b4d",
+        width: 1.2 },
         name: `amplitude (${unit}, peak)`,
         hovertemplate: "%{x:.4g} Hz<br>%{y:.4g} " + unit + "<extra></extra>" },
-      { x: orders.map((k) => k * F), y: orders.map(() => ymax * 1.05), text: orders.map(orderName), type: "scatter",
+      { x: orders.map((k) => k * F), y: orders.map(() => ymax * 1.05), text: orders.map(orderName),
+        type: "scatter",
         mode: "markers+text",
         textposition: "top center", marker: { symbol: "triangle-down", size: 9,
           color: orders.map((k) => (k === 0.5 ? HW.palette.half : "#64748b")) },
@@ -139,7 +151,8 @@
         dash: k % 1 ? "dot" : "dash" } }));
     const s = bundle.result.subharmonic || {};
     const pre = s.precursor;
-    const near = pre ? 2 * (pre.width_hz || 0) + 2 * (spec.freqs_hz[1] - spec.freqs_hz[0]) : 0;  // the bump's own peak
+    // the bump's own peak
+    const near = pre ? 2 * (pre.width_hz || 0) + 2 * (spec.freqs_hz[1] - spec.freqs_hz[0]) : 0;
     const band = pre && precursorBand(pre, Math.min(...spec.amplitude.filter((v) => v > 0)),
       1.25 * peakIn(pre.frequency_hz - near, pre.frequency_hz + near));
     if (band) traces.push(band);
@@ -186,7 +199,9 @@
   /* Largest spectrum amplitude between lo and hi (Hz). */
   function peakIn(lo, hi) {
     let top = 0;
-    spec.freqs_hz.forEach((f, i) => { if (f >= lo && f <= hi && spec.amplitude[i] > top) top = spec.amplitude[i]; });
+    spec.freqs_hz.forEach((f, i) => {
+      if (f >= lo && f <= hi && spec.amplitude[i] > top) top = spec.amplitude[i];
+    });
     return top;
   }
 
@@ -194,16 +209,20 @@
      bump is not flattened by 1X), and the order markers move to the top of the new range. */
   function zoom(lo, hi) {
     const div = document.getElementById("chart-spectrum");
-    const bandTop = div.data.filter((t) => t.fill === "toself" && t.x.some((x) => x >= lo && x <= hi)).map((t) => Math.max(...t.y));
+    const bandTop = div.data.filter((t) => t.fill === "toself" && t.x.some((x) => x >= lo && x <= hi))
+      .map((t) => Math.max(...t.y));
     const top = Math.max(peakIn(lo, hi), ...bandTop) || 1;
     const layout = { "xaxis.range": [lo, hi], "xaxis.autorange": false };
-    if (!$("#log-y").checked) Object.assign(layout, { "yaxis.range": [0, top * 1.15], "yaxis.autorange": false });
+    if (!$("#log-y").checked) Object.assign(layout, { "yaxis.range": [0, top * 1.15],
+      "yaxis.autorange": false });
     Plotly.update(div, { y: [div.data[1].x.map(() => top * 1.05)] }, layout, [1]);
     const vel = document.getElementById("chart-velocity");
-    if (vel.data) Plotly.relayout(vel, { "xaxis.range": [lo, hi], "xaxis.autorange": false, "yaxis.autorange": true });
+    if (vel.data) Plotly.relayout(vel, { "xaxis.range": [lo, hi], "xaxis.autorange": false,
+      "yaxis.autorange": true });
   }
 
-  /* Retention (server/retention): is the raw waveform still stored, what keeps it, and the pin for engineers. */
+  /* Retention (server/retention): is the raw waveform still stored, what keeps it,
+    and the pin for engineers. */
   async function renderRetention() {
     const id = bundle.record.id;
     const st = await HW.api(`/api/v1/records/${id}/retention`);
@@ -211,9 +230,14 @@
       "daily-first": "the first reading of its day", "route-walk": "a reading of the latest route walk" };
     $("#retention-card").hidden = false;
     $("#retention-note").textContent = !w.kept
-      ? `The raw waveform of this reading was removed by retention on ${HW.when(w.removed_at, tz)} (older than ${st.horizon_days} days and held by no keep rule). The analysis result, the spectrum and the 0.5X envelope are kept.`
-      : st.pin ? `Kept: pinned by ${st.pin.pinned_by} on ${HW.when(st.pin.pinned_at, tz)}${st.pin.note ? ` (${st.pin.note})` : ""}.`
-        : `Stored. Raw waveforms older than ${st.horizon_days} days are removed unless a keep rule holds them${st.kept_by.length ? `; this one is kept as ${st.kept_by.map((k) => why[k] || k).join(", ")}` : ""}.`;
+      ? `The raw waveform of this reading was removed by retention on ${HW.when(w.removed_at, tz)} (older `
+          + `than ${st.horizon_days} days and held by no keep rule). The analysis result, the spectrum and `
+              + `the 0.5X envelope are kept.`
+      : st.pin ? `Kept: pinned by ${st.pin.pinned_by} on `
+          + `${HW.when(st.pin.pinned_at, tz)}${st.pin.note ? ` (${st.pin.note})` : ""}.`
+        : `Stored. Raw waveforms older than ${st.horizon_days} days are removed unless a keep rule holds `
+            + "them" + (st.kept_by.length
+              ? `; this one is kept as ${st.kept_by.map((k) => why[k] || k).join(", ")}` : "") + ".";
     const may = HW.may("engineer") && w.kept;
     $("#pin-button").hidden = !may || !!st.pin;
     $("#pin-note").hidden = $("#pin-button").hidden;
@@ -236,7 +260,8 @@
     const traces = [];
     if (kept) {
       const w = await HW.api(`/api/v1/records/${bundle.record.id}/waveform?max_points=4000`);
-      traces.push({ x: w.t_s, y: w.value, type: "scatter", mode: "lines", line: { color: "#94a3b8", width: 0.8 },
+      traces.push({ x: w.t_s, y: w.value, type: "scatter", mode: "lines", line: { color: "#94a3b8",
+        width: 0.8 },
         name: `acceleration (${unit}, instantaneous)` });
     }
     if (spec.envelope && spec.envelope.length) {
@@ -247,13 +272,18 @@
     if (g.rate_per_s != null && g.intercept != null && g.fit_window_s && g.fit_window_s[0] != null) {
       const [a, b] = g.fit_window_s;
       const xs = Array.from({ length: 40 }, (_, i) => a + (b - a) * i / 39);
-      traces.push({ x: xs, y: xs.map((t) => Math.exp(g.intercept + g.rate_per_s * t)), type: "scatter", mode: "lines",
-        line: { color: HW.palette.fit, width: 2, dash: "dash" }, name: `fitted growth ${HW.num(g.rate_per_s)} 1/s` });
-      $("#growth-note").textContent = `Envelope of the band ${HW.num(g.band_hz && g.band_hz[0])} – ${HW.num(g.band_hz && g.band_hz[1])} Hz fitted from ${HW.num(a)} s to ${HW.num(b)} s (${g.n_points} points): ln(envelope) = ${HW.num(g.intercept)} + ${HW.num(g.rate_per_s)}·t.`;
+      traces.push({ x: xs, y: xs.map((t) => Math.exp(g.intercept + g.rate_per_s * t)), type: "scatter",
+        mode: "lines",
+        line: { color: HW.palette.fit, width: 2, dash: "dash" },
+          name: `fitted growth ${HW.num(g.rate_per_s)} 1/s` });
+      $("#growth-note").textContent = `Envelope of the band ${HW.num(g.band_hz && g.band_hz[0])} – `
+          + `${HW.num(g.band_hz && g.band_hz[1])} Hz fitted from ${HW.num(a)} s to ${HW.num(b)} s `
+              + `(${g.n_points} points): ln(envelope) = ${HW.num(g.intercept)} + ${HW.num(g.rate_per_s)}·t.`;
     } else {
       $("#growth-note").textContent = `No growth line: ${g.note || g.state || "not estimated"}.`;
     }
-    if (!kept) $("#growth-note").textContent += " The raw waveform was removed by retention: only the stored envelope and fit are drawn.";
+    if (!kept) $("#growth-note").textContent += " The raw waveform was removed by retention: only the "
+        + "stored envelope and fit are drawn.";
     return HW.plot("chart-waveform", traces, { xaxis: { title: { text: "time in the reading (s)" } },
       yaxis: { title: { text: `acceleration (${unit}; envelope: ${unit} peak)` } } });
   }
@@ -268,7 +298,8 @@
       x.length) : x.map(() => null));
     const y = wf.spectra.map((s) => HW.wall(s.measured_at, tz).slice(0, 16));
     const unit = wf.spectra[0].units || bundle.record.units;
-    const traces = [{ x, y, z, type: "heatmap", colorscale: [[0, "#fbfaf6"], [0.25, "#c7d2fe"], [0.6, "#6d28d9"], [1,
+    const traces = [{ x, y, z, type: "heatmap", colorscale: [[0, "#fbfaf6"], [0.25, "#c7d2fe"], [0.6,
+      "#6d28d9"], [1,
       "#1e1b4b"]],
       colorbar: { title: { text: `${unit} peak` } }, name: "amplitude",
         hovertemplate: "%{x:.4g} Hz<br>%{y}<br>%{z:.3g} " + unit + "<extra></extra>" }];
@@ -293,11 +324,17 @@
     tz = a.timezone;
     document.title = `Reading ${rec.id} · ${a.name} · halfwatch`;
     $("#record-title").textContent = `${a.name} · ${p.name} · ${HW.when(rec.measured_at, tz)}`;
-    $("#record-where").textContent = `${a.site} › ${a.area} · reading ${rec.id} · ${rec.n_samples} samples at ${HW.num(rec.fs_hz, 5)} Hz (${HW.num(rec.duration_s)} s) · ${rec.units} · speed ${rec.speed_hz ? HW.num(rec.speed_hz, 5) + " Hz (" + (rec.speed_source || "given") + ")" : "not given"} · from ${rec.origin} by ${rec.uploader} · times in ${tz}`;
+    const speed = rec.speed_hz ? `${HW.num(rec.speed_hz, 5)} Hz (${rec.speed_source || "given"})`
+      : "not given";
+    $("#record-where").textContent = `${a.site} › ${a.area} · reading ${rec.id} · `
+      + `${rec.n_samples} samples at ${HW.num(rec.fs_hz, 5)} Hz (${HW.num(rec.duration_s)} s) · `
+      + `${rec.units} · shaft speed ${speed} · from ${rec.origin} by ${rec.uploader} · times in ${tz}`;
     const nav = $("#record-nav");
     nav.replaceChildren(el("a", { href: `/assets/${a.id}?point=${p.id}` }, `← ${a.name} trends`), " · ",
-      bundle.older_id ? el("a", { href: `/records/${bundle.older_id}` }, "older reading") : "oldest reading", " · ",
-      bundle.newer_id ? el("a", { href: `/records/${bundle.newer_id}` }, "newer reading") : "newest reading", " · ",
+      bundle.older_id ? el("a", { href: `/records/${bundle.older_id}` }, "older reading") : "oldest reading",
+        " · ",
+      bundle.newer_id ? el("a", { href: `/records/${bundle.newer_id}` }, "newer reading") : "newest reading",
+        " · ",
       el("a", { href: `/points/${p.id}/window` }, "operating window"));
   }
 
@@ -310,7 +347,8 @@
       const j = bundle.job || {};
       const box = $("#record-pending");
       box.hidden = false;
-      box.textContent = j.state === "failed" ? `The analysis failed: ${j.error}` : `The analysis is ${j.state || "waiting"}; this page refreshes when it is done.`;
+      box.textContent = j.state === "failed" ? `The analysis failed: ${j.error}` : `The analysis is `
+          + `${j.state || "waiting"}; this page refreshes when it is done.`;
       if (j.state !== "failed") setTimeout(load, 1500);
       return;
     }
@@ -328,13 +366,15 @@
     $("#pin-button").addEventListener("click", () => pin(true));
     $("#unpin-button").addEventListener("click", () => pin(false));
     $("#zoom-orders").addEventListener("click", () => spec && zoom(0, 5.2 * spec.forcing_hz));
-    $("#zoom-half").addEventListener("click", () => spec && zoom(0.28 * spec.forcing_hz, 0.72 * spec.forcing_hz));
+    $("#zoom-half").addEventListener("click", () => spec && zoom(0.28 * spec.forcing_hz,
+      0.72 * spec.forcing_hz));
     $("#zoom-all").addEventListener("click", () => spec && zoom(0, spec.freqs_hz[spec.freqs_hz.length - 1]));
     $("#log-y").addEventListener("change", () => {
       if (!spec) return;
       for (const id of ["chart-spectrum", "chart-velocity"]) {
         if (document.getElementById(id).data) {
-          Plotly.relayout(id, { "yaxis.type": $("#log-y").checked ? "log" : "linear", "yaxis.autorange": true });
+          Plotly.relayout(id, { "yaxis.type": $("#log-y").checked ? "log" : "linear",
+            "yaxis.autorange": true });
         }
       }
     });

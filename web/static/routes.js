@@ -39,7 +39,8 @@
     if (!r) {
       const j = detail.job || {};
       box.append(el("p", { class: j.state === "failed" ? "error" : "notice" },
-        j.state === "failed" ? `Stored, but the analysis failed: ${j.error}` : `Stored as reading ${rec.id}; analysis ${j.state || "queued"}…`));
+        j.state === "failed" ? `Stored, but the analysis failed: ${j.error}`
+          : `Stored as reading ${rec.id}; analysis ${j.state || "queued"}…`));
       return j.state !== "failed";
     }
     const s = r.subharmonic || {}, o = r.overall || {};
@@ -49,10 +50,12 @@
     box.append(el("div", { class: `result-ready cond cond-${worst}`, "data-record-id": rec.id,
       "data-condition": worst },
       el("strong", {},
-        s.detected ? `${s.class} line at ${HW.num(s.frequency_hz, 4)} Hz (${HW.num(s.order, 3)}X), ${HW.num(s.velocity_rms_mm_s)} mm/s r.m.s.`
+        s.detected ? `${s.class} line at ${HW.num(s.frequency_hz, 4)} Hz (${HW.num(s.order, 3)}X), `
+          + `${HW.num(s.velocity_rms_mm_s)} mm/s r.m.s.`
         : "No subharmonic line found"),
       el("br"), `Overall ${HW.num(o.velocity_rms_mm_s)} mm/s r.m.s. `, HW.zoneBadge(o.zone),
-      ` · forcing ${HW.num((r.forcing || {}).frequency_hz, 4)} Hz · `, el("a", { href: `/records/${rec.id}` },
+      ` · forcing ${HW.num((r.forcing || {}).frequency_hz, 4)} Hz · `,
+      el("a", { href: `/records/${rec.id}` },
         "open reading")));
     return false;
   }
@@ -76,7 +79,8 @@
       ev.preventDefault();
       const f = ev.target;
       const fd = new FormData();
-      if (!f.file.files.length) { HW.showError(box, new HW.ApiError(0, "invalid", "choose the reading's file first",
+      if (!f.file.files.length) { HW.showError(box, new HW.ApiError(0, "invalid",
+        "choose the reading's file first",
         "file")); return; }
       fd.append("file", f.file.files[0]);
       fd.append("units", f.units.value);
@@ -84,22 +88,27 @@
       fd.append("measured_at", HW.fromWall(f.measured.value, zone));
       f.querySelector("button").disabled = true;
       try {
-        const out = await HW.api(`/api/v1/points/${stop.point_id}/records/file`, { method: "POST", form: fd });
+        const out = await HW.api(`/api/v1/points/${stop.point_id}/records/file`, { method: "POST",
+          form: fd });
         box.replaceChildren(el("p", { class: "notice" },
           `Stored as reading ${out.record_id}; waiting for the analysis…`));
         await follow(box, out.record_id);
       } catch (e) { box.replaceChildren(el("p", { class: "error" })); HW.showError(box.firstChild, e); }
       finally { f.querySelector("button").disabled = false; }
     } },
-    el("div", {}, el("label", { for: `${base}-file` }, "Reading file"), el("input", { id: `${base}-file`, name: "file",
+    el("div", {}, el("label", { for: `${base}-file` }, "Reading file"), el("input", { id: `${base}-file`,
+      name: "file",
       type: "file", accept: ".wav,.csv,.uff,.unv" })),
-    el("div", {}, el("label", { for: `${base}-units` }, "Units"), el("select", { id: `${base}-units`, name: "units" },
+    el("div", {}, el("label", { for: `${base}-units` }, "Units"), el("select", { id: `${base}-units`,
+      name: "units" },
       ["m/s2", "g", "mm/s2"].map((u) => el("option", { value: u, selected: u === (p.units || "m/s2") }, u)))),
-    el("div", {}, el("label", { for: `${base}-speed` }, "Shaft speed (Hz)"), el("input", { id: `${base}-speed`,
+    el("div", {}, el("label", { for: `${base}-speed` }, "Shaft speed (Hz)"), el("input",
+      { id: `${base}-speed`,
       name: "speed", type: "number", step: "0.01", min: "0", inputmode: "decimal", placeholder: "rev/s",
       "aria-describedby": `${base}-speed-help` }),
     el("p", { class: "help", id: `${base}-speed-help` }, speedHelp(p))),
-    el("div", {}, el("label", { for: `${base}-when` }, `Measured (${zone})`), el("input", { id: `${base}-when`,
+    el("div", {}, el("label", { for: `${base}-when` }, `Measured (${zone})`), el("input",
+      { id: `${base}-when`,
       name: "measured", type: "datetime-local", value: now })),
     el("button", { type: "submit", class: "primary" }, "Upload reading"));
     return [form, box];
@@ -107,7 +116,8 @@
 
   function speedHelp(p) {
     const a = assetInfo[p.asset_id];
-    return a ? `${HW.speedMeaning(a)}. Enter the shaft speed in rev/s (r/min ÷ 60).` : "shaft speed in rev/s";
+    return a ? `${HW.speedMeaning(a)}. Enter the shaft speed in rev/s (r/min ÷ 60).`
+      : "shaft speed in rev/s";
   }
 
   function zipForm(route) {
@@ -132,7 +142,8 @@
                 el("td", {}, r.status === "rejected" ? `rejected: ${r.error.message}` : r.status), cell);
             }))));
       } catch (e) { HW.showError(box, e); }
-    } }, el("div", {}, el("label", { for: id }, "Whole route as ZIP"), el("input", { id, name: "zip", type: "file",
+    } }, el("div", {}, el("label", { for: id }, "Whole route as ZIP"), el("input", { id, name: "zip",
+      type: "file",
       accept: ".zip" })),
     el("button", { type: "submit" }, "Upload ZIP"));
     return [form, box];
@@ -140,7 +151,8 @@
 
   async function load() {
     let d, tree, sites;
-    try { [d, tree, sites] = await Promise.all([HW.api("/api/v1/routes"), HW.api("/api/v1/dashboard/overview"),
+    try { [d, tree, sites] = await Promise.all([HW.api("/api/v1/routes"),
+      HW.api("/api/v1/dashboard/overview"),
       HW.api("/api/v1/dashboard/sites")]); }
     catch (e) { HW.showError("#routes-error", e); return; }
     now = new Date(d.now || tree.now || Date.now());
@@ -154,14 +166,16 @@
     root.replaceChildren(...d.routes.map((r) => (tz = zones[r.site_id] || HW.defaultTz()) && el("section",
       { class: "card route", id: `route-${r.id}`, "data-timezone": tz },
       el("h2", {}, r.name, el("span", { class: "muted" },
-        ` · ${r.counts.overdue} overdue, ${r.counts.due} due, ${r.counts.ok} on schedule · times in ${tz}`)),
+        ` · ${r.counts.overdue} overdue, ${r.counts.due} due, ${r.counts.ok} on schedule`
+          + ` · times in ${tz}`)),
       HW.may("technician") ? zipForm(r) : null,
       r.stops.map((st) => el("div", { class: `stop due-${st.status}`, "data-point-id": st.point_id },
         el("div", { class: "pos", "aria-label": `stop ${st.position + 1}` }, st.position + 1),
         el("div", {}, el("h3", {}, el("a", { href: `/assets/${(pointInfo[st.point_id] || {}).asset_id}`
             + `?point=${st.point_id}` }, `${st.asset} · ${st.point}`)),
           el("p", { class: "stop-state" }, condition(st), " · ",
-            el("span", { class: `due due-${schedule(st).cls}`, "data-status": st.status }, HW.icon(st.status ===
+            el("span", { class: `due due-${schedule(st).cls}`, "data-status": st.status },
+              HW.icon(st.status ===
               "ok" ? "normal" : "clock"), " ", schedule(st).text)),
           el("p", { class: "muted" }, `every ${HW.num(st.due_interval_h / 24, 3)} days · last reading `
             + `${HW.when(st.last_measured_at, tz)} · due ${HW.when(st.due_at, tz)}`),

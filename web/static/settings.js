@@ -5,14 +5,18 @@
   const { el, $ } = HW;
   const tz = HW.defaultTz();
   let tree = null;
-  const allAssets = () => tree.sites.flatMap((s) => s.areas.flatMap((ar) => ar.assets.map((a) => Object.assign({ site: s, area: ar }, a))));
+  const allAssets = () => tree.sites.flatMap((s) => s.areas.flatMap((ar) => ar.assets.map((a) =>
+    Object.assign({ site: s, area: ar }, a))));
 
-  function done(msg) { const b = $("#settings-done"); b.hidden = false; b.textContent = msg; $("#settings-error").hidden = true; }
+  function done(msg) {
+    const b = $("#settings-done"); b.hidden = false; b.textContent = msg; $("#settings-error").hidden = true;
+  }
   const fail = (e) => HW.showError("#settings-error", e);
 
   /* A labelled form from field specs: [name, label, type|options, extra]. submit(values) -> Promise. */
   function form(idp, title, fields, submit, opts) {
-    const f = el("form", { class: "inline-form", id: `${idp}-form`, "aria-label": title, onsubmit: async (ev) => {
+    const f = el("form", { class: "inline-form", id: `${idp}-form`, "aria-label": title,
+      onsubmit: async (ev) => {
       ev.preventDefault();
       const v = {};
       for (const [name, , type] of fields) {
@@ -26,7 +30,8 @@
     for (const [name, label, type, extra] of fields) {
       const id = `${idp}-${name}`;
       let input;
-      if (Array.isArray(type)) input = el("select", { id, name }, type.map((o) => (Array.isArray(o) ? el("option",
+      if (Array.isArray(type)) input = el("select", { id, name },
+        type.map((o) => (Array.isArray(o) ? el("option",
         { value: o[0] }, o[1]) : el("option", { value: o }, o))));
       else input = el("input", Object.assign({ id, name, type: type || "text" }, extra || {}));
       f.append(type === "checkbox" ? el("label", { class: "check" }, input, label) : el("div", {}, el("label",
@@ -46,7 +51,8 @@
   function machineEditor(a) {
     const id = `edit-${a.id}`;
     const box = el("div", { class: "machine-audit", id: `${id}-audit` });
-    const f = form(id, `Save ${a.name}`, [["name", "Machine name", "text", { value: a.name, maxlength: "120" }],
+    const f = form(id, `Save ${a.name}`, [["name", "Machine name", "text", { value: a.name,
+      maxlength: "120" }],
       ["kind", "Kind", kindOptions], ["nominal_speed_hz", "Nominal shaft speed (Hz)", "number",
         { step: "0.001", min: "0", value: a.nominal_speed_hz }],
       ["machine_group", "ISO 20816 group", GROUPS], ["foundation", "Support", [["rigid", "rigid"],
@@ -102,7 +108,8 @@
     const assets = allAssets().map((a) => [a.id, `${a.site.name} › ${a.name}`]);
     const after = (msg) => async () => { done(msg); await reloadTree(); await loadSubs(); };
     $("#plant-forms").replaceChildren(
-      form("site", "Add site", [["name", "Site name"]], async (v) => { await HW.api("/api/v1/sites", { method: "POST",
+      form("site", "Add site", [["name", "Site name"]], async (v) => { await HW.api("/api/v1/sites",
+        { method: "POST",
         json: v }); await after(`Site ${v.name} added.`)(); }),
       form("area", "Add area", [["site_id", "Site", sites], ["name", "Area name"]],
         async (v) => { await HW.api("/api/v1/areas", { method: "POST", json: { site_id: Number(v.site_id),
@@ -111,13 +118,16 @@
         kindOptions], ["nominal_speed_hz", "Nominal shaft speed (Hz)", "number", { step: "0.01", min: "0" }],
         ["machine_group", "ISO 20816 group", GROUPS],
         ["foundation", "Support", ["rigid", "flexible"]], ["forcing_kind", "Forcing from", FORCING],
-        ["forcing_multiplier", "Forcing (1X) = shaft speed ×", "number", { step: "0.01", min: "0", value: "1" }]],
+        ["forcing_multiplier", "Forcing (1X) = shaft speed ×", "number", { step: "0.01", min: "0",
+          value: "1" }]],
       async (v) => { await HW.api("/api/v1/assets", { method: "POST", json: Object.assign(v,
         { area_id: Number(v.area_id), machine_group: Number(v.machine_group),
         forcing_multiplier: v.forcing_multiplier || 1 }) }); await after(`Machine ${v.name} added.`)(); }),
-      form("point", "Add point", [["asset_id", "Machine", assets], ["name", "Point name"], ["location", "Location"],
+      form("point", "Add point", [["asset_id", "Machine", assets], ["name", "Point name"], ["location",
+        "Location"],
         ["direction", "Direction", ["horizontal", "vertical", "axial", "radial", "other"]],
-        ["units", "Units", ["m/s2", "g", "mm/s2"]], ["expected_fs_hz", "Sample rate (Hz)", "number", { min: "0" }]],
+        ["units", "Units", ["m/s2", "g", "mm/s2"]], ["expected_fs_hz", "Sample rate (Hz)", "number",
+          { min: "0" }]],
       async (v) => { await HW.api("/api/v1/points", { method: "POST", json: Object.assign(v,
         { asset_id: Number(v.asset_id) }) }); await after(`Point ${v.name} added.`)(); }));
     const sel = $("#rule-point");
@@ -157,7 +167,10 @@
           try {
             const body = { point_id: Number(pid), metric: r.metric, k: r.k, n: r.n, hysteresis: r.hysteresis,
               enabled: en.checked, zone_based: r.zone_based, direction: r.direction };
-            if (!r.zone_based) { body.alert = a.value === "" ? null : Number(a.value); body.danger = g.value === "" ? null : Number(g.value); }
+            if (!r.zone_based) {
+              body.alert = a.value === "" ? null : Number(a.value);
+              body.danger = g.value === "" ? null : Number(g.value);
+            }
             await HW.api("/api/v1/alarms/rules", { method: "PUT", json: body });
             done(`Rule ${r.label} saved.`); loadRules();
           } catch (e) { fail(e); }
@@ -167,7 +180,8 @@
 
   async function loadSubs() {
     const d = await HW.api("/api/v1/alarms/subscriptions");
-    const areaOf = (id) => tree.sites.flatMap((x) => x.areas.map((ar) => [x, ar])).find(([, ar]) => ar.id === id);
+    const areaOf = (id) => tree.sites.flatMap((x) => x.areas.map((ar) => [x, ar])).find(([,
+      ar]) => ar.id === id);
     const scopeName = (s) => {
       if (s.scope === "asset") {
         const a = allAssets().find((x) => x.id === s.scope_id);
@@ -180,13 +194,15 @@
       const hit = areaOf(s.scope_id);
       return hit ? `area ${hit[1].name} (${hit[0].name})` : `area no. ${s.scope_id}`;
     };
-    $("#subs-table tbody").replaceChildren(...d.subscriptions.map((s) => el("tr", {}, el("td", {}, s.email), el("td",
+    $("#subs-table tbody").replaceChildren(...d.subscriptions.map((s) => el("tr", {}, el("td", {}, s.email),
+      el("td",
       {}, scopeName(s)),
       el("td", {}, `${s.min_level} and above`), el("td", {},
         s.mode === "digest" ? `daily at ${s.digest_time} ${s.timezone}` : "immediate"),
       el("td", {}, el("button", { type: "button",
         onclick: async () => { try { await HW.api(`/api/v1/alarms/subscriptions/${s.id}`,
-        { method: "DELETE" }); done("Subscription ended."); loadSubs(); } catch (e) { fail(e); } } }, "End")))));
+        { method: "DELETE" }); done("Subscription ended."); loadSubs(); } catch (e) { fail(e); } } },
+          "End")))));
     if (!d.subscriptions.length) $("#subs-table tbody").append(el("tr", {}, el("td", { colspan: 5 },
       "No subscription yet.")));
     const scopes = [...tree.sites.map((s) => [`site:${s.id}`, `site ${s.name}`]),
@@ -195,7 +211,8 @@
     const addr = HW.may("engineer") ? [["email", "Address (empty: your own)", "email"]] : [];
     $("#sub-form").replaceChildren(form("sub", HW.may("engineer") ? "Subscribe" : "Subscribe me", [...addr,
       ["scope", "For", scopes],
-      ["min_level", "From level", ["alert", "danger"]], ["mode", "Mode", ["immediate", "digest"]], ["digest_time",
+      ["min_level", "From level", ["alert", "danger"]], ["mode", "Mode", ["immediate", "digest"]],
+        ["digest_time",
       "Digest time", "time", { value: "07:00" }]],
       async (v) => {
         const [scope, id] = v.scope.split(":");
@@ -213,29 +230,40 @@
     $("#users-table tbody").replaceChildren(...d.users.map((u) => {
       const sel = el("select", { "aria-label": `role of ${u.username}`,
         onchange: async (ev) => { try { await HW.api(`/api/v1/users/${u.id}`, { method: "PATCH",
-        json: { role: ev.target.value } }); done(`${u.username} is now ${ev.target.value}.`); } catch (e) { fail(e); } } },
+        json: { role: ev.target.value } }); done(`${u.username} is now ${ev.target.value}.`); }
+        catch (e) { fail(e); } } },
         roles.map((r) => el("option", { value: r, selected: r === u.role }, r)));
       const act = el("input", { type: "checkbox", checked: u.active, "aria-label": `${u.username} active`,
         onchange: async (ev) => { try { await HW.api(`/api/v1/users/${u.id}`, { method: "PATCH",
-        json: { active: ev.target.checked } }); done(`${u.username} ${ev.target.checked ? "activated" : "deactivated"}.`); } catch (e) { fail(e); } } });
-      return el("tr", {}, el("td", {}, u.username), el("td", {}, u.email || "—"), el("td", {}, sel), el("td", {}, act));
+        json: { active: ev.target.checked } });
+        done(`${u.username} ${ev.target.checked ? "activated" : "deactivated"}.`); }
+        catch (e) { fail(e); } } });
+      return el("tr", {}, el("td", {}, u.username), el("td", {}, u.email || "—"), el("td", {}, sel),
+        el("td",
+        {}, act));
     }));
-    $("#user-form").replaceChildren(form("user", "Add user", [["username", "User name"], ["email", "Email", "email"],
-      ["password", "Password (8+ characters)", "password", { autocomplete: "new-password" }], ["role", "Role", roles]],
+    $("#user-form").replaceChildren(form("user", "Add user", [["username", "User name"], ["email", "Email",
+      "email"],
+      ["password", "Password (8+ characters)", "password", { autocomplete: "new-password" }], ["role",
+        "Role", roles]],
       async (v) => { await HW.api("/api/v1/users", { method: "POST",
         json: v }); done(`User ${v.username} added.`); loadUsers(); }));
   }
 
   async function loadKeys() {
     const d = await HW.api("/api/v1/apikeys");
-    const siteName = (id) => id == null ? "all sites" : (tree.sites.find((s) => s.id === id) || {}).name || id;
-    $("#keys-table tbody").replaceChildren(...d.api_keys.map((k) => el("tr", {}, el("td", {}, k.name), el("td", {},
+    const siteName = (id) => id == null ? "all sites"
+      : (tree.sites.find((s) => s.id === id) || {}).name || id;
+    $("#keys-table tbody").replaceChildren(...d.api_keys.map((k) => el("tr", {}, el("td", {}, k.name),
+      el("td", {},
       k.prefix), el("td", {}, k.role), el("td", {}, siteName(k.site_id)),
       el("td", {}, k.revoked_at ? `revoked ${HW.when(k.revoked_at, tz)}` : HW.when(k.last_used_at, tz)),
       el("td", {}, k.revoked_at ? "" : el("button", { type: "button",
         onclick: async () => { try { await HW.api(`/api/v1/apikeys/${k.id}`,
-        { method: "DELETE" }); done(`Key ${k.name} revoked.`); loadKeys(); } catch (e) { fail(e); } } }, "Revoke")))));
-    $("#key-form").replaceChildren(form("key", "Create key", [["name", "Name (e.g. the gateway)"], ["role", "Role",
+        { method: "DELETE" }); done(`Key ${k.name} revoked.`); loadKeys(); } catch (e) { fail(e); } } },
+          "Revoke")))));
+    $("#key-form").replaceChildren(form("key", "Create key", [["name", "Name (e.g. the gateway)"], ["role",
+      "Role",
       ["technician", "viewer", "engineer", "admin"]], ["site_id", "Site", [["", "all sites"],
       ...tree.sites.map((s) => [String(s.id), s.name])]]],
       async (v) => {
@@ -256,7 +284,8 @@
     try {
       await reloadTree();
       if (HW.may("engineer")) $("#rule-point").addEventListener("change", () => loadRules().catch(fail));
-      await Promise.all([HW.may("engineer") ? loadRules() : null, loadSubs(), HW.may("admin") ? loadUsers() : null,
+      await Promise.all([HW.may("engineer") ? loadRules() : null, loadSubs(),
+        HW.may("admin") ? loadUsers() : null,
         HW.may("admin") ? loadKeys() : null]);
       document.body.dataset.ready = "1";
     } catch (e) { fail(e); }
