@@ -3,8 +3,9 @@
 Likelihood: each labelled record says present (1) or absent (0); P(present) = e + (1 - 2e) Phi(ln(a/a_c)/s)
 (probit on the log margin, s fitted, e = 1 % label noise). Records caught growing (rate of at least
 GROWTH_FLOOR_PER_S with the line present) add a Gaussian term for lambda (scale fitted). Parameters f0,
-ln zeta, ln k, ln s (, ln s_g) by maximum likelihood (SLSQP). Covariance: the cluster-robust sandwich
-with the readings of one day as a cluster, never below the inverse Hessian (analysis.window_stats).
+ln zeta, ln k, ln s (, ln s_g) by maximum likelihood (SLSQP). Covariance: the delete-one-cluster
+jackknife with the readings of one day as a cluster (the clustered sandwich when one day alone decides the
+fit), never below the inverse Hessian (analysis.window_stats).
 Every stated interval is 95 %: Wald intervals for f0 (Hz) and for zeta and k on the log scale, and the
 2.5-97.5 % quantiles of 2000 draws of that normal approximation for derived outputs.
 """
@@ -74,6 +75,8 @@ class WindowFit:
     param_cov: tuple[tuple[float, ...], ...] | None = None
     n_clusters: int = 0
     n_speeds: int = 0
+    #: days without whose readings the fit is not defined (then the interval is the sandwich's)
+    n_decisive_days: int = 0
 
     def to_dict(self) -> dict:
         """JSON-ready dict (non-finite numbers become None)."""
@@ -200,8 +203,9 @@ def fit_operating_window(
     res = optimize.minimize(_negloglik, x0, args=args, method="SLSQP", bounds=bounds)
     th = res.x
     clusters = np.floor(t_all / CLUSTER_S)
-    cov, good, n_clusters = _covariance(th, bounds, args, clusters)
+    cov, good, n_clusters, decisive = _covariance(th, bounds, args, clusters)
     base["n_clusters"] = n_clusters
+    base["n_decisive_days"] = decisive
     base["n_speeds"] = len(speed_ranges(f))
     return _summarise(th, cov, good, base, float(today_speed_hz), float(today_amp_1x), seed)
 
@@ -218,7 +222,8 @@ def speed_ranges(speeds) -> tuple[tuple[float, float], ...]:
 
 def _covariance(th, bounds, args, clusters):
     """Covariance over the parameters not pinned at a bound (those get zero variance): the
-    cluster-robust sandwich, never below the inverse Hessian (:mod:`analysis.window_stats`)."""
+    delete-one-day jackknife, or the day-clustered sandwich when some day alone decides the fit; never
+    below the inverse Hessian (:mod:`analysis.window_stats`)."""
     free = np.array([lo + 1e-6 < v < hi - 1e-6 for v, (lo, hi) in zip(th, bounds, strict=True)])
     cov = np.zeros((th.size, th.size))
     idx = np.flatnonzero(free)
@@ -231,11 +236,13 @@ def _covariance(th, bounds, args, clusters):
     steps = np.array([max(1e-4 * abs(th[i]), 1e-6) if i == 0 else 1e-3 for i in idx])
     hess = ws.hessian(lambda v: _negloglik(full(v), *args), th[idx], steps)
     if not free[:3].all() or not np.all(np.isfinite(hess)) or np.any(np.linalg.eigvalsh(hess) <= 0):
-        return np.full_like(cov, np.nan), False, 0
-    score = ws.scores(lambda v: _terms(full(v), *args), th[idx], steps)
+        return np.full_like(cov, np.nan), False, 0, 0
+    terms = lambda v: _terms(full(v), *args)  # noqa: E731
+    score = ws.scores(terms, th[idx], steps)
     robust, g = ws.sandwich(hess, score, clusters)
-    cov[np.ix_(idx, idx)] = ws.not_below_model(robust, np.linalg.inv(hess))
-    return cov, bool(np.all(np.isfinite(cov))), g
+    jack, decisive = ws.cluster_jackknife(hess, score, ws.record_hessians(terms, th[idx], steps), clusters)
+    cov[np.ix_(idx, idx)] = ws.not_below_model(robust if jack is None else jack, np.linalg.inv(hess))
+    return cov, bool(np.all(np.isfinite(cov))), g, decisive
 
 
 def _start(args, *, with_growth: bool):
@@ -359,6 +366,9 @@ def _summarise(th, cov, good, base, speed, amp, seed) -> WindowFit:
         if band and band[0] <= speed <= band[1]
         else ("outside the unstable band at today's amplitude")
     )
+    if base.get("n_decisive_days"):
+        msg += (f"; the readings of {base['n_decisive_days']} day(s) decide the fit on their own, so the "
+                "intervals come from the day-clustered sandwich and may be too narrow")
     return WindowFit("fit", msg, **out)
 
 
