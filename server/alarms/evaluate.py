@@ -33,12 +33,13 @@ from .notify import queue_for_events
 from .pointstate import PointData, StateRow, effective, read_point, write_states, write_status
 from .rules import (
     LEVEL_RANK,
-    METRICS,
     SLOW_RULES_DWELL_S,
     RuleSpec,
     default_rules,
     result_metrics,
+    rule_label,
     rules_in_force,
+    value_text,
 )
 from .tables import AlarmEvent, AlarmRule
 
@@ -225,8 +226,9 @@ def _evaluate(session: Session, record, result, settings, now: dt.datetime) -> l
         for name, v in (("window", windows[row.metric]), ("last_value", value), ("last_record_id", record.id),
                         ("updated_at", now)):
             state.set(name, v)
-        info = METRICS[row.metric]
-        summary = f"{info.label}: {tr.from_level} -> {tr.to_level} at {value:.3g} {info.unit}".rstrip()
+        line = status.last_metrics
+        label = rule_label(row.metric, line.get("line_class"), line.get("line_order"))
+        summary = f"{label}: {tr.from_level} -> {tr.to_level} at {value_text(row.metric, value)}"
         event = AlarmEvent(
             kind="transition", metric=row.metric, rule_id=row.id, from_level=tr.from_level,
             to_level=tr.to_level, value=value, threshold=tr.level_value, summary=summary,

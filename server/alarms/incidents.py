@@ -22,7 +22,7 @@ from types import SimpleNamespace
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
-from server.storage.tables import Point
+from server.storage.tables import Asset, Point
 
 from .notify import matching_subscriptions, message_id
 from .rules import LEVEL_RANK, LEVELS, METRICS, rule_label
@@ -71,6 +71,10 @@ def after_transitions(session: Session, where: dict, events: list, *, record_id:
     ``events`` are the record's transition events (flushed, with ids), the most severe first is not
     required. Returns the outbox rows added."""
     asset_id = where["asset_id"]
+    if session.get_bind().dialect.name == "postgresql":
+        # two workers storing records of two points of one machine take turns here (the point rows are
+        # locked per point only), so the second sees the incident the first opened or raised
+        session.execute(select(Asset.id).where(Asset.id == asset_id).with_for_update(key_share=True))
     rules = machine_rules(session, asset_id, now)
     level = _max_level(r["level"] for r in rules)
     announce = _max_level(r["level"] for r in rules if not r["shelved"])
