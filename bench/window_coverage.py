@@ -1,6 +1,6 @@
 """Coverage of the operating-window fit's stated 95 % intervals on invented histories with a known tongue.
 
-    .venv/bin/python bench/window_coverage.py [--trials 200] [--records 300]
+    .venv/bin/python bench/window_coverage.py [--trials 200] [--records 600]
 
 For each trial a history is drawn by analysis.sim_history (true f0 12.4 Hz, zeta 0.012, k 0.25) and fitted;
 the table gives, per case, how often the stated 95 % interval of f0 and of zeta covered the truth, the
@@ -60,7 +60,7 @@ def run_case(trials: int, records: int, growth: bool, seed0: int, *, per_day: in
 def main() -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--trials", type=int, default=200)
-    ap.add_argument("--records", type=int, default=300)
+    ap.add_argument("--records", type=int, default=600)
     args = ap.parse_args()
     print(f"{args.trials} trials x {args.records} records; truth f0 12.4 Hz, zeta 0.012; nominal 0.95")
     print(f"{'case':<26}{'param':<6}{'covered':>10}{'rate':>7}{'exact 95 % CI':>17}{'p vs 0.95':>11}"

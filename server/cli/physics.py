@@ -249,7 +249,7 @@ def _flag(v: str, line: int, path: str):
 def cmd_window(args: argparse.Namespace) -> int:
     import numpy as np
 
-    from analysis.window import fit_operating_window
+    from analysis.window import conclusion, fit_operating_window
 
     h = read_history(args.history)
     if "present" not in h and args.present_above is not None and h.get("amp_sub") is not None:
@@ -306,7 +306,10 @@ def cmd_window(args: argparse.Namespace) -> int:
         print(f"unstable speed band at today's amplitude  {band[0]:.4g} to {band[1]:.4g} Hz")
     elif d["f0_hz"] is not None:
         print("no unstable speed band at today's amplitude")
-    print("Model estimate for condition monitoring; not a protection limit.")
+    said = conclusion(fit, today_amp, today_speed, h["speed_hz"], units="units of the amp_1x column")
+    print(said.text)
+    print(said.skip_text)
+    print(said.caution)
     return 0
 
 

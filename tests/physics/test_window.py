@@ -105,6 +105,8 @@ def test_cli_window(tmp_path, capsys):
     assert cli_main(["window", str(path), "--speed-hz", "25", "--amp-1x", "0.25"]) == 0
     out = capsys.readouterr().out
     assert "margin to onset" in out and "unstable speed band" in out
+    assert "At today's 1X acceleration of 0.25 units of the amp_1x column peak, speeds from" in out
+    assert "manufacturer" in out  # the caution of analysis.window.conclusion
     assert cli_main(["window", str(path), "--json"]) == 0
     d = json.loads(capsys.readouterr().out)
     assert d["status"] == "fit" and d["f0_hz"] == pytest.approx(12.4, rel=0.01)
