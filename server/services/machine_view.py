@@ -19,6 +19,7 @@ import statistics
 
 from sqlalchemy import select
 
+from server.services.reading_view import zone_graded
 from server.storage.queries import iso
 from server.storage.tables import Point, Record, Result
 
@@ -122,6 +123,7 @@ def recent_readings(s, point_id: int, limit: int) -> list[dict]:
                      .order_by(Record.measured_at.desc()).limit(limit)).all()
     out = []
     for rec, res in rows:
+        graded = res is not None and zone_graded(res.forcing_hz, rec.fs_hz)
         out.append({"record_id": rec.id, "measured_at": iso(rec.measured_at), "speed_hz": rec.speed_hz,
                     "origin": rec.origin, "n_samples": rec.n_samples, "fs_hz": rec.fs_hz,
                     "analysed": res is not None,
@@ -129,6 +131,7 @@ def recent_readings(s, point_id: int, limit: int) -> list[dict]:
                     "half_order_class": None if res is None else res.sub_class,
                     "half_order_velocity_rms_mm_s": None if res is None else res.sub_velocity_rms_mm_s,
                     "overall_velocity_rms_mm_s": None if res is None else res.overall_velocity_rms_mm_s,
-                    "zone": None if res is None else res.zone,
+                    "zone": None if res is None or not graded else res.zone,
+                    "zone_graded": graded,
                     "growth_rate_per_s": None if res is None else res.growth_rate_per_s})
     return out

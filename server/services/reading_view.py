@@ -23,6 +23,14 @@ LIMITS_SOURCE = ("Zone limits: ISO 20816-3:2022, Annex A (the same values as ISO
                  "standard and your site's own limits; the machine manufacturer's limits take precedence.")
 
 
+def zone_graded(forcing_hz: float | None, fs_hz: float | None) -> bool:
+    """Whether a record at ``fs_hz`` reaches the top of the standard's band for this forcing frequency
+    (both edges from :func:`analysis.severity.iso_band`)."""
+    if not forcing_hz or not fs_hz:
+        return False
+    return iso_band(float(forcing_hz), float(fs_hz))[1] >= iso_band(float(forcing_hz), math.inf)[1] * 0.999
+
+
 def band_coverage(result: dict, fs_hz: float) -> dict:
     """``{"covered", "needed_hz", "measured_hz", "text"}``: does the record reach the standard's band?
 

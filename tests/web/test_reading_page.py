@@ -130,6 +130,13 @@ def test_a_low_sample_rate_reading_says_so_and_grades_no_zone(login, site):
     assert "ISO 20816-3:2022" in limits and "check them against your copy of the standard" in limits.lower()
     assert "from memory" not in page.locator("main").inner_text()
     assert not violations(page), describe(violations(page))
+    # the machine page's readings table agrees: the fan's low-rate readings carry no zone either
+    fan = site.seeded.plant.asset_ids["fan"]
+    page.goto(f"{site.base}/assets/{fan}?point={site.seeded.precursor_point}")
+    ready(page)
+    page.wait_for_function("() => document.querySelectorAll('#readings tbody tr[data-record-id]').length > 0")
+    zones = [tr.locator("td").nth(5).inner_text() for tr in page.locator("#readings tbody tr").all()]
+    assert zones == ["not graded"] * len(site.seeded.record_ids["F-DE-H"])
 
 
 def test_a_full_band_reading_grades_its_zone(login, site):

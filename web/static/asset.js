@@ -266,7 +266,9 @@
       el("td", { class: "num" }, rec.half_order_detected ? HW.num(rec.half_order_velocity_rms_mm_s) : "—"),
       el("td", {}, cls(rec)),
       el("td", { class: "num" }, HW.num(rec.overall_velocity_rms_mm_s)),
-      el("td", {}, HW.zoneBadge(rec.zone)),
+      el("td", {}, rec.analysed && !rec.zone_graded
+        ? el("span", { title: "the sample rate does not reach the ISO 20816 band" }, "not graded")
+        : HW.zoneBadge(rec.zone)),
       el("td", { class: "num" }, HW.num(rec.growth_rate_per_s)),
       el("td", {}, rec.origin), el("td", {}, `${rec.n_samples} @ ${HW.num(rec.fs_hz, 5)} Hz`),
       el("td", {}, el("a", { href: `/records/${rec.record_id}` }, "open reading")))));
