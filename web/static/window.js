@@ -73,8 +73,9 @@
       marker: { symbol, size: 8, color, line: { color, width: 1.2 } }, name,
       customdata: rows.map((r) => r.record_id), text: rows.map((r) => HW.when(r.t, tz)),
       hovertemplate: "%{x:.4g} Hz, %{y:.3g} " + unit + " peak<br>%{text}<extra></extra>" });
-    const traces = [...regionTrace(fit), tr(abs, "half-order absent", "circle-open", "#0f766e"),
-      tr(pres, "half-order present", "diamond", "#7c3aed")];
+    // open circles (absent) drawn over the filled diamonds, so neither label hides the other
+    const traces = [...regionTrace(fit), tr(pres, "half-order present", "diamond", "#7c3aed"),
+      tr(abs, "half-order absent", "circle-open", "#0f766e")];
     const rg = ranges(d, c);
     const shapes = unseenShapes(c.observed_ranges_hz || [], rg.x);
     if (c.band_hz) shapes.push({ type: "rect", x0: c.band_hz[0], x1: c.band_hz[1], yref: "paper", y0: 0, y1: 1,
