@@ -49,7 +49,8 @@ def test_band_edges_follow_the_hand_worked_tongue_and_the_text_says_so():
 def test_undamped_edges_sit_on_the_mathieu_characteristic_curves_to_order_q_squared():
     # Standard form (McLachlan; A&S 20.2.25): with tau = W t / 2 the undamped equation becomes
     # y'' + (a - 2q cos 2 tau) y = 0, a = 4 w0^2 / W^2, |q| = a h / 2; the first tongue is b1(q) < a < a1(q),
-    # a1, b1 = 1 +- q + O(q^2). At W below 2 w0 (a > 1) the edge is a = a1(q), above (a < 1) it is a = b1(q).
+    # a1, b1 = 1 +- q + O(q^2) (for this form; 1 +- q/2 belongs to y'' + (a - q cos 2t) y = 0).
+    # At W below 2 w0 (a > 1) the edge is a = a1(q), above (a < 1) it is a = b1(q).
     c = conclusion({**_fit(), "zeta": 1e-9}, AMP, 25.0, [25.0])
     lo, hi = c.band_hz
     assert (lo, hi) == pytest.approx((25.0 - 0.625, 25.0 + 0.625), abs=1e-6)  # h w0 / 2 in Hz: 0.1 * 12.5 / 2
