@@ -19,6 +19,10 @@ from .service import VIEWS, AlarmInputError, AlarmNotFound, _audit, _check_until
 from .tables import AlarmIncident, AlarmState
 
 
+def _rule_view(r: dict) -> str:
+    return "shelved" if r["shelved"] else "acknowledged" if r["acknowledged"] else "active"
+
+
 def _incident_state(rules: list[dict]) -> str:
     """"shelved" when every rule is shelved, "acknowledged" when each is acknowledged or shelved, else
     "active" (an incident with one rule nobody has seen yet is active)."""
@@ -33,8 +37,9 @@ def list_incidents(db, *, view: str = "active", site_id=None, area_id=None, asse
                    now: dt.datetime | None = None) -> list[dict]:
     """Open alarms grouped per machine into incidents, the rules beneath, worst machine first.
 
-    An incident's level is its worst rule's; ``view`` filters on the incident's state (see
-    :func:`_incident_state`), ``level`` on the incident's level."""
+    An incident's level is its worst rule's and its ``state`` is :func:`_incident_state`. ``view`` keeps
+    the incidents with at least one rule in that view (active, acknowledged, shelved), all their rules
+    beneath; ``level`` filters on the incident's level."""
     if view not in VIEWS:
         raise AlarmInputError("view", f"view: use one of {', '.join(VIEWS)}")
     _level(level)
@@ -54,7 +59,7 @@ def list_incidents(db, *, view: str = "active", site_id=None, area_id=None, asse
         state = _incident_state(items)
         if level and top != level:
             continue
-        if view != "all" and state != view:
+        if view != "all" and not any(_rule_view(r) == view for r in items):
             continue
         inc = opened.get(aid)
         first = min(r["since"] for r in items)

@@ -199,8 +199,9 @@ def test_engineer_acknowledges_an_alarm_and_the_database_records_it(login, site,
     assert page.locator("#alarm-caution").is_visible()
     row = page.locator("tr.alarm-row").first
     alarm_id = int(row.get_attribute("data-alarm-id"))
-    row.locator(".ack-form input[name=comment]").fill("work order 4711 raised, bearing check")
-    row.locator(".ack-form button").click()
+    row.locator("button[data-action=acknowledge]").click()  # one rule, in the page's one dialog
+    page.fill("#dlg-comment", "work order 4711 raised, bearing check")
+    page.click("#dlg-ok")
     page.wait_for_selector("#alarms-done:not([hidden])")
     with site.db.read() as s:
         state = s.get(AlarmState, alarm_id)
@@ -219,7 +220,7 @@ def test_viewer_sees_alarms_but_is_not_offered_acknowledgement(login, site):
     page = login("viewer")
     page.goto(f"{site.base}/alarms")
     ready(page)
-    assert page.locator(".ack-form").count() == 0
+    assert page.locator("button[data-action]").count() == 0
     assert page.locator("tr.alarm-row").count() >= 1
 
 
@@ -383,9 +384,10 @@ def test_engineer_shelves_an_alarm_until_a_time_in_the_site_zone(login, site):
     from zoneinfo import ZoneInfo
 
     day = (dt.datetime.now(dt.UTC) + dt.timedelta(days=60)).date()
-    row.locator(".shelve-form input[name=until]").fill(f"{day.isoformat()}T08:00")
-    row.locator(".shelve-form input[name=reason]").fill("outage planned for June")
-    row.locator(".shelve-form button").click()
+    row.locator("button[data-action=shelve]").click()  # one rule, in the page's one dialog
+    page.fill("#dlg-until", f"{day.isoformat()} 08:00")
+    page.fill("#dlg-reason", "outage planned for June")
+    page.click("#dlg-ok")
     page.wait_for_selector("#alarms-done:not([hidden])")
     with site.db.read() as s:
         state = s.get(AlarmState, alarm_id)
