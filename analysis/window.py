@@ -169,6 +169,15 @@ def conclusion(fit: WindowFit | Mapping[str, Any], amplitude_1x: float, speed_hz
     f0, zeta, k = _get(fit, "f0_hz"), _get(fit, "zeta"), _get(fit, "k_per_unit")
     if f0 is None or zeta is None or k is None or amp is None or not (f0 > 0 and zeta > 0 and k > 0
                                                                       and amp > 0):
+        ac, lo, hi = (_get(fit, n) for n in ("amp_threshold", "amp_threshold_lo", "amp_threshold_hi"))
+        if fit_status == "one_speed" and ac is not None and amp is not None and amp > 0 and speed is not None:
+            # one speed run: no band, but the 1X threshold at that speed is measured
+            ci = f" (95 % interval {lo:.3g} to {hi:.3g})" if lo is not None and hi is not None else ""
+            where = "above" if amp > ac else "below"
+            text = (f"All readings were taken at one speed, so no unstable speed band can be drawn. At "
+                    f"{_hz(speed)} Hz the half-order line appears above a 1X acceleration of about {ac:.3g} "
+                    f"{units} peak{ci}; today's {amp:.3g} {units} peak is {where} it.")
+            return WindowConclusion("no_fit", False, text, **common)
         why = _get(fit, "message") or "the operating window has no fit"
         return WindowConclusion("no_fit", False, f"No plain conclusion yet: {why}.", **common)
     usable = fit_status == "fit"

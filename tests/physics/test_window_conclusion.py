@@ -152,3 +152,13 @@ def test_no_skip_range_from_an_interval_too_wide_to_program():
     # f0 uncertain by 3 Hz (sd): the band's 95 % interval spans far more than 30 % of speed
     c = conclusion(_fit([[9.0, 0, 0], [0, 0, 0], [0, 0, 0]]), AMP, 25.0, np.linspace(23, 27, 81))
     assert c.skip_hz is None and "too wide to program" in c.skip_text
+
+
+def test_one_speed_gives_the_threshold_at_that_speed():
+    # a fixed-speed machine: the fit measures only the 1X threshold at its speed (status one_speed)
+    fit = {"status": "one_speed", "message": "all records at one speed", "amp_threshold": 0.12,
+           "amp_threshold_lo": 0.1, "amp_threshold_hi": 0.15}
+    c = conclusion(fit, 0.2, 24.75, [24.74, 24.75, 24.76])
+    assert c.status == "no_fit" and c.band_hz is None and c.skip_hz is None
+    assert ("At 24.75 Hz the half-order line appears above a 1X acceleration of about 0.12 g peak "
+            "(95 % interval 0.1 to 0.15); today's 0.2 g peak is above it.") in c.text
