@@ -82,9 +82,12 @@ def after_transitions(session: Session, where: dict, events: list, *, record_id:
     if incident is None:
         if level == "normal":
             return []
+        # Rules already open before incidents existed (a database upgraded to 0009) were emailed then:
+        # an incident first seen on a drop starts as announced, so the drop sends nothing.
+        rising = any(LEVEL_RANK[e.to_level] > LEVEL_RANK[e.from_level] for e in events)
         incident = AlarmIncident(asset_id=asset_id, area_id=where.get("area_id"),
-                                 site_id=where.get("site_id"),
-                                 level=level, peak_level=level, announced_level="normal", opened_at=now,
+                                 site_id=where.get("site_id"), level=level, peak_level=level,
+                                 announced_level="normal" if rising else announce, opened_at=now,
                                  opened_record_id=record_id, emails=0)
         session.add(incident)
         session.flush()

@@ -161,3 +161,23 @@ def test_incident_acknowledge_and_shelve_cover_every_open_rule(feeder, plant, mi
     with pytest.raises(AlarmInputError) as none_open:
         incident_actions.acknowledge_incident(db, plant.asset_ids["recip"], actor="eng", comment="x")
     assert none_open.value.status == 409 and "Air compressor 2" in str(none_open.value)
+
+
+def test_rules_open_before_incidents_existed_send_no_email_on_a_drop(feeder, plant, migrated_db):
+    from sqlalchemy import delete
+
+    db = migrated_db
+    for v in (0.2, 3.0, 3.1):  # half-order line into danger (B/C boundary 2.8 mm/s r.m.s.)
+        feeder.feed(plant.point_id, make_result(half_v=v))
+    with db.unit_of_work() as s:  # as a database upgraded to 0009 with this alarm already open
+        s.execute(delete(OutboxMessage))
+        s.execute(delete(AlarmIncident))
+    _subscribe(db, plant)
+    for v in (2.0, 2.0):  # back below the danger clearing level (90 % of 2.8), above the alert level
+        feeder.feed(plant.point_id, make_result(half_v=v))
+    with db.read() as s:
+        [incident] = s.scalars(select(AlarmIncident)).all()
+    assert incident.level == "alert" and _incident_mail(db) == []  # the drop is not mailed
+    for v in (0.2, 0.2):
+        feeder.feed(plant.point_id, make_result(half_v=v))
+    assert _incident_mail(db) == [("clear", "planner@example.test")]
