@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import datetime as dt
 import math
+import re
 
 import numpy as np
 import pytest
@@ -129,11 +130,22 @@ def test_an_uploaded_zone_d_reading_is_not_shown_in_a_green_box(login, site, tmp
     form = page.locator(f"form.stop-upload[data-point-id='{pid}']")
     form.locator("input[type=file]").set_input_files(str(path))
     form.locator("input[name=speed]").fill("24.75")
+    when = form.locator("input[name=measured]")
+    assert re.fullmatch(r"\d{4}-\d{2}-\d{2} \d{2}:\d{2}", when.input_value())  # ISO 8601, 24-hour
+    when.fill("11/30/2026 2:15 PM")  # a locale form: refused with the field named
+    form.locator("button[type=submit]").click()
+    assert "YYYY-MM-DD HH:MM" in form.locator("xpath=..").locator(".stop-result").inner_text()
+    when.fill("2026-11-30 14:15")
     form.locator("button[type=submit]").click()
     box = page.locator(f".stop[data-point-id='{pid}'] .result-ready")
     box.wait_for(timeout=90_000)
     assert "zone D" in box.inner_text()
     assert box.get_attribute("data-condition") == "danger"
+    from server.storage.tables import Record
+
+    with site.db.read() as s:
+        at = s.get(Record, int(box.get_attribute("data-record-id"))).measured_at
+    assert at.replace(tzinfo=None) == dt.datetime(2026, 11, 30, 14, 15)  # site zone UTC
     bg = box.evaluate("(e) => getComputedStyle(e).backgroundColor")
     r, g, b = (int(v) for v in bg[bg.index("(") + 1:bg.index(")")].split(",")[:3])
     assert r > g  # a red-tinted box, not a green one

@@ -72,9 +72,10 @@
     const p = pointInfo[stop.point_id] || {};
     const base = `up-${stop.point_id}`;
     const zone = tz;  // the site zone of this stop's route
-    const now = HW.wall(new Date().toISOString(), zone).slice(0, 16).replace(" ", "T");
+    const now = HW.wall(new Date().toISOString(), zone).slice(0, 16);  // "YYYY-MM-DD HH:MM", 24-hour
     const box = el("div", { class: "stop-result", "aria-live": "polite" });
     const form = el("form", { class: "inline-form stop-upload", "data-point-id": stop.point_id,
+      novalidate: true,
       onsubmit: async (ev) => {
       ev.preventDefault();
       const f = ev.target;
@@ -85,7 +86,13 @@
       fd.append("file", f.file.files[0]);
       fd.append("units", f.units.value);
       if (f.speed.value) { fd.append("speed_hz", f.speed.value); fd.append("speed_source", "technician"); }
-      fd.append("measured_at", HW.fromWall(f.measured.value, zone));
+      const when = f.measured.value.trim();
+      if (!/^\d{4}-\d{2}-\d{2}[ T]\d{2}:\d{2}$/.test(when)) {
+        HW.showError(box, new HW.ApiError(0, "invalid", "give the time as YYYY-MM-DD HH:MM (24-hour)",
+          "measured_at"));
+        return;
+      }
+      fd.append("measured_at", HW.fromWall(when.replace(" ", "T"), zone));
       f.querySelector("button").disabled = true;
       try {
         const out = await HW.api(`/api/v1/points/${stop.point_id}/records/file`, { method: "POST",
@@ -109,7 +116,9 @@
     el("p", { class: "help", id: `${base}-speed-help` }, speedHelp(p))),
     el("div", {}, el("label", { for: `${base}-when` }, `Measured (${zone})`), el("input",
       { id: `${base}-when`,
-      name: "measured", type: "datetime-local", value: now })),
+      name: "measured", type: "text", value: now, inputmode: "numeric", size: 16, maxlength: 16,
+      pattern: "\\d{4}-\\d{2}-\\d{2}[ T]\\d{2}:\\d{2}", placeholder: "YYYY-MM-DD HH:MM",
+      autocomplete: "off" })),
     el("button", { type: "submit", class: "primary" }, "Upload reading"));
     return [form, box];
   }
