@@ -199,6 +199,7 @@ def test_recent_readings_table_has_the_result_columns(login, site):
         assert cells[5] == (f"zone {r.zone}" if r.zone else "—")
         assert cells[6] == sig3(r.growth_rate_per_s)
     assert any(r.sub_detected for r in db_rows) and any(not r.sub_detected for r in db_rows)
+    assert page.locator("#band-note").is_hidden()  # 2560 Hz readings reach 1000 Hz: zones graded
 
 
 def test_dates_are_typed_and_shown_in_iso_form_whatever_the_locale(browser, site):

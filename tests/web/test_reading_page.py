@@ -137,6 +137,7 @@ def test_a_low_sample_rate_reading_says_so_and_grades_no_zone(login, site):
     page.wait_for_function("() => document.querySelectorAll('#readings tbody tr[data-record-id]').length > 0")
     zones = [tr.locator("td").nth(5).inner_text() for tr in page.locator("#readings tbody tr").all()]
     assert zones == ["not graded"] * len(site.seeded.record_ids["F-DE-H"])
+    assert "do not reach the ISO 20816 band" in page.locator("#band-note").inner_text()
 
 
 def test_a_full_band_reading_grades_its_zone(login, site):

@@ -273,6 +273,12 @@
       el("td", {}, rec.origin), el("td", {}, `${rec.n_samples} @ ${HW.num(rec.fs_hz, 5)} Hz`),
       el("td", {}, el("a", { href: `/records/${rec.record_id}` }, "open reading")))));
     if (!r.readings.length) body.append(el("tr", {}, el("td", { colspan: 10 }, "No reading yet.")));
+    const newest = r.readings.find((x) => x.analysed);
+    $("#band-note").hidden = !newest || newest.zone_graded;
+    $("#band-note").textContent = newest && !newest.zone_graded
+      ? `The readings of this point (${HW.num(newest.fs_hz, 5)} Hz sampling) do not reach the `
+        + "ISO 20816 band, "
+        + "so no zone is graded; the zones are drawn for reference only." : "";
   }
 
   function renderAlarms() {
