@@ -163,7 +163,8 @@
         + "(the machine is far from the threshold, or the bump is below the noise floor). ";
     }
     $("#precursor-note").textContent = why
-      + "γ− = π × half-power width of the noise-excited bump at 0.5X. "
+      + "γ− is the decay rate of the noise-excited mode at 0.5X (from the slow flow locked to 1X, "
+      + "or π × the bump's half-power width). "
       + "A falling γ− means the machine is "
           + "approaching "
       + "the parametric threshold (γ− reaches 0 at onset); it is an early warning, not a detected "

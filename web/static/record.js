@@ -99,7 +99,7 @@
       number("Precursor half-power width", HW.num(p.width_hz, 3), "Hz",
         p.resolved ? "resolved by this reading" : "upper bound: narrower than the resolution"),
       number("Precursor decay rate γ−", HW.num(p.narrow_rate_per_s, 3), "1/s",
-        "γ− = π × width; falls to 0 at the threshold"),
+        p.note ? `${p.note}; falls to 0 at the threshold` : "falls to 0 at the threshold"),
       number("Precursor phase coherence", HW.num(p.coherence, 3), "",
         `a steady line here would give ${HW.num(p.line_coherence, 3)} · evidence: ${p.evidence}`),
       number("Distance to threshold h/h_c", ratio, "",
