@@ -7,6 +7,8 @@ operating window of a point, and one record with its context. All reads; viewers
 
 from __future__ import annotations
 
+import datetime as dt
+
 from fastapi import APIRouter, Depends, Query, Request
 from fastapi.responses import JSONResponse
 from sqlalchemy import select
@@ -61,7 +63,8 @@ def overview(request: Request, principal: Principal = Depends(viewer)):
                              spark_half_order_velocity_rms_mm_s=sparks.get(asset["id"], []),
                              states=sorted({p["state"] for p in pts}))
     with db.read() as s:  # plant page: staleness, sparkline levels, summary strip (services.plant_view)
-        counts = plant_view.decorate(s, tree["sites"], due["routes"], plant_view.parse(due["now"]),
+        now = plant_view.parse(due["now"]) or dt.datetime.now(dt.UTC)
+        counts = plant_view.decorate(s, tree["sites"], due["routes"], now,
                                      lambda s_, aid, ids: point_levels(s_, s_.get(Asset, aid), ids))
     overdue = [{"route_id": r["id"], "route": r["name"], **st} for r in due["routes"] for st in r["stops"]
                if st["status"] in ("due", "overdue")]
