@@ -181,3 +181,24 @@ def test_rules_open_before_incidents_existed_send_no_email_on_a_drop(feeder, pla
     for v in (0.2, 0.2):
         feeder.feed(plant.point_id, make_result(half_v=v))
     assert _incident_mail(db) == [("clear", "planner@example.test")]
+
+
+def test_digest_rows_name_the_whirl_line_and_give_the_margin_in_percent(feeder, plant, migrated_db):
+    from server.alarms.digest import open_alarm_rows
+
+    db = migrated_db
+    _with_fit(db, feeder, plant)
+    for _ in range(3):  # margin 1 - 0.44 / 0.4 = -10 %: danger (5 % level, "below" rule)
+        feeder.feed(plant.point_id, make_result(half_v=0.2, one_x_v=4.4))
+    for v in (0.2, 2.5, 2.6):  # the compressor (ISO group 1: A/B boundary 2.3 mm/s r.m.s.) whirls at 0.43X
+        data = make_result(half_v=v, f1x=25.0, klass="sub-synchronous")
+        data["subharmonic"].update(order=0.43, frequency_hz=0.43 * 25.0)
+        feeder.feed(plant.point_ids["C2-CYL-A"], data)
+    with db.read() as s:
+        rows = open_alarm_rows(s, "site", plant.site_id)
+    assert [r["asset"] for r in rows] == sorted((r["asset"] for r in rows), key=["CW pump 1",
+                                                                                 "Air compressor 2"].index)
+    margin = [r for r in rows if r["metric"] == "threshold_margin"]
+    assert margin and margin[0]["value"] == "-10 % (beyond the threshold)"
+    whirl = [r for r in rows if r["asset"] == "Air compressor 2" and r["metric"] == "half_order_velocity"]
+    assert whirl and whirl[0]["rule"] == "sub-synchronous whirl line (0.43X) velocity r.m.s."
