@@ -22,7 +22,7 @@ demo: $(STAMP)  # make demo PORT=8080 serves on another port
 	$(VENV)/bin/halfwatch demo $(if $(PORT),--port $(PORT))
 
 lint: $(STAMP)
-	$(VENV)/bin/ruff check analysis server tests bench
+	$(VENV)/bin/ruff check analysis server halfwatch_demo tests bench
 	$(VENV)/bin/mypy  # analysis/ and server/services ([tool.mypy] in pyproject.toml)
 
 bench: $(STAMP)

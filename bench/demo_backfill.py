@@ -22,8 +22,8 @@ sys.path[0:1] = [str(Path(__file__).resolve().parents[1])]
 
 
 def _setup(folder: Path):
-    from server.demo import plant as demo_plant
-    from server.demo.run import demo_settings, load_state
+    from halfwatch_demo import plant as demo_plant
+    from halfwatch_demo.run import demo_settings, load_state
     from server.migrations import upgrade
     from server.storage import Database
 
@@ -36,15 +36,15 @@ def _setup(folder: Path):
 
 
 def stages(n: int) -> list[tuple[str, float]]:
-    from server.demo.backfill import compute, make_tasks, store_one
-    from server.demo.schedule import backfill_slots
+    from halfwatch_demo.backfill import compute, make_tasks, store_one
+    from halfwatch_demo.schedule import backfill_slots
 
     with tempfile.TemporaryDirectory() as tmp:
         settings, state, db, ids = _setup(Path(tmp) / "demo")
         anchor = state.anchor_time
         tasks = make_tasks(ids, backfill_slots(anchor - dt.timedelta(days=3), anchor), anchor)[:n]
         from analysis.simulate import simulate
-        from server.demo.scenario import seed_for
+        from halfwatch_demo.scenario import seed_for
 
         t0 = time.perf_counter()
         for t in tasks:
@@ -65,7 +65,7 @@ def stages(n: int) -> list[tuple[str, float]]:
 
 
 def pool(days: float, jobs: int) -> tuple[int, float]:
-    from server.demo.backfill import run_backfill
+    from halfwatch_demo.backfill import run_backfill
 
     with tempfile.TemporaryDirectory() as tmp:
         settings, state, db, ids = _setup(Path(tmp) / "demo")

@@ -30,8 +30,8 @@ ARGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-dev-shm-usage"
 
 
 def serve(folder: Path):
+    from halfwatch_demo.run import DEMO_USERS, demo_settings, load_state
     from server.app import create_app
-    from server.demo.run import DEMO_USERS, demo_settings, load_state
 
     state = load_state(folder)
     settings = demo_settings(folder, state, port=8000, smtp_port=1025).model_copy(

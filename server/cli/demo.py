@@ -1,4 +1,8 @@
-"""``halfwatch demo`` (the invented plant, live) and ``halfwatch mail-sink`` (an SMTP sink for trials)."""
+"""``halfwatch demo`` (the invented plant, live) and ``halfwatch mail-sink`` (an SMTP sink for trials).
+
+The demo plant lives outside the production package, in ``halfwatch_demo`` (shipped with the source tree,
+not with the server image); this is the one module of ``server`` that imports it, and only when one of
+these commands runs (tests/ops/test_layers.py checks that)."""
 
 from __future__ import annotations
 
@@ -6,6 +10,22 @@ import argparse
 from pathlib import Path
 
 from server.cli import UsageError
+
+DEMO_MISSING = ("the demo plant (package halfwatch_demo) is not installed here: it ships with the halfwatch "
+                "source tree, not with the server image. In a checkout of the source run `make demo`, or "
+                "`pip install -e .` and then `halfwatch demo`")
+
+
+def demo_module(name: str):
+    """``halfwatch_demo.<name>``, imported on use; a UsageError that says what to install if it is missing."""
+    import importlib
+
+    try:
+        return importlib.import_module(f"halfwatch_demo.{name}")
+    except ModuleNotFoundError as exc:
+        if (exc.name or "").split(".")[0] != "halfwatch_demo":
+            raise  # something the demo itself needs: its own message names it
+        raise UsageError(DEMO_MISSING) from None
 
 
 def _port_free(port: int) -> bool:
@@ -23,9 +43,9 @@ def cmd_demo(args) -> int:
     import logging
     import time
 
-    from server.demo.mailsink import free_port, shown, start_sink
-    from server.demo.run import prepare, send_mail_now, serve
-
+    mailsink, run = demo_module("mailsink"), demo_module("run")
+    free_port, shown, start_sink = mailsink.free_port, mailsink.shown, mailsink.start_sink
+    prepare, send_mail_now, serve = run.prepare, run.send_mail_now, run.serve
     if args.days <= 0 or args.days > 400:
         raise UsageError(f"--days {args.days:g}: give 1 to 400 days of history")
     if args.interval < 0.5:
@@ -62,8 +82,7 @@ def cmd_mail_sink(args) -> int:
     import signal
     import threading
 
-    from server.demo.mailsink import start_sink
-
+    start_sink = demo_module("mailsink").start_sink
     folder = Path(args.dir)
     try:
         sink = start_sink(folder, host=args.host, port=args.port)

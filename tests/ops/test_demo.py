@@ -1,6 +1,6 @@
 """``halfwatch demo`` on a small scale: backfill, alarms, emails in the sink, a second run, live serving.
 
-The demo's data are invented (server/demo); what is checked against outside facts is how the
+The demo's data are invented (halfwatch_demo); what is checked against outside facts is how the
 analysis and the alarm rules judge them: the ISO 20816-3 zone boundaries for group 2 on a flexible
 support (A/B 2.3, B/C 4.5 mm/s r.m.s., from memory, as in server/alarms/rules.py), whirl at 0.40-0.48X
 (common practice), a half-order family at 1.5X (common practice), and the weekly route timing.

@@ -13,7 +13,7 @@ import math
 
 import pytest
 
-from server.demo import plant, scenario, schedule
+from halfwatch_demo import plant, scenario, schedule
 
 ANCHOR = dt.datetime(2026, 3, 4, 12, 0, tzinfo=dt.UTC)
 FLEX_AB, FLEX_BC = 2.3, 4.5  # ISO 20816-3 group 2, flexible, mm/s r.m.s. (from memory)
@@ -66,7 +66,7 @@ def test_feed_pump_whirls_and_vp103_shows_steady_looseness():
     loose = analyse("VP-103", -10.0, online=False)
     assert loose["subharmonic"]["class"] == "half-order"
     # the half-order family (common practice): the scenario sets 1.5X at 0.6 and 2.5X at 0.3 of the 0.5X
-    # acceleration peak (server/demo/scenario.py, the simulator's truth); the analysis must find both
+    # acceleration peak (halfwatch_demo/scenario.py, the simulator's truth); the analysis must find both
     fam, half = loose["subharmonic"]["family"], loose["subharmonic"]["accel_peak"]
     assert fam["1.5X"] / half == pytest.approx(0.6, rel=0.15)
     assert fam["2.5X"] / half == pytest.approx(0.3, rel=0.2)

@@ -106,7 +106,7 @@ def test_cautions_of_the_trade_are_stated():
 def test_no_absolute_machine_paths_in_the_docs_and_demo():
     files = [ROOT / "README.md", ROOT / "DEVELOPERS.md", ROOT / "docker-compose.yml", ROOT / "Dockerfile",
              ROOT / ".env.example", *sorted((ROOT / "docs").glob("*.md")),
-             *sorted((ROOT / "server" / "demo").glob("*.py"))]
+             *sorted((ROOT / "halfwatch_demo").glob("*.py"))]
     absolute = re.compile(r"(?<![\w.])/(work|root|tmp|home)/")
     for path in files:
         text = path.read_text()

@@ -4,6 +4,8 @@
   (analysis, storage, services, alarms, the worker, MQTT, errors) imports FastAPI or Starlette.
 * The worker's loop (server/worker/loop.py) writes nothing itself: results go through server/worker/store.py,
   claims and failures through server/worker/claim.py.
+* The demo plant (halfwatch_demo/) stays out of production: nothing in ``server/`` imports it except the
+  ``halfwatch demo`` command's own module (server/cli/demo.py), which imports it on use.
 * One home per rule: each formula, table, precedence, bucketing and forecast below is written once; a
   second copy anywhere in ``server/`` or ``analysis/`` fails the test with the file that holds it.
 """
@@ -82,7 +84,7 @@ ONE_HOME = {
 # the CLI runs each method on a user's own data; the numerics below are the method's definition
 ONE_HOME_SCOPE = ["server/alarms", "server/services", "server/routes", "server/storage", "server/worker",
                   "analysis/window.py", "analysis/tongue.py", "analysis/severity.py", "analysis/trend.py",
-                  "server/demo"]
+                  "halfwatch_demo"]
 
 
 @pytest.mark.parametrize("rule", list(ONE_HOME))
@@ -137,3 +139,45 @@ def test_the_write_check_sees_writes():
     store = _writes(ROOT / "server/worker/store.py")
     assert any("_INSERT_RESULT" in w for w in store) and any("unit_of_work()" in w for w in store)
     assert any("write()" in w for w in _writes(ROOT / "server/worker/claim.py"))
+
+
+DEMO_ENTRY = "server/cli/demo.py"
+_DEMO_DYNAMIC = re.compile(r"""(import_module|__import__)\(\s*f?["']halfwatch_demo""")
+
+
+def _demo_imports(path: Path) -> list[str]:
+    """The halfwatch_demo imports of a module: import statements and importlib/__import__ by name."""
+    found = sorted(n for n in _imports(path) if n.split(".")[0] == "halfwatch_demo")
+    return found + [m.group(0) for m in _DEMO_DYNAMIC.finditer(path.read_text())]
+
+
+def test_production_never_imports_the_demo_plant():
+    bad = {str(p.relative_to(ROOT)): _demo_imports(p) for p in _py("server", "analysis")
+           if str(p.relative_to(ROOT)) != DEMO_ENTRY}
+    assert not {k: v for k, v in bad.items() if v}
+    assert not (ROOT / "server" / "demo").exists()  # the old home is gone, not merely unused
+
+
+def test_the_demo_check_sees_the_entry_and_the_demo_itself():
+    """The checker can fail: the demo CLI entry (allowed) and the demo's own modules are seen importing it."""
+    assert _demo_imports(ROOT / DEMO_ENTRY)
+    assert "halfwatch_demo.backfill" in _demo_imports(ROOT / "halfwatch_demo/run.py")
+
+
+@pytest.mark.parametrize("argv", [["demo", "--no-serve", "--days", "1"], ["mail-sink", "--port", "0"]])
+def test_the_demo_commands_say_what_to_install_without_the_demo_package(argv, monkeypatch, capsys, tmp_path):
+    """A server installed without halfwatch_demo: ``halfwatch demo`` exits 2 with a one-line message that says
+    how to get it, not a traceback (None in sys.modules makes the import fail as a missing package would)."""
+    import sys
+
+    from server.cli import main
+
+    monkeypatch.chdir(tmp_path)
+    for name in [n for n in sys.modules if n.split(".")[0] == "halfwatch_demo"]:
+        monkeypatch.delitem(sys.modules, name)
+    monkeypatch.setitem(sys.modules, "halfwatch_demo", None)
+    assert main(argv) == 2
+    err = capsys.readouterr().err
+    assert f"halfwatch {argv[0]}: the demo plant (package halfwatch_demo) is not installed" in err
+    assert "make demo" in err and "pip install -e ." in err
+    assert not list(tmp_path.iterdir())  # it stopped before writing anything

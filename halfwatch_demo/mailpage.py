@@ -12,7 +12,7 @@ from pathlib import Path
 from fastapi import APIRouter
 from fastapi.responses import HTMLResponse
 
-from server.demo.mailsink import list_messages, message_text, shown
+from halfwatch_demo.mailsink import list_messages, message_text, shown
 
 CAUTION = ("Simulated plant. halfwatch is condition monitoring, not a protection or trip system; site rules, "
            "the manufacturer's limits and local codes take precedence; work on machines follows the site's "

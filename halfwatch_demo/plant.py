@@ -1,7 +1,7 @@
 """The invented demo plant, "Sallowmere Works": four areas, thirteen machines, two weekly routes.
 
 The works, its machines and their stories are our own invention for the demo. Each asset names a
-``behaviour`` that :mod:`server.demo.scenario` turns into simulator settings over time:
+``behaviour`` that :mod:`halfwatch_demo.scenario` turns into simulator settings over time:
 
 ``healthy``     1X and harmonics at steady levels
 ``onset``       vertical pump VP-102: a speed-setpoint rise puts 0.5X onto a motor-stand mode; the

@@ -13,8 +13,8 @@ import logging
 import threading
 import time
 
-from server.demo import plant as demo_plant
-from server.demo.scenario import condition, seed_for
+from halfwatch_demo import plant as demo_plant
+from halfwatch_demo.scenario import condition, seed_for
 
 log = logging.getLogger("halfwatch.demo")
 

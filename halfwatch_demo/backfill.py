@@ -25,9 +25,9 @@ from types import SimpleNamespace
 
 from sqlalchemy import select
 
-from server.demo import plant as demo_plant
-from server.demo.scenario import condition, seed_for
-from server.demo.schedule import backfill_slots, online_slots
+from halfwatch_demo import plant as demo_plant
+from halfwatch_demo.scenario import condition, seed_for
+from halfwatch_demo.schedule import backfill_slots, online_slots
 
 log = logging.getLogger("halfwatch.demo")
 

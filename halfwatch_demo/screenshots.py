@@ -1,6 +1,6 @@
 """Screenshots of the running demo for the README, taken in headless Chromium.
 
-    python -m server.demo.screenshots http://127.0.0.1:8000 erin PASSWORD docs/screenshots
+    python -m halfwatch_demo.screenshots http://127.0.0.1:8000 erin PASSWORD docs/screenshots
 
 Logs in as the given user, opens the main pages of the demo plant (overview, the onset asset VP-102,
 its latest record, its operating window, alarms, routes, outgoing mail) and writes one PNG per page.

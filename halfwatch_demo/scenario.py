@@ -18,7 +18,7 @@ import math
 import zlib
 from dataclasses import dataclass
 
-from server.demo.plant import AssetSpec, PointSpec
+from halfwatch_demo.plant import AssetSpec, PointSpec
 
 G = 9.80665
 ONSET_CHANGE_DAY = -34.0

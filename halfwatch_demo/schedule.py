@@ -10,7 +10,7 @@ from __future__ import annotations
 import datetime as dt
 from dataclasses import dataclass
 
-from server.demo.plant import ASSETS, ROUTES, tag
+from halfwatch_demo.plant import ASSETS, ROUTES, tag
 
 MISSED_WEEK = 6  # the intake walk of this many weeks before the anchor did not happen
 SKIPPED_ON_LAST_WALKS = ("CHW-1", "PW-4")

@@ -18,7 +18,7 @@ from pathlib import Path
 
 from sqlalchemy import select
 
-from server.demo import plant as demo_plant
+from halfwatch_demo import plant as demo_plant
 
 log = logging.getLogger("halfwatch.demo")
 
@@ -126,7 +126,7 @@ def ensure_people(db, settings, state: DemoState, folder: Path) -> None:
 
 def prepare(folder: Path, *, days: float, port: int, smtp_port: int, jobs: int | None, say=print):
     """Migrate, create the plant and people, backfill; returns (settings, state, db, point ids, report)."""
-    from server.demo.backfill import run_backfill
+    from halfwatch_demo.backfill import run_backfill
     from server.migrations import upgrade
     from server.storage import Database
 
@@ -152,7 +152,7 @@ def send_mail_now(db, settings) -> int:
 
 
 def banner(settings, state: DemoState, mail_dir: Path) -> str:
-    from server.demo.mailsink import shown
+    from halfwatch_demo.mailsink import shown
 
     base = settings.public_base_url
     logins = "\n".join(f"    {role:<11} {DEMO_USERS[role]:<6} password {state.passwords[role]}"
@@ -173,9 +173,9 @@ def serve(settings, state: DemoState, db, point_ids: dict[str, int], mail_dir: P
     """Run the API with its worker (which also sends the alert emails) and the live sensors until Ctrl-C."""
     import uvicorn
 
+    from halfwatch_demo.live import LiveSensors
+    from halfwatch_demo.mailpage import mail_router
     from server.app import create_app
-    from server.demo.live import LiveSensors
-    from server.demo.mailpage import mail_router
 
     app = create_app(settings)
     app.include_router(mail_router(mail_dir))
@@ -200,7 +200,7 @@ def serve(settings, state: DemoState, db, point_ids: dict[str, int], mail_dir: P
         stop.set()
         if sensors.is_alive():
             sensors.join(timeout=20)
-        from server.demo.mailsink import shown
+        from halfwatch_demo.mailsink import shown
 
         say(f"halfwatch demo stopped ({sensors.sent} live readings sent this run); the data stay in "
             f"{shown(settings.data_dir)}")
