@@ -10,13 +10,14 @@ from __future__ import annotations
 
 import datetime as dt
 
-from sqlalchemy import select
+from sqlalchemy import func, select
 
 from server.storage.tables import Asset, utcnow
 
 from .rules import LEVEL_RANK
 from .service import VIEWS, AlarmInputError, AlarmNotFound, _audit, _check_until, _level, _text, list_alarms
-from .tables import AlarmIncident, AlarmState
+from .suggestions import ranked_causes
+from .tables import AlarmEvent, AlarmIncident, AlarmState
 
 
 def _rule_view(r: dict) -> str:
@@ -52,6 +53,7 @@ def list_incidents(db, *, view: str = "active", site_id=None, area_id=None, asse
         opened = {i.asset_id: i for i in s.scalars(select(AlarmIncident).where(
             AlarmIncident.asset_id.in_(list(grouped)), AlarmIncident.cleared_at.is_(None)))
             } if grouped else {}
+        causes = _likely_causes(s, grouped)
     out = []
     for aid, items in grouped.items():
         items.sort(key=lambda r: (-LEVEL_RANK[r["level"]], r["point"], r["rule"]))
@@ -70,8 +72,27 @@ def list_incidents(db, *, view: str = "active", site_id=None, area_id=None, asse
             "opened_at": inc.opened_at.isoformat() if inc else first,
             "announced_level": inc.announced_level if inc else None,
             "rules_at_level": sum(r["level"] == top for r in items), "rules": items,
+            "cause": causes.get(aid),
         })
     out.sort(key=lambda d: (-LEVEL_RANK[d["level"]], -d["rules_at_level"], d["opened_at"], d["asset"]))
+    return out
+
+
+def _likely_causes(s, grouped: dict[int, list[dict]]) -> dict[int, dict]:
+    """Per machine, the best-supported cause from the snapshot of its latest transition (the same ranking
+    as the email: :func:`server.alarms.suggestions.ranked_causes`)."""
+    if not grouped:
+        return {}
+    latest = (select(func.max(AlarmEvent.id)).where(AlarmEvent.asset_id.in_(list(grouped)),
+                                                     AlarmEvent.kind == "transition")
+              .group_by(AlarmEvent.asset_id))
+    out = {}
+    for e in s.scalars(select(AlarmEvent).where(AlarmEvent.id.in_(latest))):
+        d = e.details or {}
+        at = e.created_at if e.created_at.tzinfo else e.created_at.replace(tzinfo=dt.UTC)
+        best = ranked_causes(d.get("finding") or {}, d.get("metrics") or {}, d.get("evidence") or {}, at=at,
+                             rules=[r["metric"] for r in grouped.get(e.asset_id, [])])[0]
+        out[e.asset_id] = {"title": best.title, "why": list(best.why), "action": best.action}
     return out
 
 

@@ -118,6 +118,11 @@ def test_one_incident_per_machine_worst_first_with_its_rules(browser, alarm_site
         whirl = [r for r in cards[1]["rules"] if "whirl" in r[2]]
         assert whirl and all("sub-synchronous whirl line (0.43X)" in r[2] for r in whirl)
         assert not any("half-order" in r[2] for r in cards[1]["rules"])
+        # each card leads with the best-supported cause; a line at 0.43X not locked to 0.5X is fluid-film
+        # whirl (common practice in machinery diagnostics)
+        cause = page.locator("article.incident", has_text="Air compressor 2").locator(".incident-cause")
+        assert cause.inner_text().startswith(
+            "Likely cause: Fluid-film bearing whirl — because the line at 0.43X")
         # ISO 8601 times, 24-hour, whatever the browser's locale (en-US here)
         assert all(ISO_MINUTE.match(r[4]) for c in cards for r in c["rules"]), cards
         # compact: no form fields on the rows, one dialog for every action

@@ -109,6 +109,8 @@
       el("span", { class: "muted" }, `${inc.area} · ${n} rule${n === 1 ? "" : "s"} · opened ${HW.when(inc.opened_at, tz)}`
         + ` · ${inc.state}`),
       actionButtons(inc, inc.state === "shelved", inc.state !== "active")),
+    inc.cause ? el("p", { class: "incident-cause" }, el("strong", {}, `Likely cause: ${inc.cause.title}`),
+      ` — because ${inc.cause.why.join("; ")}. `, el("span", { class: "cause-action" }, inc.cause.action)) : null,
     el("table", { class: "grid rules" },
       el("thead", {}, el("tr", {}, ...["Level", "Point", "Rule", "Value", "Since", "State", "Actions"]
         .map((h) => el("th", { scope: "col" }, h)))),
