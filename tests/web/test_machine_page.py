@@ -200,6 +200,10 @@ def test_recent_readings_table_has_the_result_columns(login, site):
         assert cells[6] == sig3(r.growth_rate_per_s)
     assert any(r.sub_detected for r in db_rows) and any(not r.sub_detected for r in db_rows)
     assert page.locator("#band-note").is_hidden()  # 2560 Hz readings reach 1000 Hz: zones graded
+    values = page.locator("#alarm-states tbody td:nth-child(4)").all_inner_texts()
+    assert values and not any(re.search(r"\d[eE][-+]?\d", v) for v in values)  # plain numbers
+    measures = ("mm/s r.m.s.", "1/s", "%", "dB/day", "days", ")")
+    assert all(v.endswith(measures) for v in values), values
 
 
 def test_dates_are_typed_and_shown_in_iso_form_whatever_the_locale(browser, site):

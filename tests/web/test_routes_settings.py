@@ -174,6 +174,8 @@ def test_settings_use_names_units_and_words(login, site):
     # ISO 20816-3 Annex A, group 2 on flexible support: B/C 4.5, C/D 7.1 mm/s r.m.s. (values from memory)
     assert "alert from the B/C boundary 4.5 mm/s r.m.s." in zone_rule
     assert "danger from the C/D boundary 7.1 mm/s r.m.s." in zone_rule
+    margin = page.locator("#rules-table tr[data-metric='threshold_margin']").inner_text()
+    assert "as a fraction (0.2 = 20 %)" in margin  # the margin's level is a fraction, shown as a percentage
     assert not violations(page), describe(violations(page))
 
 

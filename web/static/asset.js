@@ -282,11 +282,18 @@
         + "so no zone is graded; the zones are drawn for reference only." : "";
   }
 
+  /* An alarm's value with its measure (the server's value_text; a bare ratio gets its measure here). */
+  function valueText(a) {
+    const text = a.value_text || `${HW.num(a.value)} ${a.unit || ""}`.trim();
+    if (!/^-?[\d.]+$/.test(text)) return text;
+    return a.metric === "half_order_ratio" ? `${text} × 1X (peak / peak)` : `${text} ${a.unit || "(ratio)"}`;
+  }
+
   function renderAlarms() {
     const body = $("#alarm-states tbody");
     body.replaceChildren(...asset.alarms.map((a) => el("tr", {},
       el("td", {}, HW.levelBadge(a.level)), el("td", {}, a.point), el("td", {}, a.rule),
-      el("td", {}, `${HW.num(a.value)} ${a.unit}`), el("td", {}, HW.when(a.since, tz)),
+      el("td", {}, valueText(a)), el("td", {}, HW.when(a.since, tz)),
       el("td", {},
         a.shelved ? `shelved until ${HW.when(a.shelved_until, tz)}` : a.acknowledged ? `acknowledged by `
             + `${a.acked_by}` : "active"))));

@@ -156,7 +156,8 @@
       const g = el("input", { type: "number", step: "any", value: r.danger ?? "",
         "aria-label": `${r.label} danger level`, disabled: r.zone_based });
       const en = el("input", { type: "checkbox", checked: r.enabled, "aria-label": `${r.label} enabled` });
-      const unit = r.unit ? el("span", { class: "unit" }, ` ${r.unit}`) : null;
+      const unitText = r.unit || (r.metric === "threshold_margin" ? "as a fraction (0.2 = 20 %)" : "");
+      const unit = unitText ? el("span", { class: "unit" }, ` ${unitText}`) : null;
       const levelCells = r.zone_based
         ? [el("td", { colspan: 2, class: "zone-rule" }, `Levels ${zoneWords(r)}.`)]
         : [el("td", {}, a, unit), el("td", {}, g, unit && unit.cloneNode(true))];
