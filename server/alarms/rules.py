@@ -78,14 +78,30 @@ LINE_LABELS = {
 
 def value_text(metric: str, value) -> str:
     """A rule's value as a planner reads it, with its measure: the margin as a percentage everywhere
-    ("-6 % (beyond the threshold)"), the others to 3 significant digits with their unit."""
+    ("-6 % (beyond the threshold)"), the ratio as "× 1X (peak / peak)", the others in plain numbers to
+    3 significant digits with their unit."""
     if not _finite(value):
         return "n/a"
     if metric == "threshold_margin":
         text = f"{100.0 * value:.0f} %"
         return text + " (beyond the threshold)" if value < 0 else text
+    if metric == "half_order_ratio":
+        return f"{plain_number(value)} × 1X (peak / peak)"
     unit = METRICS[metric].unit if metric in METRICS else ""
-    return f"{value:.3g} {unit}".strip()
+    return f"{plain_number(value)} {unit}".strip()
+
+
+def plain_number(value: float, digits: int = 3) -> str:
+    """A number in plain positional form (never "3.82e-05") to ``digits`` significant digits; whole
+    numbers from 10^digits up are rounded to units (the pages' HW.num does the same)."""
+    a = abs(value)
+    if a == 0:
+        return "0"
+    if a >= 10**digits:
+        return str(round(value))
+    places = max(0, digits - 1 - math.floor(math.log10(a)))
+    text = f"{value:.{min(places, 20)}f}"
+    return text.rstrip("0").rstrip(".") if "." in text else text
 
 
 def line_name(line_class: str | None, order: float | None = None) -> str:

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
@@ -114,3 +115,15 @@ def test_one_outlier_never_changes_a_settled_level_with_2_of_3(vals, where, outl
     rule = RuleSpec("half_order_velocity", 1.4, 2.8, k=2, n=3, hysteresis=0.1)
     settled = run(rule, [vals[0]] * 3)[-1]
     assert run(rule, [vals[0]] * 3 + [outlier])[-1] == settled
+
+
+@pytest.mark.parametrize("x", [3.82e-5, -0.00123, 0.547, 5.789, 12.34, 999.4, 12345.6, 1.0, 0.1])
+def test_values_are_plain_numbers_to_three_significant_digits(x):
+    from server.alarms.rules import plain_number, value_text
+
+    text = plain_number(x)
+    assert "e" not in text.lower()  # positional, never "3.82e-05"
+    # the same value as Python's own rounding to 3 significant digits ("g" format; units from 10^3 up)
+    assert float(text) == (round(x) if abs(x) >= 1000 else float(f"{x:.3g}"))
+    assert value_text("growth_rate", 3.82e-5) == "0.0000382 1/s"
+    assert value_text("half_order_ratio", 0.547) == "0.547 × 1X (peak / peak)"  # acceleration peaks
