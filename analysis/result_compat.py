@@ -14,7 +14,7 @@ import math
 
 import numpy as np
 
-from .results import (
+from analysis.results import (
     ANALYSIS_VERSION,
     SQRT2,
     Forcing,

@@ -342,7 +342,7 @@ class RecordAnalysis:
     @classmethod
     def from_dict(cls, data: dict) -> RecordAnalysis:
         """Read a stored ``to_dict()`` of any version back (see :mod:`analysis.result_compat`)."""
-        from .result_compat import record_analysis_from_dict
+        from analysis.result_compat import record_analysis_from_dict
 
         return record_analysis_from_dict(data)
 

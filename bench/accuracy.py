@@ -25,10 +25,10 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from analysis import pipeline  # noqa: E402
-from analysis.pipeline import analyze_record  # noqa: E402
-from analysis.sim_scoring import growth_case, score  # noqa: E402
-from analysis.simulate import simulate  # noqa: E402
+from analysis.record import pipeline  # noqa: E402
+from analysis.record.pipeline import analyze_record  # noqa: E402
+from analysis.sim.sim_scoring import growth_case, score  # noqa: E402
+from analysis.sim.simulate import simulate  # noqa: E402
 
 FS, DUR, FW, NOISE = 8192.0, 16.0, 24.75, 0.02
 

@@ -29,7 +29,7 @@ _HERE = Path(__file__).resolve().parent
 sys.path[:] = [p for p in sys.path if Path(p or ".").resolve() != _HERE] + [str(_HERE.parent)]
 
 from analysis import analyze_record, pipeline  # noqa: E402
-from analysis.spectrum import choose_nperseg  # noqa: E402
+from analysis.record.spectrum import choose_nperseg  # noqa: E402
 
 FS, F1 = 2560.0, 29.6
 

@@ -43,7 +43,7 @@ def stages(n: int) -> list[tuple[str, float]]:
         settings, state, db, ids = _setup(Path(tmp) / "demo")
         anchor = state.anchor_time
         tasks = make_tasks(ids, backfill_slots(anchor - dt.timedelta(days=3), anchor), anchor)[:n]
-        from analysis.simulate import simulate
+        from analysis.sim.simulate import simulate
         from halfwatch_demo.scenario import seed_for
 
         t0 = time.perf_counter()

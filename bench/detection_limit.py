@@ -30,7 +30,7 @@ from scipy import stats
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from analysis.pipeline import analyze_record  # noqa: E402
+from analysis.record.pipeline import analyze_record  # noqa: E402
 
 FS, F1, SIGMA = 160.0, 25.0, 0.1  # sample rate Hz, 1X Hz, noise r.m.s. g
 LENGTHS = (50, 150, 400)  # cycles of 1X

@@ -1,6 +1,6 @@
 """Decay rate γ− of a noise-excited 0.5X bump below threshold: the spectral half-power width (π × width,
 an upper bound when the bump is not resolved) against the slow flow locked to the 1X phase
-(analysis/slow_flow.py), on simulated records (analysis.simulate 'parametric' below threshold).
+(analysis/record/slow_flow.py), on simulated records (analysis.simulate 'parametric' below threshold).
 
     .venv/bin/python bench/precursor_rate.py [--seeds 6] [--duration-s 300]
 """
@@ -19,9 +19,9 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 
 def main(argv=None) -> int:
-    from analysis.pipeline import analyze_record
-    from analysis.simulate import simulate
-    from analysis.slow_flow import estimate
+    from analysis.record.pipeline import analyze_record
+    from analysis.record.slow_flow import estimate
+    from analysis.sim.simulate import simulate
 
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--seeds", type=int, default=6)

@@ -22,10 +22,10 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from analysis import stability as st  # noqa: E402
-from analysis import window as win  # noqa: E402
-from analysis import window_fit as wf  # noqa: E402
-from analysis.sim_history import simulate_history  # noqa: E402
+from analysis.physics import stability as st  # noqa: E402
+from analysis.physics import window as win  # noqa: E402
+from analysis.physics import window_fit as wf  # noqa: E402
+from analysis.sim.sim_history import simulate_history  # noqa: E402
 
 
 def timed(fn, repeats: int) -> float:
@@ -110,7 +110,7 @@ def main() -> int:
 
 def simulator_table() -> None:
     """Time per simulated record (16 s at 8192 Hz) against drawing the same number of normal deviates."""
-    from analysis.simulate import KINDS, simulate
+    from analysis.sim.simulate import KINDS, simulate
 
     n = int(16 * 8192)
     floor = timed(lambda: np.random.default_rng(0).standard_normal(n), 20)

@@ -24,8 +24,8 @@ from scipy import stats
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from analysis.sim_history import repeat_readings, simulate_history  # noqa: E402
-from analysis.window import fit_operating_window  # noqa: E402
+from analysis.physics.window import fit_operating_window  # noqa: E402
+from analysis.sim.sim_history import repeat_readings, simulate_history  # noqa: E402
 
 TRUTH = {"f0_hz": 12.4, "zeta": 0.012, "k": 0.25}
 

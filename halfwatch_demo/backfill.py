@@ -72,7 +72,7 @@ def make_tasks(point_ids: dict[str, int], slots, anchor: dt.datetime) -> list[Ta
 
 def compute(task: Task):
     """Simulate one reading and analyse it exactly as the worker would (runs in the pool)."""
-    from analysis.simulate import simulate
+    from analysis.sim.simulate import simulate
     from server.storage.blobs import as_f4
     from server.worker import analyse
 

@@ -21,7 +21,7 @@ log = logging.getLogger("halfwatch.demo")
 
 def reading(asset, point, when: dt.datetime, anchor: dt.datetime):
     """(float32 samples, query parameters) of one simulated reading at ``when``."""
-    from analysis.simulate import simulate
+    from analysis.sim.simulate import simulate
     from server.storage.blobs import as_f4
 
     iso = when.strftime("%Y%m%dT%H%M%S.%f")

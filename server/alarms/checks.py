@@ -19,7 +19,7 @@ import statistics
 
 import numpy as np
 
-from analysis.trend import DB_PER_NEPER
+from analysis.physics.trend import DB_PER_NEPER
 
 # Flags of the measurement chain that make a record unfit for machine alarms. A record the analysis
 # marks not ok is unfit too, unless its only flags are notes such as "too-short-for-resolution".
@@ -227,7 +227,7 @@ def detailed_forecast(history: list[list[float]], *, limit: float | None, band_p
     of the crossing) on its buckets with a line. Emails and charts call this with the same buckets, so
     they give the same date. It costs milliseconds, so the engine calls it only when a level changes.
     """
-    from analysis.trend import fit_trend
+    from analysis.physics.trend import fit_trend
 
     points = [(ts / 86400.0, a) for ts, a in history if a and a > 0]
     if len(points) < 5:

@@ -31,7 +31,7 @@ def window_conclusion(fit: dict | None, amp_1x, speed_hz, *, forcing_per_rev: fl
     """The window conclusion as a dict, or ``None`` without a usable fit (or before the function exists)."""
     if not fit or fit.get("status") != "fit" or _num(amp_1x) is None or _num(speed_hz) is None:
         return None
-    import analysis.window as window
+    import analysis.physics.window as window
 
     conclude = getattr(window, "conclusion", None)
     if conclude is None:

@@ -20,7 +20,7 @@ import logging
 
 from sqlalchemy import func, select
 
-from analysis.window import threshold_margin as _threshold_margin
+from analysis.physics.window import threshold_margin as _threshold_margin
 
 log = logging.getLogger(__name__)
 

@@ -21,8 +21,8 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass, field, replace
 
+from analysis.record.severity import ZONE_LIMITS_MM_S
 from analysis.results import RecordAnalysis
-from analysis.severity import ZONE_LIMITS_MM_S
 
 LEVELS = ("normal", "alert", "danger")
 LEVEL_RANK = {name: i for i, name in enumerate(LEVELS)}

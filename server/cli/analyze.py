@@ -15,7 +15,7 @@ from pathlib import Path
 
 from server.cli import UsageError
 
-#: extensions a folder is searched for (the readers' formats, analysis/io.py)
+#: extensions a folder is searched for (the readers' formats, analysis/record/io.py)
 RECORD_EXTENSIONS = (".wav", ".csv", ".tsv", ".uff", ".unv", ".uf")
 
 
@@ -76,7 +76,7 @@ def _growth_text(g: dict, s: dict, units: str) -> str:
     lo, hi = g["ci95_per_s"]
     text = f"{g['state']} {g['rate_per_s']:.2g} /s [{lo:.2g}, {hi:.2g}] (95 %)"
     if g["state"] == "growing":
-        from analysis.conditioning import velocity_mm_s
+        from analysis.record.conditioning import velocity_mm_s
 
         text += f", doubling every {g['doubling_time_s']:.2g} s"
         if g["onset_s"] is not None:
@@ -100,7 +100,7 @@ def summary(d: dict) -> str:
         f"{d['units']}",
         f"1X: {f['frequency_hz']:.4g} Hz ({f['frequency_hz'] * 60:.0f} r/min, {src})",
     ]
-    if f.get("tracking", "none") != "none":  # order tracking (analysis/orders.py)
+    if f.get("tracking", "none") != "none":  # order tracking (analysis/record/orders.py)
         how = "tachometer pulses" if f["tracking"] == "tach" else "the record's own 1X phase"
         lines.append(
             f"  speed moved {_fmt(f['speed_min_hz'], '.4g')}-{_fmt(f['speed_max_hz'], '.4g')} Hz within the "
@@ -172,8 +172,8 @@ def record_files(paths: list[str]) -> list[Path]:
 def analyse_file(path: Path, args: argparse.Namespace) -> dict:
     """The result dict of one file (SignalError for a bad file, bad tach or bad signal)."""
     from analysis import SignalError, analyze_record
-    from analysis.io import read_any
-    from analysis.tach import pulses_from_channel
+    from analysis.record.io import read_any
+    from analysis.record.tach import pulses_from_channel
 
     rec = read_any(str(path), str(path), units=args.units, sample_rate_hz=args.sample_rate,
                    tach_channel=args.tach_channel)

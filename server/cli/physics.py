@@ -123,7 +123,7 @@ def _fmt(v, spec=".4g", none="-") -> str:
 
 
 def cmd_stability(args: argparse.Namespace) -> int:
-    from analysis.stability import stability_summary
+    from analysis.physics.stability import stability_summary
 
     try:
         s = stability_summary(args.f0, args.zeta, args.forcing_hz, args.modulation).to_dict()
@@ -249,7 +249,7 @@ def _flag(v: str, line: int, path: str):
 def cmd_window(args: argparse.Namespace) -> int:
     import numpy as np
 
-    from analysis.window import conclusion, fit_operating_window
+    from analysis.physics.window import conclusion, fit_operating_window
 
     h = read_history(args.history)
     if "present" not in h and args.present_above is not None and h.get("amp_sub") is not None:
@@ -314,7 +314,7 @@ def cmd_window(args: argparse.Namespace) -> int:
 
 
 def cmd_trend(args: argparse.Namespace) -> int:
-    from analysis.trend import fit_trend
+    from analysis.physics.trend import fit_trend
 
     h = read_history(args.history)
     col = args.column
@@ -386,7 +386,7 @@ def cmd_simulate(args: argparse.Namespace) -> int:
     import numpy as np
     from scipy.io import wavfile
 
-    from analysis.simulate import simulate
+    from analysis.sim.simulate import simulate
 
     params: dict = dict(CLI_PRESETS.get(args.kind, {}))
     for item in args.set:
@@ -434,7 +434,7 @@ def _simulate_history(out: Path, seed: int, params: dict) -> int:
     """Write an invented history CSV (the columns of HISTORY_COLUMNS) and its truth as JSON."""
     import numpy as np
 
-    from analysis.sim_history import simulate_history
+    from analysis.sim.sim_history import simulate_history
 
     if out.suffix.lower() != ".csv":
         raise UsageError(f"--out must name a .csv file for kind history, got {out}")

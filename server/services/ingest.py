@@ -49,7 +49,7 @@ class Limits:
 
 def check_signal(samples, fs_hz, units: str | None, limits: Limits) -> tuple[np.ndarray, float, str]:
     """Return (float32 samples, fs, canonical units) or raise an AppError/SignalError naming the field."""
-    from analysis.validate import normalize_units, validate_samples
+    from analysis.record.validate import normalize_units, validate_samples
 
     try:
         fs = float(fs_hz)

@@ -13,7 +13,7 @@ def read_file(data: bytes, filename: str, *, units: str | None, fs_hz: float | N
               tach_channel: int | None = None):
     """The analysis core's readers (SignalError for a bad file); ``tach_channel`` (from 1) comes back in
     ``Recording.tach``."""
-    from analysis.io import read_any
+    from analysis.record.io import read_any
 
     if not data:
         raise AppError("the file is empty", field="file")

@@ -11,13 +11,13 @@ import math
 
 from sqlalchemy import select
 
-from analysis.conditioning import velocity_mm_s
-from analysis.severity import iso_band
+from analysis.record.conditioning import velocity_mm_s
+from analysis.record.severity import iso_band
 from server.storage.packing import unpack_arrays
 from server.storage.queries import SPECTRUM_MEASURES, iso
 from server.storage.tables import Record, Result
 
-#: the zone limits' source as the page and the machine page say it (the table is analysis/severity.py)
+#: the zone limits' source as the page and the machine page say it (the table is analysis/record/severity.py)
 LIMITS_SOURCE = ("Zone limits: ISO 20816-3:2022, Annex A (the same values as ISO 10816-3:2009), for the "
                  "machine group and support set on this machine. Check them against your copy of the "
                  "standard and your site's own limits; the machine manufacturer's limits take precedence.")

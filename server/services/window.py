@@ -21,7 +21,7 @@ import math
 
 from sqlalchemy import select
 
-from analysis.window import conclusion, fit_operating_window, threshold_amplitude
+from analysis.physics.window import conclusion, fit_operating_window, threshold_amplitude
 from server.storage.queries import iso
 from server.storage.tables import Result
 

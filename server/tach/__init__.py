@@ -29,7 +29,7 @@ class Tach:
 
     @property
     def mean_speed_hz(self) -> float:
-        from analysis.tach import mean_speed_hz
+        from analysis.record.tach import mean_speed_hz
 
         return mean_speed_hz(self.times_s, self.pulses_per_rev)
 
@@ -49,7 +49,7 @@ def tach_from_input(*, n_samples: int, fs_hz: float, pulses_s=None, channel=None
     or None when neither is given. ``field_prefix`` goes before messages (e.g. a ZIP row);
     ``channel_field`` names the pulse channel in refusals."""
     from analysis.errors import SignalError
-    from analysis.tach import check_pulses, pulses_from_channel
+    from analysis.record.tach import check_pulses, pulses_from_channel
 
     if pulses_s is None and channel is None:
         if pulses_per_rev not in (None, 1) or level is not None:
@@ -93,7 +93,7 @@ def check_speed_agrees(speed_hz: float | None, tach: Tach | None) -> None:
 
 def tach_summary(s, record_id: int) -> dict | None:
     """What a record's tach says (for the record answer): pulses, their source, the speed range in Hz."""
-    from analysis.tach import speed_from_pulses
+    from analysis.record.tach import speed_from_pulses
     from server.tach.tables import RecordTach
 
     row = s.get(RecordTach, record_id)

@@ -60,7 +60,7 @@ def test_weak_fit_leaves_the_rule_inactive_with_its_reason(feeder, plant, migrat
 
 
 def test_refresh_stores_a_fit_after_enough_records(feeder, plant, migrated_db):
-    from analysis.window import fit_operating_window
+    from analysis.physics.window import fit_operating_window
 
     # Invented history: speeds 24.0-25.5 Hz, 1X amplitudes, half-order present above a tongue edge.
     speeds = [24.0, 24.3, 24.6, 24.75, 24.9, 25.2, 25.5, 24.5, 24.75, 25.0, 24.2, 24.8]

@@ -7,8 +7,8 @@ import pytest
 from scipy import stats
 
 from analysis import analyze_record
-from analysis.detect import significant_lines
-from analysis.spectrum import calibrated_spectrum, choose_nperseg
+from analysis.record.detect import significant_lines
+from analysis.record.spectrum import calibrated_spectrum, choose_nperseg
 
 
 @pytest.mark.parametrize(("n", "pfa"), [(8192, 0.1), (65536, 0.05)])

@@ -8,8 +8,8 @@ import numpy as np
 from scipy import stats
 
 from analysis import analyze_record
-from analysis.known_look import whole_record_look
-from analysis.spectrum import calibrated_spectrum, cfar_threshold, choose_nperseg
+from analysis.record.known_look import whole_record_look
+from analysis.record.spectrum import calibrated_spectrum, cfar_threshold, choose_nperseg
 
 FS, F1, SIGMA = 160.0, 25.0, 0.1
 

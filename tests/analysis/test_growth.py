@@ -7,7 +7,7 @@ import pytest
 from scipy import stats
 
 from analysis import analyze_record
-from analysis.growth import hac_stderr, ols
+from analysis.record.growth import hac_stderr, ols
 
 
 def _growing(rng, lam, snr_db, fs=2048.0, f1=50.0, seconds=20.0):

@@ -11,9 +11,9 @@ import pytest
 from scipy import integrate, signal, stats
 
 from analysis import analyze_record
-from analysis.growth_onset import _h, fit_onset
-from analysis.sim_models import onset_envelope
-from analysis.simulate import simulate
+from analysis.record.growth_onset import _h, fit_onset
+from analysis.sim.sim_models import onset_envelope
+from analysis.sim.simulate import simulate
 
 FS, F, B = 320.0, 40.0, 8.0  # a line at 40 Hz in an 8 Hz band: the test records stay small
 SOS = signal.butter(4, [F - B / 2, F + B / 2], btype="bandpass", output="sos", fs=FS)

@@ -11,7 +11,7 @@ import soundfile
 from scipy.io import wavfile
 
 from analysis import SignalError, normalize_units, validate_samples
-from analysis.io import read_any, read_csv, read_uff58, read_wav
+from analysis.record.io import read_any, read_csv, read_uff58, read_wav
 
 FS = 2560
 

@@ -20,10 +20,10 @@ import pytest
 from scipy import signal
 
 from analysis import analyze_record
-from analysis.orders import MAX_RESIDUAL_RAD, TRACK_BINS, resample_to_angle, shaft_phase_from_signal
+from analysis.record.orders import MAX_RESIDUAL_RAD, TRACK_BINS, resample_to_angle, shaft_phase_from_signal
+from analysis.record.spectrum import calibrated_spectrum, grandke, power
 from analysis.result_compat import record_analysis_from_dict
-from analysis.simulate import simulate
-from analysis.spectrum import calibrated_spectrum, grandke, power
+from analysis.sim.simulate import simulate
 
 FS, T = 5120.0, 12.8
 

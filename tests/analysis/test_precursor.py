@@ -15,10 +15,10 @@ import numpy as np
 import pytest
 from scipy import signal
 
-from analysis import precursor
-from analysis.pipeline import analyze_record
-from analysis.sim_scoring import growth_case
-from analysis.simulate import simulate
+from analysis.record import precursor
+from analysis.record.pipeline import analyze_record
+from analysis.sim.sim_scoring import growth_case
+from analysis.sim.simulate import simulate
 
 
 def _lorentzian_noise(rng, fs, seconds, f_c, gamma, rms):

@@ -13,7 +13,7 @@ import pytest
 from scipy import stats
 
 from analysis import analyze_record
-from analysis.spectrum import calibrated_spectrum, choose_nperseg
+from analysis.record.spectrum import calibrated_spectrum, choose_nperseg
 
 
 def _late_line(seed, amp=0.0007, fs=2048.0, f1=25.0, seconds=240.0, last_s=12.0):
@@ -61,7 +61,8 @@ def test_two_looks_keep_the_stated_false_alarm_probability():
 
 @pytest.mark.parametrize(("drift", "tracking"), [(0.002, "none"), (0.01, "phase"), (0.05, "phase")])
 def test_speed_wander_is_measured_and_tracked_past_one_bin(drift, tracking):
-    # a speed that moves by more than a bin spacing over the record is order-tracked (analysis/orders.py);
+    # a speed that moves by more than a bin spacing over the record is order-tracked
+    # (analysis/record/orders.py);
     # a tracked record is not flagged speed-drift: its lines are read in orders
     fs, f1, seconds = 4096.0, 24.0, 40.0
     t = np.arange(int(fs * seconds)) / fs

@@ -8,11 +8,11 @@ import scipy.constants
 from scipy import stats
 
 from analysis import analyze_record
-from analysis.conditioning import band_velocity_rms, velocity_mm_s, velocity_waveform
-from analysis.quality import quality_flags
-from analysis.severity import ZONE_LIMITS_MM_S, iso_band, waveform_stats, zone, zone_limits
-from analysis.spectrum import welch_psd
-from analysis.validate import TO_M_S2
+from analysis.record.conditioning import band_velocity_rms, velocity_mm_s, velocity_waveform
+from analysis.record.quality import quality_flags
+from analysis.record.severity import ZONE_LIMITS_MM_S, iso_band, waveform_stats, zone, zone_limits
+from analysis.record.spectrum import welch_psd
+from analysis.record.validate import TO_M_S2
 
 
 def test_standard_gravity_is_cgpm_value():

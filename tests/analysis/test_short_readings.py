@@ -15,9 +15,9 @@ import pytest
 from scipy import signal
 
 from analysis import analyze_record
-from analysis.detect import AMBIGUOUS_NOTE, ESTIMATOR_SPREAD, line_class, order_interval
 from analysis.errors import SignalError
-from analysis.spectrum import MIN_CYCLES, calibrated_spectrum, choose_nperseg, min_samples
+from analysis.record.detect import AMBIGUOUS_NOTE, ESTIMATOR_SPREAD, line_class, order_interval
+from analysis.record.spectrum import MIN_CYCLES, calibrated_spectrum, choose_nperseg, min_samples
 
 FS = 2560.0
 
@@ -129,7 +129,7 @@ def test_the_frequency_spread_of_a_one_segment_reading_is_near_the_cramer_rao_bo
     # Monte Carlo: a tone of known frequency in white noise, one Hann segment, Grandke-interpolated peak;
     # the spread of the estimates cannot beat the Cramér-Rao bound (Rife & Boorstyn 1974) and, for this
     # interpolator, stays within ESTIMATOR_SPREAD of it (the factor order_interval uses; measured 1.7)
-    from analysis.spectrum import grandke, power
+    from analysis.record.spectrum import grandke, power
 
     rng = np.random.default_rng(21)
     n, f0, amp, sd = 2048, 10.3 * FS / 2048, 0.05, 0.05

@@ -15,7 +15,7 @@ import math
 import numpy as np
 import pytest
 
-from analysis.slow_flow import estimate, forcing_phase
+from analysis.record.slow_flow import estimate, forcing_phase
 
 FS_INT = 200.0  # integration rate, Hz (ω0·dt = 0.06)
 DECIM = 5  # record at 40 Hz

@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 from scipy import signal, stats
 
-from analysis.spectrum import (
+from analysis.record.spectrum import (
     calibrated_spectrum,
     cfar_threshold,
     f_isf,

@@ -13,7 +13,7 @@ import pytest
 from scipy import signal
 
 from analysis.errors import SignalError
-from analysis.tach import (
+from analysis.record.tach import (
     PERIOD_JUMP_TOLERANCE,
     check_pulses,
     phase_from_pulses,
@@ -204,7 +204,7 @@ def test_flat_or_broken_channel_is_refused():
         pulses_from_channel(ch, FS)
 
 
-# --- readers: a tach channel beside the acceleration (analysis/io.py) ---------------------------------
+# --- readers: a tach channel beside the acceleration (analysis/record/io.py) -------------------------------
 
 def _two_channels():
     t = record_time(int(FS * 2))
@@ -217,7 +217,7 @@ def test_wav_tach_channel(tmp_path):
     # writer: scipy.io.wavfile (float32 WAV, samples x channels)
     from scipy.io import wavfile
 
-    from analysis.io import read_any
+    from analysis.record.io import read_any
 
     t, accel, tach = _two_channels()
     path = tmp_path / "two.wav"
@@ -232,7 +232,7 @@ def test_wav_tach_channel(tmp_path):
 
 
 def test_csv_tach_channel_with_and_without_time_column(tmp_path):
-    from analysis.io import read_any
+    from analysis.record.io import read_any
 
     t, accel, tach = _two_channels()
     path = tmp_path / "three.csv"
@@ -256,7 +256,7 @@ def test_uff_tach_channel(tmp_path):
     # writer: pyuff (open Universal File Format, two datasets 58 = two channels)
     import pyuff
 
-    from analysis.io import read_any
+    from analysis.record.io import read_any
 
     t, accel, tach = _two_channels()
     sets = [pyuff.prepare_58(

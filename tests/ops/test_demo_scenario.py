@@ -25,7 +25,7 @@ def _asset(tag: str) -> plant.AssetSpec:
 
 def analyse(tag: str, t_days: float, hour: int = 3, *, online: bool = True) -> dict:
     from analysis import analyze_record
-    from analysis.simulate import simulate
+    from analysis.sim.simulate import simulate
 
     asset = _asset(tag)
     point = next(p for p in asset.points if p.online == online)

@@ -103,7 +103,7 @@ def seeds(tmp_path_factory):
 
 
 def test_seed_files_read_back(seeds):
-    from analysis import io as aio
+    from analysis.record import io as aio
 
     # the readers agree with the writers on the rate (soundfile and pyuff are the references)
     assert aio.read_wav(seeds["wav"]).fs_hz == 2560
@@ -114,7 +114,7 @@ def test_seed_files_read_back(seeds):
 @FUZZ
 @given(data=st.data())
 def test_wav_reader_on_mutated_and_random_bytes(seeds, data):
-    from analysis.io import read_wav
+    from analysis.record.io import read_wav
 
     raw = data.draw(st.one_of(mutated(seeds["wav"]), st.binary(max_size=512),
                               st.builds(lambda b: b"RIFF" + b, st.binary(max_size=256))))
@@ -124,7 +124,7 @@ def test_wav_reader_on_mutated_and_random_bytes(seeds, data):
 @FUZZ
 @given(data=st.data())
 def test_uff_reader_on_mutated_bytes(seeds, data):
-    from analysis.io import read_uff58
+    from analysis.record.io import read_uff58
 
     check_reader(read_uff58, data.draw(st.one_of(mutated(seeds["uff"]), st.binary(max_size=512))))
 
@@ -136,7 +136,7 @@ CELL = st.one_of(st.floats(allow_nan=True, allow_infinity=True).map(repr), st.in
 @FUZZ
 @given(data=st.data())
 def test_csv_reader_on_mutated_and_generated_text(seeds, data):
-    from analysis.io import read_csv
+    from analysis.record.io import read_csv
 
     rows = st.lists(st.lists(CELL, min_size=1, max_size=3).map(lambda r: ",".join(r)), max_size=40)
     raw = data.draw(st.one_of(mutated(seeds["csv"]), rows.map(lambda r: "\n".join(r).encode("utf-8")),
@@ -150,7 +150,7 @@ def test_csv_reader_on_mutated_and_generated_text(seeds, data):
                                                          "../a.csv", "a.xlsx"]),
        units=st.one_of(st.none(), st.sampled_from(["g", "m/s2", "furlongs", ""])))
 def test_read_any_dispatch(raw, name, units):
-    from analysis.io import read_any
+    from analysis.record.io import read_any
 
     ext = name.rsplit(".", 1)[-1].lower() if "." in name else ""
     with time_limit():

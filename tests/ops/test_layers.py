@@ -70,20 +70,21 @@ def test_the_layer_check_sees_a_violation():
 # rule -> (regular expression of its formula/table/call, the one file allowed to hold it)
 ONE_HOME = {
     "instability threshold a_c(f) = 2 sqrt(((f - 2 f0)/f0)^2 + 4 zeta^2) / k":
-        (r"\*\*\s*2\s*\+\s*4(\.0)?\s*\*\s*zeta\s*\*\*\s*2", "analysis/tongue.py"),
+        (r"\*\*\s*2\s*\+\s*4(\.0)?\s*\*\s*zeta\s*\*\*\s*2", "analysis/physics/tongue.py"),
     "ISO 20816 zone table (group 2 rigid row)":
-        (r"\(\s*1\.4\s*,\s*2\.8\s*,\s*4\.5\s*\)", "analysis/severity.py"),
+        (r"\(\s*1\.4\s*,\s*2\.8\s*,\s*4\.5\s*\)", "analysis/record/severity.py"),
     "rule precedence (edited point rule > asset rule > default point rule)":
         (r"not\s+\w+\.is_default\s+or", "server/alarms/rules.py"),
     "chart time buckets (width slightly above (b - a) / n)":
         (r"1\s*\+\s*1e-9\)\s*/", "server/storage/queries.py"),
     "trend forecast for charts and emails (a call of analysis.trend.fit_trend)":
         (r"(?<!def )\bfit_trend\(", "server/alarms/checks.py"),
-    "dB per neper": (r"20(\.0)?\s*/\s*(math|np)\.log\(10", "analysis/trend.py"),
+    "dB per neper": (r"20(\.0)?\s*/\s*(math|np)\.log\(10", "analysis/physics/trend.py"),
 }
 # the CLI runs each method on a user's own data; the numerics below are the method's definition
 ONE_HOME_SCOPE = ["server/alarms", "server/services", "server/routes", "server/storage", "server/worker",
-                  "analysis/window.py", "analysis/tongue.py", "analysis/severity.py", "analysis/trend.py",
+                  "analysis/physics/window.py", "analysis/physics/tongue.py", "analysis/record/severity.py",
+                  "analysis/physics/trend.py",
                   "halfwatch_demo"]
 
 

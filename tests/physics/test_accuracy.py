@@ -11,9 +11,9 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from analysis import pipeline
-from analysis.sim_scoring import growth_case, score
-from analysis.simulate import simulate
+from analysis.record import pipeline
+from analysis.sim.sim_scoring import growth_case, score
+from analysis.sim.simulate import simulate
 
 
 def _run(kind, seed, **params):

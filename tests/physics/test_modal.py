@@ -16,8 +16,8 @@ import numpy as np
 import pytest
 from scipy import signal
 
-from analysis.modal import fit_mode, fit_precursor, half_power, psd_of_record
-from analysis.simulate import simulate
+from analysis.physics.modal import fit_mode, fit_precursor, half_power, psd_of_record
+from analysis.sim.simulate import simulate
 
 
 def _sdof_response(rng, f_n, zeta, fs, seconds):

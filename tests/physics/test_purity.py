@@ -7,9 +7,9 @@ import sys
 
 
 def test_physics_modules_import_no_server_stack():
-    mods = "stability, modal, window, trend, simulate, sim_models, sim_history, sim_scoring"
     code = (
-        f"import sys; from analysis import {mods}; "
+        "import sys; from analysis.physics import stability, modal, window, trend; "
+        "from analysis.sim import simulate, sim_models, sim_history, sim_scoring; "
         "heavy = ('server', 'fastapi', 'sqlalchemy', 'starlette', 'pydantic', 'plotly'); "
         "print([m for m in heavy if m in sys.modules])"
     )

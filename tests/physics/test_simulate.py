@@ -17,9 +17,9 @@ import pytest
 from scipy import signal
 from scipy.io import wavfile
 
-from analysis import sim_models as sm
-from analysis.simulate import KINDS, simulate
-from analysis.stability import floquet_growth, growth_rate_first_order
+from analysis.physics.stability import floquet_growth, growth_rate_first_order
+from analysis.sim import sim_models as sm
+from analysis.sim.simulate import KINDS, simulate
 from server.cli import main as cli_main
 
 
@@ -216,7 +216,7 @@ def test_cli_healthy_record_reads_as_a_healthy_machine(tmp_path):
     1X of 0.04 g peak at 24.75 Hz is a velocity of 0.04 * 9.80665 / (2 pi 24.75) / sqrt 2 = 1.784 mm/s
     r.m.s. (single-integration of a sine: common practice); the ISO 20816-3 group 2 rigid B/C boundary is
     2.8 mm/s r.m.s. (from memory), so the overall level must stay below it."""
-    from analysis.pipeline import analyze_record
+    from analysis.record.pipeline import analyze_record
 
     out = tmp_path / "healthy.wav"
     assert cli_main(["simulate", "healthy", "--out", str(out), "--duration-s", "8"]) == 0

@@ -22,7 +22,7 @@ import pytest
 from scipy.optimize import brentq
 from scipy.special import mathieu_a, mathieu_b
 
-from analysis import stability as st
+from analysis.physics import stability as st
 
 F0 = 25.0
 W0 = 2 * math.pi * F0

@@ -14,7 +14,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from analysis.trend import DB_PER_NEPER, fieller_crossing, fit_trend
+from analysis.physics.trend import DB_PER_NEPER, fieller_crossing, fit_trend
 from server.cli import main as cli_main
 
 DAY0 = 20400.0  # unix days (2025-11-07)

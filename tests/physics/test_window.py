@@ -13,9 +13,9 @@ import math
 import numpy as np
 import pytest
 
-from analysis import stability as st
-from analysis.sim_history import simulate_history
-from analysis.window import fit_operating_window
+from analysis.physics import stability as st
+from analysis.physics.window import fit_operating_window
+from analysis.sim.sim_history import simulate_history
 from server.cli import main as cli_main
 
 TRUTH = {"f0_hz": 12.4, "zeta": 0.012, "k": 0.25}

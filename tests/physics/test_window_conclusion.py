@@ -18,7 +18,7 @@ import pytest
 from scipy.integrate import solve_ivp
 from scipy.special import mathieu_a, mathieu_b
 
-from analysis.window import CAUTION, conclusion
+from analysis.physics.window import CAUTION, conclusion
 
 # Hand-worked example (invented numbers): mode f0 = 12.5 Hz, damping ratio 0.01, k = 0.5 per g of 1X
 # acceleration peak, today's 1X acceleration 0.2 g peak, so h = k a = 0.1.

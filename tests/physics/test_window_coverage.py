@@ -1,6 +1,6 @@
 """The operating-window fit's stated 95 % intervals of f0 and zeta cover the truth at about the nominal rate.
 
-Histories come from analysis.sim_history (invented, with a known tongue: f0 12.4 Hz, zeta 0.012, k 0.25).
+Histories come from analysis.sim.sim_history (invented, with a known tongue: f0 12.4 Hz, zeta 0.012, k 0.25).
 Reference for the test of a coverage rate: the exact binomial test, scipy.stats.binomtest, against p = 0.95.
 With n trials the test rejects (two-sided p < 0.01) a rate that is clearly off: with 50 trials it passes
 43-50 covered and fails 42 or fewer (a rate of 0.84 or less); with 30 trials it passes 25-30 and fails 24
@@ -12,8 +12,8 @@ from __future__ import annotations
 
 from scipy import stats
 
-from analysis.sim_history import repeat_readings, simulate_history
-from analysis.window import fit_operating_window
+from analysis.physics.window import fit_operating_window
+from analysis.sim.sim_history import repeat_readings, simulate_history
 
 TRUTH = {"f0_hz": 12.4, "zeta": 0.012, "k": 0.25}
 

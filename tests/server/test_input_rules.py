@@ -192,7 +192,7 @@ def test_a_wav_whose_header_claims_more_data_than_the_file_holds_is_refused(user
     from scipy.io import wavfile  # scipy writes the reference WAV
 
     from analysis.errors import SignalError
-    from analysis.io import read_wav
+    from analysis.record.io import read_wav
 
     buf = io.BytesIO()
     wavfile.write(buf, 2560, (np.sin(np.arange(25600) * 0.3) * 8000).astype(np.int16))

@@ -58,7 +58,7 @@ class Seeded:
 
 
 def seed(db, settings, *, days: int = 12, now: dt.datetime | None = None) -> Seeded:
-    from analysis.simulate import simulate
+    from analysis.sim.simulate import simulate
     from server.services.ingest import ingest_record
     from server.worker import run_once
 

@@ -4,9 +4,9 @@ from __future__ import annotations
 
 import numpy as np
 
-from .errors import SignalError
-from .results import Waveform
-from .spectrum import dot
+from analysis.errors import SignalError
+from analysis.record.spectrum import dot
+from analysis.results import Waveform
 
 ZONE_STANDARD = "ISO 10816-3:2009 / ISO 20816-3:2022 Annex A (values from memory; check against the standard)"
 

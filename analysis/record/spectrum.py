@@ -14,7 +14,7 @@ import numpy as np
 import scipy.fft as sfft
 from scipy import special
 
-from .results import Spectrum
+from analysis.results import Spectrum
 
 _CHUNK_SEGMENTS = 8  # segments transformed at once: bounds the working memory to ~8 segments
 

@@ -12,9 +12,9 @@ from __future__ import annotations
 
 import numpy as np
 
-from analysis.tongue import band as _band
-from analysis.tongue import growth_rate as _growth
-from analysis.tongue import threshold_amplitude as _threshold_amp
+from analysis.physics.tongue import band as _band
+from analysis.physics.tongue import growth_rate as _growth
+from analysis.physics.tongue import threshold_amplitude as _threshold_amp
 
 __all__ = ["repeat_readings", "simulate_history"]
 

@@ -20,7 +20,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from .errors import SignalError
+from analysis.errors import SignalError
 
 #: Largest relative change of one pulse interval against the same interval one revolution before
 #: (for one pulse per revolution: neighbouring revolution times). A missed pulse doubles an interval

@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import math
 
-from analysis.stability import floquet_growth, threshold_floquet
+from analysis.physics.stability import floquet_growth, threshold_floquet
 
 __all__ = ["growth_case", "score"]
 

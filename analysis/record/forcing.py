@@ -4,8 +4,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from .results import Forcing, Spectrum
-from .spectrum import grandke, local_peaks, power
+from analysis.record.spectrum import grandke, local_peaks, power
+from analysis.results import Forcing, Spectrum
 
 SEARCH_FRACTION = 0.05  # ±5 % around the nominal speed
 N_HARMONICS = 4

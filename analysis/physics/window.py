@@ -17,10 +17,10 @@ from typing import Any
 
 import numpy as np
 
-from analysis.tongue import band as _band
-from analysis.tongue import growth_rate as _growth  # noqa: F401  (re-exported for the simulator)
-from analysis.tongue import threshold_amplitude, threshold_margin
-from analysis.window_fit import CI_LEVEL, WindowFit, fit_operating_window, speed_ranges
+from analysis.physics.tongue import band as _band
+from analysis.physics.tongue import growth_rate as _growth  # noqa: F401  (re-exported for the simulator)
+from analysis.physics.tongue import threshold_amplitude, threshold_margin
+from analysis.physics.window_fit import CI_LEVEL, WindowFit, fit_operating_window, speed_ranges
 
 __all__ = ["CAUTION", "WindowConclusion", "WindowFit", "conclusion", "fit_operating_window",
            "threshold_amplitude", "threshold_margin"]

@@ -18,7 +18,7 @@ import numpy as np
 from scipy.integrate import solve_ivp
 from scipy.signal import lfilter
 
-from analysis.stability import floquet_growth
+from analysis.physics.stability import floquet_growth
 
 TWO_PI = 2.0 * math.pi
 

@@ -21,10 +21,10 @@ from __future__ import annotations
 import numpy as np
 import scipy.fft as sfft
 
-from .conditioning import velocity_mm_s
-from .detect import FLOOR_DOF_FACTOR, HALF_ORDER_TOL, MIN_VELOCITY_MM_S
-from .results import Spectrum, Subharmonic
-from .spectrum import cfar_threshold, grandke, hann
+from analysis.record.conditioning import velocity_mm_s
+from analysis.record.detect import FLOOR_DOF_FACTOR, HALF_ORDER_TOL, MIN_VELOCITY_MM_S
+from analysis.record.spectrum import cfar_threshold, grandke, hann
+from analysis.results import Spectrum, Subharmonic
 
 PAD = 2  # zero-padding factor of the whole-record periodogram
 RING_BINS = (4, 24)  # bins (unpadded) either side of the band for the local floor check

@@ -25,8 +25,8 @@ import numpy as np
 import scipy.fft as sfft
 from scipy import optimize, special
 
-from .results import Precursor, Spectrum
-from .spectrum import local_peaks, power, welch_psd
+from analysis.record.spectrum import local_peaks, power, welch_psd
+from analysis.results import Precursor, Spectrum
 
 HANN_3DB_BINS = 1.4406  # Hann 3-dB main-lobe width in bins (Harris 1978; methods note §7.3)
 WIDTH_FACTOR = 2.5  # a peak wider than 2.5x the window's 3-dB width is a resolved bump
@@ -137,7 +137,7 @@ def bump_test(x: np.ndarray, fs: float, spec: Spectrum, k: int, f: float, f1x: f
     ratio = ratio_se = None
     note = ""
     if resolved:
-        from .modal import fit_precursor
+        from analysis.physics.modal import fit_precursor
 
         sel = fine_f > 0
         disp = np.zeros_like(fine_p)
@@ -180,7 +180,7 @@ def _with_slow_flow(x, fs, f1x, gamma, ratio, ratio_se, note):
     """γ− from the slow flow locked to the 1X phase (analysis.slow_flow), which needs no spectral
     resolution of the bump, in place of the spectral width when it is constrained. Its h/h_c is not
     used: on 300 s records it scattered by ±0.25 about the truth with outliers (docs/analysis.md)."""
-    from .slow_flow import estimate
+    from analysis.record.slow_flow import estimate
 
     try:
         flow = estimate(x, fs, f1x, gamma)

@@ -18,7 +18,7 @@ import numpy as np
 import scipy.fft as sfft
 from scipy import signal, special
 
-from .growth_fit import (  # noqa: F401  (ols and hac_stderr are imported from here too)
+from analysis.record.growth_fit import (  # noqa: F401  (ols and hac_stderr are imported from here too)
     MIN_POINTS,
     hac_stderr,
     half_slope_gap,
@@ -26,9 +26,9 @@ from .growth_fit import (  # noqa: F401  (ols and hac_stderr are imported from h
     log_envelope_fit,
     ols,
 )
-from .growth_onset import OnsetFit, fit_onset, log_amplitude
-from .results import Growth, Spectrum
-from .spectrum import f_isf
+from analysis.record.growth_onset import OnsetFit, fit_onset, log_amplitude
+from analysis.record.spectrum import f_isf
+from analysis.results import Growth, Spectrum
 
 BAND_ORDERS = 0.16  # default band width B in orders of 1X (0.42-0.58X), narrowed around other lines
 MIN_SNR_DB = 8.0

@@ -25,8 +25,8 @@ import scipy.fft as sfft
 from scipy.interpolate import BSpline, make_lsq_spline
 from scipy.signal import fftconvolve, firwin
 
-from .errors import SignalError
-from .results import Growth
+from analysis.errors import SignalError
+from analysis.results import Growth
 
 #: −6 dB point of the low-pass after demodulation, in orders of 1X: holds a 1X swing of about ±10 %
 FIR_CUTOFF = 0.2

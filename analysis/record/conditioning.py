@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 import scipy.fft as sfft
 
-from .validate import TO_M_S2
+from analysis.record.validate import TO_M_S2
 
 
 def detrend(x: np.ndarray) -> np.ndarray:

@@ -20,10 +20,10 @@ import numpy as np
 from scipy import optimize
 from scipy.special import log_ndtr
 
-from analysis import window_stats as ws
-from analysis.tongue import band as _band
-from analysis.tongue import growth_rate as _growth
-from analysis.tongue import threshold_amplitude as _threshold_amp
+from analysis.physics import window_stats as ws
+from analysis.physics.tongue import band as _band
+from analysis.physics.tongue import growth_rate as _growth
+from analysis.physics.tongue import threshold_amplitude as _threshold_amp
 
 __all__ = ["WindowFit", "fit_operating_window", "speed_ranges"]
 

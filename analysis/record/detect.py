@@ -6,10 +6,10 @@ from collections.abc import Callable
 
 import numpy as np
 
-from .conditioning import velocity_mm_s
-from .forcing import line_near
-from .results import Precursor, Spectrum, Subharmonic, Tone
-from .spectrum import cfar_threshold, grandke, local_peaks, power
+from analysis.record.conditioning import velocity_mm_s
+from analysis.record.forcing import line_near
+from analysis.record.spectrum import cfar_threshold, grandke, local_peaks, power
+from analysis.results import Precursor, Spectrum, Subharmonic, Tone
 
 SEARCH_BAND = (0.30, 0.70)  # orders searched for a subharmonic
 HALF_ORDER_TOL = 0.01  # ±2 % of 0.5X, in orders

@@ -14,8 +14,8 @@ from pathlib import Path
 
 import numpy as np
 
-from .errors import SignalError
-from .validate import normalize_units, validate_sample_rate, validate_samples
+from analysis.errors import SignalError
+from analysis.record.validate import normalize_units, validate_sample_rate, validate_samples
 
 #: Relative spread of time steps accepted in a CSV time column (common practice: logger clocks jitter).
 TIME_STEP_TOLERANCE = 1e-3

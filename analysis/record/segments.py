@@ -13,8 +13,8 @@ from __future__ import annotations
 import numpy as np
 import scipy.fft as sfft
 
-from .results import Spectrum
-from .spectrum import calibrated_spectrum, grandke, hann
+from analysis.record.spectrum import calibrated_spectrum, grandke, hann
+from analysis.results import Spectrum
 
 LAST_SEGMENTS = 3  # 50 % overlap: the last two segment lengths of the record
 DRIFT_SEARCH = 0.04  # 1X searched within ±4 % of the forcing frequency per segment

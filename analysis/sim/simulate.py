@@ -34,8 +34,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from analysis import sim_models as sm
-from analysis.stability import floquet_growth, threshold_floquet
+from analysis.physics.stability import floquet_growth, threshold_floquet
+from analysis.sim import sim_models as sm
 
 __all__ = ["KINDS", "SimulatedRecord", "simulate"]
 

@@ -6,21 +6,26 @@ from dataclasses import replace
 
 import numpy as np
 
-from .conditioning import band_velocity_rms, detrend, velocity_mm_s
-from .detect import HALF_ORDER_TOL, detect_subharmonic, other_tones
-from .errors import SignalError
-from .forcing import line_near, refine_forcing
-from .growth import band_signal, chart_envelope, estimate_growth, growth_band, not_estimated
-from .known_look import whole_record_look
-from .orders import TRACK_BINS, angle_growth_to_time, resample_to_angle, shaft_phase_from_signal
-from .precursor import bump_test
-from .quality import quality_flags
-from .results import Forcing, OrderLine, Overall, Quality, RecordAnalysis
-from .segments import LAST_SEGMENTS, last_segments_spectrum, one_x_spread
-from .severity import ZONE_STANDARD, iso_band, waveform_stats, zone, zone_limits
-from .spectrum import MIN_CYCLES, calibrated_spectrum, choose_nperseg, min_samples, power
-from .tach import check_pulses, mean_speed_hz, phase_from_pulses
-from .validate import normalize_units, validate_samples
+from analysis.errors import SignalError
+from analysis.record.conditioning import band_velocity_rms, detrend, velocity_mm_s
+from analysis.record.detect import HALF_ORDER_TOL, detect_subharmonic, other_tones
+from analysis.record.forcing import line_near, refine_forcing
+from analysis.record.growth import band_signal, chart_envelope, estimate_growth, growth_band, not_estimated
+from analysis.record.known_look import whole_record_look
+from analysis.record.orders import (
+    TRACK_BINS,
+    angle_growth_to_time,
+    resample_to_angle,
+    shaft_phase_from_signal,
+)
+from analysis.record.precursor import bump_test
+from analysis.record.quality import quality_flags
+from analysis.record.segments import LAST_SEGMENTS, last_segments_spectrum, one_x_spread
+from analysis.record.severity import ZONE_STANDARD, iso_band, waveform_stats, zone, zone_limits
+from analysis.record.spectrum import MIN_CYCLES, calibrated_spectrum, choose_nperseg, min_samples, power
+from analysis.record.tach import check_pulses, mean_speed_hz, phase_from_pulses
+from analysis.record.validate import normalize_units, validate_samples
+from analysis.results import Forcing, OrderLine, Overall, Quality, RecordAnalysis
 
 #: 1X wander (max - min over the record, in orders) that invalidates the half-order reading: 0.5X moves by
 #: half the 1X change, so a 2 % wander smears it over ±0.01 orders, the whole ±2 % half-order window
@@ -176,7 +181,7 @@ def analyze_record(
         forcing = refine_forcing(spec, speed)
     f1 = forcing.frequency_hz
 
-    # ---- order tracking (analysis/orders.py; owner: orders) --------------------------------------------
+    # ---- order tracking (analysis/record/orders.py) -------------------------------------------------------
     # Rule: track when the per-segment 1X moves by more than TRACK_BINS bin spacings over the record (the
     # 0.5X line then smears over more than half a bin and loses its phase coherence). The shaft angle comes
     # from the tach pulses when given, else from the record (refused when its phase residual is too large);

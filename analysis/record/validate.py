@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from .errors import SignalError
+from analysis.errors import SignalError
 
 #: Conversion of each accepted acceleration unit to m/s².  Standard gravity g_n = 9.80665 m/s² exactly
 #: (3rd CGPM, 1901; equals scipy.constants.g).
