@@ -4,7 +4,8 @@ The seeded ID fan point has three below-threshold readings from the parametric s
 and 0.8 (tests/web/conftest.py). Outside reference for what the pages must show: below threshold the damped
 Mathieu mode near f_W/2 is a Lorentzian bump whose narrow decay rate is γ− = ζω0(1 − h/h_c), falling to 0 at
 onset (noisy precursor of period doubling, Wiesenfeld 1985, J. Stat. Phys. 38, 1071-1097), and a
-Lorentzian's half-power full width is γ/π (closed form), so γ− = π × width.
+Lorentzian's half-power full width is γ/π (closed form), so γ− = π × width when the spectrum resolves the
+bump; otherwise γ− comes from the slow flow (analysis/record/slow_flow.py) and π × width bounds it.
 """
 
 from __future__ import annotations
@@ -45,7 +46,10 @@ def test_seeded_readings_carry_a_precursor_that_narrows_towards_threshold(site):
         # the bump sits on f_W/2 (centre of the first Mathieu tongue, Landau & Lifshitz, Mechanics §27), f_W =
         # 16.5 Hz here
         assert p["frequency_hz"] == pytest.approx(16.5 / 2, abs=0.1)
-        assert p["narrow_rate_per_s"] == pytest.approx(math.pi * p["width_hz"], rel=1e-6)  # γ = π·width
+        if "slow flow" in p["note"]:  # γ− from the slow flow; π·width is then an upper bound of it
+            assert 0 < p["narrow_rate_per_s"] <= math.pi * p["width_hz"]
+        else:
+            assert p["narrow_rate_per_s"] == pytest.approx(math.pi * p["width_hz"], rel=1e-6)  # γ = π·width
     rates = [p["narrow_rate_per_s"] for p in pre]
     assert rates[0] > rates[1] > rates[2]  # γ− = ζω0(1 − h/h_c) falls as h/h_c rises (Wiesenfeld 1985)
 
