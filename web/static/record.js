@@ -85,8 +85,8 @@
       el("div", { class: "ci" }, cover.covered ? limits : "the reading does not cover the standard's band"));
   }
 
-  /* The noise-excited bump at 0.5X below threshold (analysis/record/precursor.py): its own cards and a plain
-     note. */
+  /* The noise-excited bump at 0.5X below threshold (analysis/record/precursor.py): its own cards and a
+     plain note. */
   function renderPrecursor(p, box) {
     const note = $("#precursor-note");
     if (!p) { note.hidden = true; return; }
