@@ -21,7 +21,14 @@ from analysis.record.orders import (
 from analysis.record.precursor import bump_test
 from analysis.record.quality import quality_flags
 from analysis.record.segments import LAST_SEGMENTS, last_segments_spectrum, one_x_spread
-from analysis.record.severity import ZONE_STANDARD, iso_band, waveform_stats, zone, zone_limits
+from analysis.record.severity import (
+    ZONE_STANDARD,
+    band_covers_standard,
+    iso_band,
+    waveform_stats,
+    zone,
+    zone_limits,
+)
 from analysis.record.spectrum import MIN_CYCLES, calibrated_spectrum, choose_nperseg, min_samples, power
 from analysis.record.tach import check_pulses, mean_speed_hz, phase_from_pulses
 from analysis.record.validate import normalize_units, validate_samples
@@ -278,7 +285,7 @@ def analyze_record(
     v_rms = band_velocity_rms(spec_time.freqs_hz, spec_time.psd, units, band)
     overall = Overall(
         velocity_rms_mm_s=v_rms,
-        zone=zone(v_rms, limits),
+        zone=zone(v_rms, limits) if band_covers_standard(band, f1) else "",  # "": not graded
         band_hz=band,
         machine_group=int(machine_group),
         foundation=foundation,

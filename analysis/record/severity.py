@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 
 from analysis.errors import SignalError
@@ -105,6 +107,16 @@ def iso_band(f1x_hz: float, fs_hz: float) -> tuple[float, float]:
     """
     lo = 2.0 if f1x_hz * 60.0 < 600.0 else 10.0
     return lo, min(1000.0, 0.45 * fs_hz)
+
+
+def band_covers_standard(band_hz, f1x_hz: float) -> bool:
+    """Whether an overall level measured over ``band_hz`` covers the standard's band for this forcing
+    frequency (:func:`iso_band` without a sample-rate limit), so that an ISO zone may be graded. A record
+    sampled at 512 Hz reaches 10-230 Hz only: its level is trended, but no zone is graded from it."""
+    if not band_hz or band_hz[0] is None or band_hz[1] is None or not f1x_hz:
+        return False
+    need_lo, need_hi = iso_band(float(f1x_hz), math.inf)
+    return float(band_hz[1]) >= need_hi * 0.999 and float(band_hz[0]) <= need_lo * 1.001
 
 
 def waveform_stats(x: np.ndarray) -> Waveform:

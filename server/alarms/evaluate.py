@@ -204,7 +204,9 @@ def _evaluate(session: Session, record, result, settings, now: dt.datetime) -> l
         value = metrics.get(row.metric)
         levels = spec.levels(data)
         if value is None or levels is None:
-            reason = margin_reason if row.metric == "threshold_margin" else "no reading"
+            reason = margin_reason if row.metric == "threshold_margin" else (
+                "no zone graded: the reading's band does not reach the ISO 20816 band"
+                if spec.zone_based and value is not None else "no reading")
             if state.inactive_reason != reason:
                 state.set("inactive_reason", reason)
             continue

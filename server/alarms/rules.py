@@ -21,7 +21,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass, field, replace
 
-from analysis.record.severity import ZONE_LIMITS_MM_S
+from analysis.record.severity import ZONE_LIMITS_MM_S, band_covers_standard
 from analysis.results import RecordAnalysis
 
 LEVELS = ("normal", "alert", "danger")
@@ -171,10 +171,24 @@ class RuleSpec:
         """``(alert, danger)`` for this reading; zone-based rules read the result's zone limits."""
         if not self.zone_based:
             return float(self.alert), float(self.danger)
+        if not zone_graded(result or {}):
+            return None  # the reading's band does not cover the standard's: no zone, no zone rule
         limits = zone_limits(result or {})
         if limits is None:
             return None
         return limits[1], limits[2]
+
+
+def zone_graded(result: dict) -> bool:
+    """Whether the reading's overall level may be graded against the ISO zones: its band covers the
+    standard's (:func:`analysis.record.severity.band_covers_standard`). A result without a band (older
+    forms, or a bare dict of levels) counts as graded, as it always did."""
+    overall = (result.get("overall") or {}) if isinstance(result, dict) else {}
+    band = overall.get("band_hz")
+    forcing = (result.get("forcing") or {}).get("frequency_hz") if isinstance(result, dict) else None
+    if not band or not forcing:
+        return True
+    return band_covers_standard(band, float(forcing))
 
 
 def zone_limits(result: dict, *, group: int = 2, support: str = "rigid") -> tuple[float, float, float] | None:

@@ -129,9 +129,10 @@ def summary(d: dict) -> str:
         )
     lines.append(
         f"overall {o['velocity_rms_mm_s']:.2f} mm/s r.m.s. ({o['band_hz'][0]:g}-{o['band_hz'][1]:g} Hz), "
-        f"zone {o['zone']} (group {o['machine_group']}, {o['foundation']}; "
-        f"limits {'/'.join(f'{v:g}' for v in o['zone_limits_rms_mm_s'])} "
-        "mm/s r.m.s., from memory of ISO 10816-3 / 20816-3)"
+        + (f"zone {o['zone']} (group {o['machine_group']}, {o['foundation']}; "
+           f"limits {'/'.join(f'{v:g}' for v in o['zone_limits_rms_mm_s'])} "
+           "mm/s r.m.s., from memory of ISO 10816-3 / 20816-3)" if o["zone"] else
+           "no zone graded: the sample rate does not reach the top of the ISO 20816 band (1000 Hz)")
     )
     lines.append(
         "1X {} mm/s r.m.s., 2X {} mm/s r.m.s.; crest factor {}, kurtosis {}".format(
@@ -211,7 +212,7 @@ def line(name: str, d: dict) -> str:
                      + (f" ({g['state']} {g['rate_per_s']:.2g} /s)" if g["state"] != "not-estimated" else ""))
     else:
         parts.append("no subharmonic")
-    parts.append(f"overall {o['velocity_rms_mm_s']:.2f} mm/s r.m.s. zone {o['zone']}")
+    parts.append(f"overall {o['velocity_rms_mm_s']:.2f} mm/s r.m.s. zone {o['zone'] or 'not graded'}")
     if d["quality"]["flags"]:
         parts.append("quality: " + ", ".join(d["quality"]["flags"]))
     return f"{name}: " + "; ".join(parts)

@@ -12,7 +12,7 @@ import math
 from sqlalchemy import select
 
 from analysis.record.conditioning import velocity_mm_s
-from analysis.record.severity import iso_band
+from analysis.record.severity import band_covers_standard, iso_band
 from server.storage.packing import unpack_arrays
 from server.storage.queries import SPECTRUM_MEASURES, iso
 from server.storage.tables import Record, Result
@@ -24,18 +24,18 @@ LIMITS_SOURCE = ("Zone limits: ISO 20816-3:2022, Annex A (the same values as ISO
 
 
 def zone_graded(forcing_hz: float | None, fs_hz: float | None) -> bool:
-    """Whether a record at ``fs_hz`` reaches the top of the standard's band for this forcing frequency
-    (both edges from :func:`analysis.severity.iso_band`)."""
+    """Whether a record at ``fs_hz`` reaches the standard's band for this forcing frequency
+    (:func:`analysis.record.severity.band_covers_standard`, the rule the analysis grades zones by)."""
     if not forcing_hz or not fs_hz:
         return False
-    return iso_band(float(forcing_hz), float(fs_hz))[1] >= iso_band(float(forcing_hz), math.inf)[1] * 0.999
+    return band_covers_standard(iso_band(float(forcing_hz), float(fs_hz)), float(forcing_hz))
 
 
 def band_coverage(result: dict, fs_hz: float) -> dict:
     """``{"covered", "needed_hz", "measured_hz", "text"}``: does the record reach the standard's band?
 
-    The standard's band is :func:`analysis.severity.iso_band` with no sample-rate limit (10-1000 Hz, or
-    2-1000 Hz below 600 r/min); the record reaches up to 0.45 x its sample rate (the same function)."""
+    The standard's band is :func:`analysis.record.severity.iso_band` with no sample-rate limit (10-1000 Hz,
+    or 2-1000 Hz below 600 r/min); the record reaches up to 0.45 x its sample rate (the same function)."""
     overall = result.get("overall") or {}
     forcing = (result.get("forcing") or {}).get("frequency_hz")
     measured = overall.get("band_hz")
@@ -43,7 +43,7 @@ def band_coverage(result: dict, fs_hz: float) -> dict:
         return {"covered": False, "needed_hz": None, "measured_hz": measured,
                 "text": "The overall level's band is not known for this reading: no zone is graded."}
     needed = iso_band(float(forcing), math.inf)
-    covered = float(measured[1]) >= needed[1] * 0.999 and float(measured[0]) <= needed[0] * 1.001
+    covered = band_covers_standard(measured, float(forcing))
     fs_needed = fs_hz * needed[1] / float(measured[1])  # the top edge grows with the sample rate
     text = "" if covered else (
         f"This reading was sampled at {fs_hz:g} Hz, so its overall velocity covers {measured[0]:g}-"

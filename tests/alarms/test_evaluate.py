@@ -147,6 +147,25 @@ def test_zone_rule_uses_the_result_zone_limits(feeder, plant):
     assert got == [("normal", "alert"), ("alert", "danger")]
 
 
+def test_zone_rule_grades_only_readings_that_cover_the_standards_band(feeder, plant, migrated_db):
+    """ISO 20816-1 grades the broad-band level over 10-1000 Hz (from memory); a record sampled at 512 Hz
+    reaches 10-230 Hz only, so the zone rule must not alarm on it, and says why; the same levels over the
+    full band alarm (one rule of grading: analysis.record.severity.band_covers_standard)."""
+    def fed(band):
+        got = []
+        for v in (1.0, 3.0, 3.0, 5.0, 5.0):
+            res = make_result(overall=v)
+            res["overall"]["band_hz"] = band
+            got += transitions(feeder.feed(plant.point_id, res), "overall_velocity")
+        return got
+
+    assert fed([10.0, 230.4]) == []
+    with migrated_db.read() as s:
+        st = s.scalars(select(AlarmState).where(AlarmState.metric == "overall_velocity")).one()
+        assert st.level == "normal" and "no zone graded" in st.inactive_reason
+    assert fed([10.0, 1000.0]) == [("normal", "alert"), ("alert", "danger")]
+
+
 def test_margin_rule_is_inactive_without_a_fit(feeder, plant, migrated_db):
     feeder.feed(plant.point_id, make_result(half_v=0.2))
     with migrated_db.read() as s:

@@ -10,7 +10,14 @@ from scipy import stats
 from analysis import analyze_record
 from analysis.record.conditioning import band_velocity_rms, velocity_mm_s, velocity_waveform
 from analysis.record.quality import quality_flags
-from analysis.record.severity import ZONE_LIMITS_MM_S, iso_band, waveform_stats, zone, zone_limits
+from analysis.record.severity import (
+    ZONE_LIMITS_MM_S,
+    band_covers_standard,
+    iso_band,
+    waveform_stats,
+    zone,
+    zone_limits,
+)
 from analysis.record.spectrum import welch_psd
 from analysis.record.validate import TO_M_S2
 
@@ -83,6 +90,20 @@ def test_overall_zone_end_to_end():
     assert r.overall.velocity_rms_mm_s == pytest.approx(4.0, rel=0.01)
     assert r.overall.zone == "C"
     assert r.orders["1X"].velocity_mm_s == pytest.approx(4.0 * np.sqrt(2), rel=0.01)
+
+
+def test_no_zone_is_graded_when_the_record_cannot_reach_the_standards_band():
+    # ISO 20816-1 / 10816-3 (from memory): the zone is graded on the 10-1000 Hz broad-band level; at 512 Hz
+    # sampling the level covers 10-230 Hz only (0.45 fs, common practice for the anti-alias roll-off)
+    fs, f0 = 512.0, 25.0
+    a_peak = 4.0 * np.sqrt(2) * 1e-3 * 2 * np.pi * f0  # m/s² peak for 4.0 mm/s RMS (zone C if graded)
+    t = np.arange(int(fs * 60)) / fs
+    r = analyze_record(a_peak * np.sin(2 * np.pi * f0 * t), fs, units="m/s2", forcing_hz=f0)
+    assert r.overall.band_hz == (10.0, pytest.approx(230.4))
+    assert r.overall.velocity_rms_mm_s == pytest.approx(4.0, rel=0.01)  # still measured, for trending
+    assert r.overall.zone == ""  # not graded
+    assert band_covers_standard((10.0, 1000.0), f0) and not band_covers_standard((10.0, 230.4), f0)
+    assert band_covers_standard((2.0, 1000.0), 9.0) and not band_covers_standard((10.0, 1000.0), 9.0)
 
 
 def test_waveform_stats_sine_and_noise(rng):
