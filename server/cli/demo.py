@@ -115,6 +115,6 @@ def register(sub: argparse._SubParsersAction) -> None:
 
     p = sub.add_parser("mail-sink", help="an SMTP server that writes every message to a folder (for trials)")
     p.add_argument("--dir", default="mail", help="folder for the .eml files (default ./mail)")
-    p.add_argument("--host", default="127.0.0.1")
-    p.add_argument("--port", type=int, default=1025)
+    p.add_argument("--host", default="127.0.0.1", help="address to listen on (default 127.0.0.1)")
+    p.add_argument("--port", type=int, default=1025, help="SMTP port to listen on (default 1025)")
     p.set_defaults(func=cmd_mail_sink)

@@ -90,7 +90,7 @@ def register(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--topic", default=None, help="topic rule, e.g. 'halfwatch/{site}/{point_id}/records'")
     p.add_argument("--reply-topic", default=None, help="reply template, e.g. '{topic}/reply'")
     p.add_argument("--no-accept-replies", action="store_true", help="publish replies for rejects only")
-    p.add_argument("--username", default=None)
+    p.add_argument("--username", default=None, help="broker user name, if the broker needs one")
     p.add_argument("--password-file", default=None, help="file whose first line is the broker password")
     p.add_argument("--tls", action="store_true", help="connect with TLS")
     p.add_argument("--ca-file", default=None, help="CA bundle for the broker certificate")

@@ -40,7 +40,7 @@ def register(subparsers) -> None:
         description="Fit the instability tongue in (speed, 1X amplitude) to the records of "
         "one measurement point. CSV columns: " + ",".join(HISTORY_COLUMNS),
     )
-    p.add_argument("history", metavar="HISTORY.csv")
+    p.add_argument("history", metavar="HISTORY.csv", help="one row per reading (see docs/api.md)")
     p.add_argument("--speed-hz", type=float, help="today's 1X frequency (default: the latest record)")
     p.add_argument("--amp-1x", type=float, help="today's 1X amplitude (default: the latest record)")
     p.add_argument(
@@ -58,7 +58,7 @@ def register(subparsers) -> None:
         description="Robust exponential/linear trend of the subharmonic amplitude of one "
         "point, model choice, onset date and time until --limit.",
     )
-    p.add_argument("history", metavar="HISTORY.csv")
+    p.add_argument("history", metavar="HISTORY.csv", help="one row per reading (see docs/api.md)")
     p.add_argument(
         "--limit",
         type=float,

@@ -139,8 +139,8 @@ def cmd_reanalyze(args) -> int:
 def register(sub: argparse._SubParsersAction) -> None:
     p = sub.add_parser("serve", help="run the HTTP API (and, with --with-worker, the analysis worker)")
     p.add_argument("--with-worker", action="store_true", help="also run the analysis worker in this process")
-    p.add_argument("--host", default=None)
-    p.add_argument("--port", type=int, default=None)
+    p.add_argument("--host", default=None, help="address to listen on (default: HALFWATCH_HOST)")
+    p.add_argument("--port", type=int, default=None, help="HTTP port (default: HALFWATCH_PORT)")
     p.set_defaults(func=cmd_serve)
 
     p = sub.add_parser("worker", help="run the analysis worker (claims queued jobs)")
@@ -150,7 +150,7 @@ def register(sub: argparse._SubParsersAction) -> None:
     p = sub.add_parser("db", help="database schema")
     dsub = p.add_subparsers(dest="db_command", required=True, metavar="ACTION")
     u = dsub.add_parser("upgrade", help="apply the schema migrations")
-    u.add_argument("revision", nargs="?", default="head")
+    u.add_argument("revision", nargs="?", default="head", help="the schema revision to reach (default: head)")
     u.set_defaults(func=cmd_db_upgrade)
 
     p = sub.add_parser("user", help="user accounts")
@@ -167,8 +167,9 @@ def register(sub: argparse._SubParsersAction) -> None:
     p = sub.add_parser("apikey", help="API keys for sensors and gateways")
     asub = p.add_subparsers(dest="apikey_command", required=True, metavar="ACTION")
     a = asub.add_parser("create", help="create a key (printed once)")
-    a.add_argument("name")
-    a.add_argument("--role", choices=("viewer", "technician", "engineer", "admin"), default="technician")
+    a.add_argument("name", help="what the key is for, e.g. the gateway it sits in")
+    a.add_argument("--role", choices=("viewer", "technician", "engineer", "admin"), default="technician",
+                   help="what the key may do (default: technician, which may upload readings)")
     a.add_argument("--site", default=None, help="site name or id the key is limited to (default: all sites)")
     a.set_defaults(func=cmd_apikey_create)
 

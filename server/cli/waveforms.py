@@ -84,7 +84,8 @@ def register(sub: argparse._SubParsersAction) -> None:
     s = wsub.add_parser("status", help="how many waveforms each backend holds (JSON)")
     s.set_defaults(func=cmd_status)
     m = wsub.add_parser("migrate", help="move every waveform to one backend (resumable, idempotent)")
-    m.add_argument("--to", required=True, choices=("files", "database"))
+    m.add_argument("--to", required=True, choices=("files", "database"),
+                   help="the backend to move the waveforms to")
     m.add_argument("--batch", type=int, default=200, help="waveforms per transaction")
     m.add_argument("--max-batches", type=int, default=None, help="stop after this many batches")
     m.add_argument("--json", action="store_true", help="print one JSON object")
@@ -92,5 +93,5 @@ def register(sub: argparse._SubParsersAction) -> None:
     w = wsub.add_parser("sweep", help="remove waveform files no record refers to (and crash leftovers)")
     w.add_argument("--grace-s", type=float, default=3600.0,
                    help="leave files younger than this (a record may be committing them)")
-    w.add_argument("--dry-run", action="store_true")
+    w.add_argument("--dry-run", action="store_true", help="list what would be removed, remove nothing")
     w.set_defaults(func=cmd_sweep)

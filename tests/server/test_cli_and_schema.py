@@ -99,3 +99,34 @@ def test_migrations_on_postgresql(pg_settings):
         assert {"records", "jobs", "results", "waveforms", "users", "api_keys"} <= names
     finally:
         db.dispose()
+
+
+def _options(parser, path=()):
+    """(command path, option or argument, help) for every argument of every (sub)command."""
+    import argparse
+
+    for action in parser._actions:
+        if isinstance(action, argparse._SubParsersAction):
+            for name, sub in action.choices.items():
+                yield from _options(sub, (*path, name))
+        elif not isinstance(action, argparse._HelpAction):
+            yield " ".join(path), "/".join(action.option_strings) or action.dest, action.help
+
+
+def test_every_command_option_has_help_and_commands_are_listed_by_job(capsys):
+    """A newcomer reads `halfwatch --help` and `halfwatch CMD --help` (issue: help on every option, commands
+    grouped by job; common practice for command-line tools)."""
+    import argparse
+
+    from server.cli import JOBS, build_parser
+
+    parser = build_parser()
+    bare = [(cmd, opt) for cmd, opt, text in _options(parser) if not text or not text.strip()]
+    assert not bare, f"options without help text: {bare}"
+    commands = next(a for a in parser._actions if isinstance(a, argparse._SubParsersAction)).choices
+    text = parser.format_help()
+    listed = [line.split()[0] for line in text.split("commands:", 1)[1].splitlines()
+              if line.startswith("    ") and line.split()]
+    assert sorted(listed) == sorted(commands), "each command exactly once in the grouped list"
+    assert [t for t, _ in JOBS] == [t for t, _ in JOBS if f"  {t}:" in text]  # every job heading shown
+    assert "other:" not in text  # every command has a job
