@@ -73,9 +73,14 @@ def test_feed_pump_whirls_and_vp103_shows_steady_looseness():
     assert FLEX_AB < half_order_rms(loose) < FLEX_BC
     # against 1X it stays below the danger ratio 0.5 (house choice levels of server/alarms/rules.py)
     assert 0.25 < loose["subharmonic"]["accel_peak"] / loose["orders"]["1X"]["accel_peak"] < 0.5
-    assert loose["overall"]["zone"] in ("A", "B")
+    # the demo samples at 2.56 x 7X (448 Hz here), so its overall level covers 10-201.6 Hz, not the
+    # 10-1000 Hz of ISO 20816-1 (from memory): trended, never graded; still below the B/C boundary
+    assert loose["overall"]["band_hz"][1] == pytest.approx(0.45 * _asset("VP-103").fs_hz)
+    assert loose["overall"]["zone"] == "" and loose["overall"]["velocity_rms_mm_s"] < FLEX_BC
     healthy = analyse("AC-2", -10.0, online=False)
-    assert not healthy["subharmonic"]["detected"] and healthy["overall"]["zone"] in ("A", "B")
+    limits = healthy["overall"]["zone_limits_rms_mm_s"]
+    assert not healthy["subharmonic"]["detected"] and healthy["overall"]["zone"] == ""
+    assert healthy["overall"]["velocity_rms_mm_s"] < limits[1]  # it would read A or B
 
 
 @pytest.mark.parametrize("asset", plant.ASSETS, ids=plant.tag)
