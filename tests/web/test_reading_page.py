@@ -6,6 +6,7 @@ ID fan's point has 3 readings sampled at 320 Hz, which cannot cover the ISO 2081
 
 from __future__ import annotations
 
+import json
 import math
 import re
 
@@ -79,9 +80,40 @@ def test_numbers_are_plain_and_every_amplitude_names_its_measure(login, site):
     rec, res, meta, arrays = stored(site, rid)
     growth = page.locator(".n", has_text="Growth rate").inner_text()
     assert not re.search(r"\d[eE][-+]?\d", growth)
+    # a doubling time only for growth the 95 % interval says is real (the growth card's own rule)
+    data = json.loads(res.data) if isinstance(res.data, str) else res.data
+    g = data["growth"]
+    real = g["rate_per_s"] is not None and g["rate_per_s"] > 0 and g["ci95_per_s"][0] is not None \
+        and g["ci95_per_s"][0] > 0
+    doubling = page.locator(".n", has_text="Doubling time").inner_text()
+    assert ("no significant growth" in doubling) == (not real), (g, doubling)
+    if real:  # ln 2 / rate, to the page's three significant digits
+        shown = page.evaluate(f"HW.num({math.log(2) / g['rate_per_s']})")
+        assert shown in doubling, (shown, doubling)
     lines = page.evaluate("""() => document.getElementById('chart-waveform').data.map((t) => t.name)""")
     assert any("instantaneous" in n for n in lines)
     assert any(n.startswith("subharmonic envelope (") and "peak" in n for n in lines)
+
+
+def test_no_doubling_time_for_growth_the_interval_does_not_support(login, site):
+    """A rate whose 95 % interval holds 0 is "no significant growth" on the growth card, so no doubling time
+    either (one meaning per number)."""
+    from server.storage.tables import Result
+
+    with site.db.read() as s:
+        rows = s.execute(select(Result.record_id, Result.data).where(Result.current)).all()
+    weak = None
+    for rid, raw in rows:
+        g = (json.loads(raw) if isinstance(raw, str) else raw)["growth"]
+        ci = g.get("ci95_per_s") or [None, None]
+        if g.get("rate_per_s") and g["rate_per_s"] > 0 and ci[0] is not None and ci[0] <= 0 <= ci[1]:
+            weak = rid
+            break
+    assert weak is not None, "the seeded plant has a reading with a positive rate whose interval holds 0"
+    page = open_reading(login, site, weak)
+    assert "no significant growth" in page.locator(".n", has_text="Growth rate").inner_text()
+    doubling = page.locator(".n", has_text="Doubling time").inner_text()
+    assert "—" in doubling and "no significant growth" in doubling, doubling
 
 
 def test_waterfall_is_centred_on_the_opened_reading(login, site):

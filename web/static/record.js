@@ -32,9 +32,7 @@
       number("Signal to noise", HW.num(s.snr_db), "dB",
         `detection threshold ${HW.num(s.threshold_db)} dB (false-alarm rate ${HW.num(s.pfa)})`),
       growthNumber(g),
-      number("Doubling time", g.rate_per_s > 0 ? HW.num(Math.LN2 / g.rate_per_s) : "—",
-        g.rate_per_s > 0 ? "s" : "",
-        g.onset_s != null ? `onset at ${HW.num(g.onset_s)} s into the reading` : null),
+      doublingNumber(g),
       number("Overall velocity r.m.s.", HW.num(o.velocity_rms_mm_s), "mm/s r.m.s.",
         o.band_hz ? `band ${HW.num(o.band_hz[0])} – ${HW.num(o.band_hz[1], 4)} Hz` : null),
       zoneNumber(o),
@@ -72,6 +70,15 @@
         `${HW.num(g.rate_per_s, 2)} 1/s; ${span} holds 0`);
     }
     return number("Growth rate", HW.num(g.rate_per_s, 2), "1/s", `${span}${g.state ? ` · ${g.state}` : ""}`);
+  }
+
+  /* Doubling time ln 2 / rate, only for growth whose 95 % interval lies above 0 (the growth card's rule). */
+  function doublingNumber(g) {
+    const ci = g.ci95_per_s && g.ci95_per_s[0] != null ? g.ci95_per_s : null;
+    const growing = g.rate_per_s > 0 && !(ci && ci[0] <= 0);
+    const onset = g.onset_s != null ? `onset at ${HW.num(g.onset_s)} s into the reading` : null;
+    return number("Doubling time", growing ? HW.num(Math.LN2 / g.rate_per_s) : "—", growing ? "s" : "",
+      growing ? onset : "no significant growth");
   }
 
   /* The ISO 20816 zone, graded only when the reading covers the standard's band (server: zone_band). */
