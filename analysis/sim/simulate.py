@@ -21,7 +21,7 @@ Kinds (``KINDS``):
 ``speed-ramp``    the shaft speed moves by ``change_pct`` (4 %) over the record, ``profile`` "ramp" (default),
                   "step" or "swing" (analysis.sim_models.speed_profile); a 0.5X line (``sub_amp_g``, 0.03 g)
                   locked to the shaft phase with 1.5X; ``sub_amp_g=0`` for none; ``fixed_tone_hz`` adds
-                  lines at fixed frequencies (structural resonances unrelated to speed, ``fixed_tone_g``
+                  lines at fixed frequencies (structural resonances unrelated to speed, ``fixed_tone_peak_g``
                   0.03 g each): the negatives for order tracking.
 ``ramp-whirl``    the same speed profiles with a whirl line at ``whirl_order`` (0.42-0.46, drawn) of the
                   mean speed that follows the speed only by ``follow`` (0.5) of its change: not locked.
@@ -299,16 +299,16 @@ def _speed_ramp(b: _Builder, p: dict) -> dict:
     amp = _positive("sub_amp_g", p.pop("sub_amp_g", 0.03), allow_zero=True)
     fixed = p.pop("fixed_tone_hz", ())
     fixed = [float(f) for f in (fixed if isinstance(fixed, list | tuple) else [fixed])]
-    fixed_g = _positive("fixed_tone_g", p.pop("fixed_tone_g", 0.03))
+    fixed_peak_g = _positive("fixed_tone_peak_g", p.pop("fixed_tone_peak_g", 0.03))
     b.background(p)
     for f in fixed:  # fixed-frequency lines: an order that moves against the shaft
-        b.x += fixed_g * np.cos(2 * math.pi * f * b.t + b.rng.uniform(0, 2 * math.pi))
+        b.x += fixed_peak_g * np.cos(2 * math.pi * f * b.t + b.rng.uniform(0, 2 * math.pi))
         b.lines.append(
             {
                 "name": f"fixed {f:g} Hz",
                 "order": f / b.truth["forcing_hz"],
                 "frequency_hz": f,
-                "amplitude": fixed_g,
+                "amplitude": fixed_peak_g,
                 "locked": False,
             }
         )

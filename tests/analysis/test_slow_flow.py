@@ -22,7 +22,7 @@ DECIM = 5  # record at 40 Hz
 
 
 def mathieu_record(seed: int, *, f0: float, zeta: float, ratio: float, f_w: float, dur: float,
-                   one_x_g: float = 0.05, floor_g: float = 0.0) -> np.ndarray:
+                   one_x_peak_g: float = 0.05, floor_rms_g: float = 0.0) -> np.ndarray:
     rng = np.random.default_rng(seed)
     dt = 1.0 / FS_INT
     n = int(dur * FS_INT)
@@ -42,9 +42,9 @@ def mathieu_record(seed: int, *, f0: float, zeta: float, ratio: float, f_w: floa
     x = out[::DECIM]
     x *= 0.002 / x.std()  # a 0.002 g r.m.s. mode (units arbitrary for the estimate)
     t = np.arange(x.size) * DECIM / FS_INT
-    x += one_x_g * np.cos(om * t + 0.7)  # the forcing line the phase is taken from
-    if floor_g:
-        x += floor_g * rng.standard_normal(x.size)
+    x += one_x_peak_g * np.cos(om * t + 0.7)  # the forcing line the phase is taken from
+    if floor_rms_g:
+        x += floor_rms_g * rng.standard_normal(x.size)
     return x
 
 
@@ -64,7 +64,7 @@ def test_narrow_decay_rate_below_threshold_matches_first_order_averaging(ratio):
     truth = mu * (1.0 - ratio)
     est = []
     for seed in range(3):
-        x = mathieu_record(seed, f0=f0, zeta=zeta, ratio=ratio, f_w=2 * f0, dur=dur, floor_g=0.0005)
+        x = mathieu_record(seed, f0=f0, zeta=zeta, ratio=ratio, f_w=2 * f0, dur=dur, floor_rms_g=0.0005)
         flow = estimate(x, FS_INT / DECIM, 2 * f0, 2.0 * truth)  # about what the spectral width gives
         assert flow is not None
         est.append(flow.narrow_rate_per_s)
@@ -75,7 +75,7 @@ def test_narrow_decay_rate_below_threshold_matches_first_order_averaging(ratio):
 
 def test_the_detuning_gives_the_modes_own_frequency():
     f0, zeta, f_w = 2.03, 0.02, 4.0  # the mode lies 0.03 Hz above half the forcing
-    x = mathieu_record(5, f0=f0, zeta=zeta, ratio=0.6, f_w=f_w, dur=600.0, floor_g=0.0005)
+    x = mathieu_record(5, f0=f0, zeta=zeta, ratio=0.6, f_w=f_w, dur=600.0, floor_rms_g=0.0005)
     flow = estimate(x, FS_INT / DECIM, f_w, 0.2)
     assert flow is not None
     assert flow.detuning_rad_s < 0

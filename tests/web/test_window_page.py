@@ -42,8 +42,8 @@ def test_window_page_states_the_conclusion_and_zooms_to_the_readings(login, site
 
     text = page.locator("#window-conclusion").inner_text()
     assert page.locator("#window-conclusion").is_visible()
-    newest_amp = rows[-1][1]  # the newest reading's 1X acceleration peak, from the database
-    assert f"At today's 1X acceleration of {newest_amp:.3g} {units} peak" in text
+    newest_accel_peak = rows[-1][1]  # the newest reading's 1X acceleration peak, from the database
+    assert f"At today's 1X acceleration of {newest_accel_peak:.3g} {units} peak" in text
     m = re.search(r"from ([\d.]+) to ([\d.]+) Hz \(([\d,]+) to ([\d,]+) r/min shaft", text)
     assert m, text
     a_hz, b_hz, a_rpm, b_rpm = (float(g.replace(",", "")) for g in m.groups())
