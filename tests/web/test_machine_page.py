@@ -16,9 +16,8 @@ import numpy as np
 import pytest
 from sqlalchemy import select
 from support.a11y import describe, violations
-from support.fixtures import PASSWORD, ROLES, settings_for
-from support.plant import make_plant
-from support.servers import serve_in_thread
+from support.fixtures import PASSWORD
+from support.servers import served_plant
 from support.signals import tone_record
 
 pytestmark = pytest.mark.browser
@@ -31,50 +30,25 @@ CHARTS = ("chart-half", "chart-overall", "chart-onex", "chart-ratio", "chart-gro
           "chart-speed")
 
 
-class MachineSite:
-    def __init__(self, base, app, plant, now):
-        self.base, self.app, self.plant, self.now = base, app, plant, now
-
-    @property
-    def db(self):
-        return self.app.state.db
-
-
 @pytest.fixture(scope="module")
 def site(tmp_path_factory):
     """Overrides the package's site for this module (the conftest's ``login`` then logs in here)."""
-    from server.app import create_app
-    from server.migrations import upgrade
     from server.services.ingest import ingest_record
-    from server.services.users import add_user
-    from server.storage import Database
-    from server.worker import run_once
 
-    tmp = tmp_path_factory.mktemp("machine")
-    settings = settings_for(tmp, embedded_worker=True, site_timezone=TZ)
-    upgrade(settings.database_url)
-    db = Database(settings.database_url)
-    plant = make_plant(db)
-    now = dt.datetime.now(dt.UTC)
-    rng = np.random.default_rng(20261203)
-    for day in range(DAYS):
-        ago = DAYS - day
-        speed = SPEED_BEFORE if ago > RAISE_DAYS_AGO else SPEED_AFTER
-        late = max(0, 8 - ago)  # the line appears 8 days ago and grows 60 % a day
-        half = 0.01 * 1.6 ** late if late else 0.0
-        x = tone_record(rng, fs_hz=FS_HZ, n=N, forcing_hz=speed, amp_1x=0.3, amp_half=half)
-        ingest_record(db, point_id=plant.point_ids["P1-DE-H"], samples=x, fs_hz=FS_HZ, units="m/s2",
-                      measured_at=now - dt.timedelta(days=ago, hours=-3), speed_hz=speed,
-                      speed_source="tachometer", origin="api", uploader="test:seed")
-    while run_once(db, settings):
-        pass
-    db.dispose()
-    app = create_app(settings)
-    for role in ROLES:
-        add_user(app.state.db, settings, username=f"{role}1", password=PASSWORD, role=role,
-                 email=f"{role}1@example.test", hashing=app.state.passwords)
-    with serve_in_thread(app) as base:
-        yield MachineSite(base, app, plant, now)
+    def seed(db, plant, now):
+        rng = np.random.default_rng(20261203)
+        for day in range(DAYS):
+            ago = DAYS - day
+            speed = SPEED_BEFORE if ago > RAISE_DAYS_AGO else SPEED_AFTER
+            late = max(0, 8 - ago)  # the line appears 8 days ago and grows 60 % a day
+            half = 0.01 * 1.6 ** late if late else 0.0
+            x = tone_record(rng, fs_hz=FS_HZ, n=N, forcing_hz=speed, amp_1x=0.3, amp_half=half)
+            ingest_record(db, point_id=plant.point_ids["P1-DE-H"], samples=x, fs_hz=FS_HZ, units="m/s2",
+                          measured_at=now - dt.timedelta(days=ago, hours=-3), speed_hz=speed,
+                          speed_source="tachometer", origin="api", uploader="test:seed")
+
+    with served_plant(tmp_path_factory.mktemp("machine"), seed, site_timezone=TZ) as served:
+        yield served
 
 
 def ready(page):

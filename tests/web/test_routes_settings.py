@@ -16,9 +16,7 @@ import numpy as np
 import pytest
 from sqlalchemy import select
 from support.a11y import describe, violations
-from support.fixtures import PASSWORD, ROLES, settings_for
-from support.plant import make_plant
-from support.servers import serve_in_thread
+from support.servers import served_plant
 from support.signals import tone_record
 
 pytestmark = pytest.mark.browser
@@ -26,50 +24,26 @@ FS_HZ, N = 2560.0, 16384
 LEVEL_RANK = {"normal": 0, "alert": 1, "danger": 2}  # common practice: normal < alert < danger
 
 
-class RouteSite:
-    def __init__(self, base, app, plant, now):
-        self.base, self.app, self.plant, self.now = base, app, plant, now
-
-    @property
-    def db(self):
-        return self.app.state.db
-
-
 @pytest.fixture(scope="module")
 def site(tmp_path_factory):
     """Overrides the package's site for this module (the conftest's ``login`` then logs in here)."""
-    from server.app import create_app
-    from server.migrations import upgrade
     from server.services.ingest import ingest_record
-    from server.services.users import add_user
-    from server.storage import Database
-    from server.worker import run_once
 
-    tmp = tmp_path_factory.mktemp("routes")
-    settings = settings_for(tmp, embedded_worker=True, site_timezone="UTC")
-    upgrade(settings.database_url)
-    db = Database(settings.database_url)
-    plant = make_plant(db)
-    now = dt.datetime.now(dt.UTC)
-    rng = np.random.default_rng(5)
+    def seed(db, plant, now):
+        rng = np.random.default_rng(5)
 
-    def store(name, x, t):
-        ingest_record(db, point_id=plant.point_ids[name], samples=x, fs_hz=FS_HZ, units="m/s2",
-                      measured_at=t, speed_hz=24.75, speed_source="tachometer", origin="api",
-                      uploader="test:seed")
+        def store(name, x, t):
+            ingest_record(db, point_id=plant.point_ids[name], samples=x, fs_hz=FS_HZ, units="m/s2",
+                          measured_at=t, speed_hz=24.75, speed_source="tachometer", origin="api",
+                          uploader="test:seed")
 
-    for i in range(4):  # 2 m/s2 peak at 24.75 Hz: 9.1 mm/s r.m.s., above C/D (4.5) for group 2 rigid
-        store("P1-DE-H", tone_record(rng, fs_hz=FS_HZ, n=N, amp_1x=2.0), now - dt.timedelta(hours=20 - 6 * i))
-    store("P1-NDE-V", tone_record(rng, fs_hz=FS_HZ, n=N, amp_1x=0.1), now - dt.timedelta(days=10))
-    while run_once(db, settings):
-        pass
-    db.dispose()
-    app = create_app(settings)
-    for role in ROLES:
-        add_user(app.state.db, settings, username=f"{role}1", password=PASSWORD, role=role,
-                 email=f"{role}1@example.test", hashing=app.state.passwords)
-    with serve_in_thread(app) as base:
-        yield RouteSite(base, app, plant, now)
+        for i in range(4):  # 2 m/s2 peak at 24.75 Hz: 9.1 mm/s r.m.s., above C/D (4.5) for group 2 rigid
+            store("P1-DE-H", tone_record(rng, fs_hz=FS_HZ, n=N, amp_1x=2.0),
+                  now - dt.timedelta(hours=20 - 6 * i))
+        store("P1-NDE-V", tone_record(rng, fs_hz=FS_HZ, n=N, amp_1x=0.1), now - dt.timedelta(days=10))
+
+    with served_plant(tmp_path_factory.mktemp("routes"), seed, site_timezone="UTC") as served:
+        yield served
 
 
 def ready(page):
